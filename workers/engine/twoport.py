@@ -141,7 +141,8 @@ def _check_two_port(s: np.ndarray) -> np.ndarray:
 def _safe_ratio(num: np.ndarray, den: np.ndarray) -> np.ndarray:
     """num / den, with ±inf (sign of num) where den == 0 and nan for 0/0, without warnings."""
     out = np.where(num > 0, np.inf, np.where(num < 0, -np.inf, np.nan))
-    np.divide(num, den, out=out, where=den != 0)
+    with np.errstate(over="ignore"):  # a subnormal denominator overflows to inf, as it should
+        np.divide(num, den, out=out, where=den != 0)
     return out
 
 
@@ -151,8 +152,25 @@ def _power_db(ratio: np.ndarray) -> np.ndarray:
         return 10.0 * np.log10(ratio)
 
 
+def _circle_terms(
+    s_near: np.ndarray, s_far: np.ndarray, loop: np.ndarray, cross: np.ndarray
+) -> tuple[np.ndarray, np.ndarray]:
+    """C = S_far - Δ S_near* and D = |S_far|² - |Δ|², expanded with Δ = S11 S22 - S12 S21.
+
+    C = S_far (1 - |S_near|²) + S12 S21 S_near* and
+    D = |S_far|² (1 - |S_near|²) - |S12 S21|² + 2 Re(S11 S22 (S12 S21)*): the same numbers,
+    but the factor 1 - |S_near|² is shared with mu's numerator, so a unilateral device
+    (S12 S21 = 0) gets exact signs instead of rounding noise.
+    """
+    margin = 1.0 - np.abs(s_near) ** 2
+    c_vec = s_far * margin + loop * np.conj(s_near)
+    d = np.abs(s_far) ** 2 * margin - np.abs(loop) ** 2 + cross
+    return c_vec, d
+
+
 def _stability_circle(
-    s_near: np.ndarray, s_far: np.ndarray, delta: np.ndarray, loop: np.ndarray
+    s_near: np.ndarray, s_far: np.ndarray, delta: np.ndarray, loop: np.ndarray,
+    cross: np.ndarray,
 ) -> StabilityCircle:
     """Circle where the reflection at the *near* port has magnitude 1, in the far port's Γ plane.
 
@@ -163,8 +181,7 @@ def _stability_circle(
     usual rule (origin stable iff |S_near| < 1). For D = 0 the locus is the line
     Re(C Γ) = (1 - |S_near|²) / 2 and the stable side is Re(C Γ) < (1 - |S_near|²) / 2.
     """
-    c_vec = s_far - delta * np.conj(s_near)
-    d = np.abs(s_far) ** 2 - np.abs(delta) ** 2
+    c_vec, d = _circle_terms(s_near, s_far, loop, cross)
     scale = np.maximum(np.abs(s_far) ** 2, np.abs(delta) ** 2)
     is_line = np.abs(d) <= _LINE_TOLERANCE * np.maximum(scale, 1.0)
     safe_d = np.where(is_line, 1.0, d)
@@ -174,11 +191,11 @@ def _stability_circle(
 
     half_margin = (1.0 - np.abs(s_near) ** 2) / 2.0
     c_abs = np.abs(c_vec)
-    safe_c = np.where(c_abs > 0, c_vec, 1.0)
-    line_foot = np.where(
-        is_line & (c_abs > 0), np.conj(safe_c) * half_margin / np.where(c_abs > 0, c_abs, 1.0) ** 2,
-        complex(np.nan, np.nan),
-    )
+    # Foot of the perpendicular from the origin: h C* / |C|² = h / C.
+    has_foot = is_line & (c_abs > 0)
+    line_foot = np.full(c_vec.shape, complex(np.nan, np.nan))
+    with np.errstate(over="ignore", invalid="ignore"):  # subnormal C: foot at inf or nan
+        np.divide(half_margin, c_vec, out=line_foot, where=has_foot)
 
     stable_inside = ~is_line & (d < 0)
     centre_abs = np.abs(np.where(is_line, 0.0, centre))
@@ -215,13 +232,17 @@ def two_port_factors(s: np.ndarray) -> TwoPortFactors:
     abs11_sq, abs22_sq, delta_sq = np.abs(s11) ** 2, np.abs(s22) ** 2, np.abs(delta) ** 2
     loop_abs = np.abs(loop)
 
-    k_numerator = 1.0 - abs11_sq - abs22_sq + delta_sq
+    # 1 - |S11|² - |S22|² + |Δ|², expanded so that S12 S21 = 0 gives exactly (1-|S11|²)(1-|S22|²)
+    cross = 2.0 * np.real(s11 * s22 * np.conj(loop))
+    k_numerator = (1.0 - abs11_sq) * (1.0 - abs22_sq) + loop_abs**2 - cross
     k = _safe_ratio(k_numerator, 2.0 * loop_abs)
     b1 = 1.0 + abs11_sq - abs22_sq - delta_sq
     b2 = 1.0 + abs22_sq - abs11_sq - delta_sq
 
-    mu = _safe_ratio(1.0 - abs11_sq, np.abs(s22 - delta * np.conj(s11)) + loop_abs)
-    mu_prime = _safe_ratio(1.0 - abs22_sq, np.abs(s11 - delta * np.conj(s22)) + loop_abs)
+    c_load, _ = _circle_terms(s11, s22, loop, cross)
+    c_source, _ = _circle_terms(s22, s11, loop, cross)
+    mu = _safe_ratio(1.0 - abs11_sq, np.abs(c_load) + loop_abs)
+    mu_prime = _safe_ratio(1.0 - abs22_sq, np.abs(c_source) + loop_abs)
 
     mag_applies = (k >= 1.0) & (b1 > 0.0)
     root = np.sqrt(np.clip(k_numerator**2 - (2.0 * loop_abs) ** 2, 0.0, None))
@@ -245,8 +266,8 @@ def two_port_factors(s: np.ndarray) -> TwoPortFactors:
         mag_applies=mag_applies,
         max_gain=max_gain,
         max_gain_db=_power_db(max_gain),
-        load_circle=_stability_circle(s11, s22, delta, loop),
-        source_circle=_stability_circle(s22, s11, delta, loop),
+        load_circle=_stability_circle(s11, s22, delta, loop, cross),
+        source_circle=_stability_circle(s22, s11, delta, loop, cross),
     )
 
 
