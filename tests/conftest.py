@@ -1,0 +1,58 @@
+"""Shared fixtures: stores on both back ends (SQLite in tmp_path, a real Redis on 127.0.0.1:6379).
+
+Redis tests use database 13 and a unique key prefix per test, and delete only their own keys, so
+they can share a server with anything else. Set BALLAST_TEST_REDIS_URL to use another server.
+"""
+
+from __future__ import annotations
+
+import os
+import uuid
+from collections.abc import Iterator
+
+import pytest
+
+from service.store.redis_store import RedisStore
+from service.store.sqlite_store import SqliteStore
+
+TEST_REDIS_URL = os.environ.get("BALLAST_TEST_REDIS_URL", "redis://127.0.0.1:6379/13")
+
+
+class FakeClock:
+    """A clock the test moves by hand (``clock.now += 60``)."""
+
+    def __init__(self, start: float = 1_800_000_000.0) -> None:
+        self.now = start
+
+    def __call__(self) -> float:
+        return self.now
+
+
+@pytest.fixture
+def clock() -> FakeClock:
+    return FakeClock()
+
+
+def _redis_store(clock: FakeClock) -> Iterator[RedisStore]:
+    prefix = f"ballast-test:{uuid.uuid4().hex}:"
+    store = RedisStore(TEST_REDIS_URL, prefix=prefix, clock=clock)
+    if not store.ping():
+        pytest.fail(f"no Redis at {TEST_REDIS_URL} (the store tests need a real Redis)")
+    try:
+        yield store
+    finally:
+        keys = list(store.r.scan_iter(match=prefix + "*", count=1000))
+        if keys:
+            store.r.delete(*keys)
+        store.close()
+
+
+@pytest.fixture(params=["sqlite", "redis"])
+def store(request: pytest.FixtureRequest, tmp_path, clock: FakeClock) -> Iterator[object]:
+    """The same tests run on both store implementations."""
+    if request.param == "sqlite":
+        s = SqliteStore(tmp_path / "store.sqlite3", clock=clock)
+        yield s
+        s.close()
+    else:
+        yield from _redis_store(clock)
