@@ -17,7 +17,7 @@ import math
 import numpy as np
 import pytest
 import skrf
-from hypothesis import assume, given, settings
+from hypothesis import assume, event, given, settings
 from hypothesis import strategies as st
 from skrf.network import z2s
 
@@ -166,6 +166,7 @@ def test_edwards_sinsky_equivalence(s11: complex, s12: complex, s21: complex, s2
     assume(abs(k - 1) > MARGIN and abs(delta_abs - 1) > MARGIN)
     assume(abs(mu - 1) > MARGIN and abs(mu_prime - 1) > MARGIN)
     rollett_stable = bool(k > 1 and delta_abs < 1)
+    event("unconditionally stable" if rollett_stable else "potentially unstable")
     assert (mu > 1) == rollett_stable
     assert (mu_prime > 1) == rollett_stable
 
@@ -225,6 +226,7 @@ def test_pozar_conjugate_match_example_gain() -> None:
 @pytest.mark.parametrize(
     ("s11", "s21", "s22"),
     [(polar(0.6, -50), polar(3.0, 120), polar(0.4, 30)), (polar(0.9, 170), polar(8, -10), 0.2)],
+    ids=["moderate", "high-gain"],
 )
 def test_unilateral_closed_form(s11: complex, s21: complex, s22: complex) -> None:
     # Derivation (S12 = 0): Δ = S11 S22, so K's numerator is (1 - |S11|²)(1 - |S22|²) > 0 over
@@ -258,9 +260,26 @@ def test_unilateral_with_gain_at_input_is_unstable() -> None:
     assert not factors.mag_applies[0]
 
 
+def test_k_above_one_with_delta_above_one_uses_msg() -> None:
+    # Closed form: S11 = S22 = 0 and S12 S21 = 2 give Γ_in = 2 Γ_L, so any passive load with
+    # |Γ_L| > 1/2 makes |Γ_in| > 1: potentially unstable although K = (1 + 4)/(2·2) = 1.25 > 1.
+    # Here |Δ| = 2, B1 = 1 - 4 = -3 < 0 and mu = (1 - 0)/(|0| + 2) = 0.5. MAG (a simultaneous
+    # conjugate match) does not apply; MSG = |S21/S12| = 4/0.5 = 8.
+    s = np.array([[[0.0, 0.5], [4.0, 0.0]]], dtype=complex)
+    factors = two_port_factors(s)
+    assert factors.k[0] == pytest.approx(1.25, rel=1e-12)
+    assert factors.delta_abs[0] == pytest.approx(2.0, rel=1e-12)
+    assert factors.b1[0] == pytest.approx(-3.0, rel=1e-12)
+    assert factors.mu[0] == pytest.approx(0.5, rel=1e-12)
+    assert not factors.mag_applies[0] and np.isnan(factors.mag[0])
+    assert factors.max_gain[0] == pytest.approx(8.0, rel=1e-12)
+    assert factors.max_gain_db[0] == pytest.approx(10 * math.log10(8.0), rel=1e-12)
+
+
 def test_no_transmission_at_all_gives_infinities_without_warnings() -> None:
-    # S12 = S21 = S22 = 0: K = +inf, mu = (1 - |S11|²)/0 = +inf, MSG = 0/0 = nan, and the
-    # load circle is a line (D_L = 0) at Re(0·Γ) = ...: degenerate, C = 0, no line foot.
+    # S12 = S21 = S22 = 0: K = (1 - |S11|²)/0 = +inf, mu = (1 - |S11|²)/0 = +inf,
+    # MSG = 0/0 = nan. The load circle degenerates (D_L = 0 and C_L = 0): |Γ_in| = |S11| < 1
+    # for every Γ_L, so there is no locus, no line foot, and nothing unstable.
     s = np.array([[[0.5, 0.0], [0.0, 0.0]]], dtype=complex)
     factors = two_port_factors(s)  # pyproject turns any numpy warning into an error
     assert factors.k[0] == np.inf
