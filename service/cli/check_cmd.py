@@ -1,0 +1,70 @@
+"""``ballast check``: run the engine on a local file, no server needed.
+
+    ballast check request.json
+    ballast check amplifier.s6p --map map.json
+
+Prints the verdict JSON (and nothing else) on stdout. Exit codes: 0 stable, 1 unstable,
+2 indeterminate, 3 bad input (the error goes to stderr).
+"""
+
+from __future__ import annotations
+
+import argparse
+import json
+import sys
+from pathlib import Path
+from typing import Any
+
+from marshmallow import ValidationError
+
+from service.cli import EXIT_ERROR, EXIT_INDETERMINATE, EXIT_STABLE, EXIT_UNSTABLE
+from service.runner import run_check_json
+from service.schemas.errors import flatten_errors
+
+VERDICT_EXIT = {"stable": EXIT_STABLE, "unstable": EXIT_UNSTABLE,
+                "indeterminate": EXIT_INDETERMINATE}
+
+
+def register(subparsers: argparse._SubParsersAction) -> None:
+    parser = subparsers.add_parser(
+        "check", help="check one circuit locally and print its verdict JSON",
+        description="Run every stability indicator on one check request (JSON) or one Touchstone "
+                    "file plus a port/device map, and print the verdict JSON.")
+    parser.add_argument("file", type=Path, help="a check request (.json) or a Touchstone file")
+    parser.add_argument("--map", dest="map_file", type=Path,
+                        help="JSON with the ports and devices (and options) for a Touchstone file")
+    parser.add_argument("--indent", type=int, default=2, help="JSON indentation (default 2)")
+    parser.set_defaults(func=run)
+
+
+def request_from_files(file: Path, map_file: Path | None) -> dict[str, Any]:
+    """The JSON check request that ``file`` (and ``map_file``) describe."""
+    text = file.read_text(encoding="utf-8", errors="strict")
+    if map_file is None:
+        if file.suffix.lower() != ".json":
+            raise ValueError(f"{file}: a Touchstone file needs --map MAP.json naming its ports "
+                             "and devices")
+        payload = json.loads(text)
+        if not isinstance(payload, dict):
+            raise ValueError(f"{file}: must hold a JSON object (one check request)")
+        return payload
+    mapping = json.loads(map_file.read_text(encoding="utf-8"))
+    if not isinstance(mapping, dict):
+        raise ValueError(f"{map_file}: must hold a JSON object with ports and devices")
+    return {**mapping, "touchstone": text}
+
+
+def run(args: argparse.Namespace) -> int:
+    try:
+        payload = request_from_files(args.file, args.map_file)
+        verdict = run_check_json(payload)
+    except ValidationError as exc:
+        for field, message in flatten_errors(exc.messages):
+            print(f"ballast check: {field}: {message}", file=sys.stderr)
+        return EXIT_ERROR
+    except (OSError, UnicodeDecodeError, json.JSONDecodeError, ValueError) as exc:
+        print(f"ballast check: {exc}", file=sys.stderr)
+        return EXIT_ERROR
+    json.dump(verdict, sys.stdout, indent=args.indent or None)
+    sys.stdout.write("\n")
+    return VERDICT_EXIT[verdict["verdict"]]

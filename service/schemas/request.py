@@ -1,0 +1,324 @@
+"""The check request: validated once here, at the boundary, into an engine ``CheckRequest``.
+
+The same schema serves the HTTP API, batch variants and the ``ballast check`` command. Numeric
+arrays are read with numpy in one step (no per-element marshmallow fields) so that large requests
+validate quickly; every error names its field (``data.re``, ``devices.1.control`` …).
+"""
+
+from __future__ import annotations
+
+from typing import Any
+
+import numpy as np
+from marshmallow import (
+    RAISE,
+    Schema,
+    ValidationError,
+    fields,
+    post_load,
+    validate,
+    validates_schema,
+)
+
+from workers.engine.errors import InputError, TouchstoneError
+from workers.engine.request import (
+    MAX_POINTS,
+    MAX_PORTS,
+    CheckOptions,
+    CheckRequest,
+    Device,
+    Network,
+    Port,
+)
+from workers.engine.touchstone import parse_touchstone
+
+_COMPLEX_DOC = {
+    "oneOf": [
+        {"type": "number"},
+        {"type": "object", "required": ["re", "im"],
+         "properties": {"re": {"type": "number"}, "im": {"type": "number"}},
+         "additionalProperties": False},
+    ]
+}
+
+
+def _finite(values: np.ndarray, name: str) -> np.ndarray:
+    if not np.isfinite(values).all():
+        raise ValidationError("must contain only finite numbers (no NaN or infinity)", name)
+    return values
+
+
+def _as_float_array(raw: Any, name: str, ndim: int) -> np.ndarray:
+    try:
+        values = np.asarray(raw, dtype=float)
+    except (TypeError, ValueError) as exc:
+        raise ValidationError(f"must be a {ndim}-dimensional array of numbers", name) from exc
+    if values.ndim != ndim:
+        raise ValidationError(
+            f"must be a {ndim}-dimensional array of numbers (got {values.ndim} dimensions)", name)
+    return _finite(values, name)
+
+
+class ComplexArray(fields.Field):
+    """``{"re": [...], "im": [...]}`` of equal shape → complex ndarray (shape checked later)."""
+
+    def __init__(self, ndim: int, **kwargs: Any) -> None:
+        self.ndim = ndim
+        nested: dict[str, Any] = {"type": "number"}
+        for _ in range(ndim):
+            nested = {"type": "array", "items": nested}
+        kwargs.setdefault("metadata", {}).update({
+            "type": "object", "required": ["re", "im"],
+            "properties": {"re": nested, "im": nested},
+        })
+        super().__init__(**kwargs)
+
+    def _deserialize(self, value: Any, attr: str | None, data: Any, **kwargs: Any) -> np.ndarray:
+        if not isinstance(value, dict) or set(value) != {"re", "im"}:
+            raise ValidationError('must be an object with exactly the keys "re" and "im"')
+        re = _as_float_array(value["re"], "re", self.ndim)
+        im = _as_float_array(value["im"], "im", self.ndim)
+        if re.shape != im.shape:
+            raise ValidationError(f"re has shape {re.shape} but im has shape {im.shape}")
+        return re + 1j * im
+
+
+class ComplexNumber(fields.Field):
+    """A real number or ``{"re": x, "im": y}``."""
+
+    def __init__(self, **kwargs: Any) -> None:
+        kwargs.setdefault("metadata", {}).update(_COMPLEX_DOC)
+        super().__init__(**kwargs)
+
+    def _deserialize(self, value: Any, attr: str | None, data: Any, **kwargs: Any) -> complex:
+        if isinstance(value, bool):
+            raise ValidationError("must be a number or {re, im}")
+        if isinstance(value, int | float):
+            number = complex(value)
+        elif isinstance(value, dict) and set(value) == {"re", "im"} and all(
+                isinstance(value[k], int | float) and not isinstance(value[k], bool)
+                for k in ("re", "im")):
+            number = complex(value["re"], value["im"])
+        else:
+            raise ValidationError('must be a number or an object {"re": number, "im": number}')
+        if not np.isfinite(number):
+            raise ValidationError("must be finite")
+        return number
+
+
+class Transconductance(fields.Field):
+    """gm: a number, ``{re, im}``, or per-frequency ``{"re": [F], "im": [F]}``."""
+
+    def __init__(self, **kwargs: Any) -> None:
+        kwargs.setdefault("metadata", {}).update({"oneOf": [
+            *_COMPLEX_DOC["oneOf"],
+            {"type": "object", "required": ["re", "im"], "properties": {
+                "re": {"type": "array", "items": {"type": "number"}},
+                "im": {"type": "array", "items": {"type": "number"}}}},
+        ]})
+        super().__init__(**kwargs)
+
+    def _deserialize(self, value: Any, attr: str | None, data: Any, **kwargs: Any
+                     ) -> complex | np.ndarray:
+        if isinstance(value, dict) and isinstance(value.get("re"), list):
+            return ComplexArray(1)._deserialize(value, attr, data)
+        return ComplexNumber()._deserialize(value, attr, data)
+
+
+class NetworkSchema(Schema):
+    """Network data: arrays (S or Y) or a Touchstone text (S, Y or Z)."""
+
+    class Meta:
+        unknown = RAISE
+
+    parameters = fields.String(validate=validate.OneOf(["S", "Y"]),
+                               metadata={"description": "S or Y (with data)"})
+    data = ComplexArray(3, metadata={"description": "[F][N][N] real and imaginary parts"})
+    z0_ohm = fields.Raw(metadata={
+        "description": "reference impedance for S: one positive number or one per port",
+        "oneOf": [{"type": "number"}, {"type": "array", "items": {"type": "number"}}]})
+    touchstone = fields.String(metadata={"description": "Touchstone v1 or v2 text"})
+
+    @validates_schema
+    def _one_source(self, data: dict[str, Any], **kwargs: Any) -> None:
+        if "touchstone" in data:
+            extra = {"parameters", "data", "z0_ohm"} & set(data)
+            if extra:
+                raise ValidationError(
+                    f"give either touchstone or parameters/data, not both ({', '.join(sorted(extra))})",
+                    "touchstone")
+            return
+        for name in ("parameters", "data"):
+            if name not in data:
+                raise ValidationError("missing: give parameters and data, or touchstone", name)
+        if data["parameters"] != "S" and "z0_ohm" in data:
+            raise ValidationError("z0_ohm applies to S data only", "z0_ohm")
+
+
+class PortSchema(Schema):
+    class Meta:
+        unknown = RAISE
+
+    name = fields.String(required=True, validate=validate.Length(min=1, max=64))
+    role = fields.String(required=True, validate=validate.OneOf(["external", "probe"]))
+    termination_ohm = ComplexNumber(metadata={"description": "external ports only; default z0"})
+
+
+class DeviceSchema(Schema):
+    class Meta:
+        unknown = RAISE
+
+    name = fields.String(required=True, validate=validate.Length(min=1, max=64))
+    gm_s = Transconductance(required=True)
+    delay_s = fields.Float(load_default=0.0, allow_nan=False,
+                           validate=validate.Range(min=0.0, max=1e-6))
+    control = fields.List(fields.String(allow_none=True), required=True,
+                          validate=validate.Length(equal=2))
+    output = fields.List(fields.String(allow_none=True), required=True,
+                         validate=validate.Length(equal=2))
+
+
+class OptionsSchema(Schema):
+    class Meta:
+        unknown = RAISE
+
+    closure_tolerance = fields.Float(validate=validate.Range(min=1e-6, max=1.0))
+    phase_step_limit_deg = fields.Float(validate=validate.Range(min=1.0, max=179.0))
+    consistency_tolerance = fields.Float(validate=validate.Range(min=0.0, max=1.0))
+    refine = fields.Boolean()
+
+    @post_load
+    def _options(self, data: dict[str, Any], **kwargs: Any) -> CheckOptions:
+        return CheckOptions(**data)
+
+
+class CheckRequestSchema(NetworkSchema):
+    """One check request (see DEVELOPERS.md, "Check request")."""
+
+    frequency_hz = fields.List(fields.Float(allow_nan=False), metadata={
+        "description": "strictly increasing, >= 0; optional with touchstone"})
+    ports = fields.List(fields.Nested(PortSchema), required=True,
+                        validate=validate.Length(min=1, max=MAX_PORTS))
+    devices = fields.List(fields.Nested(DeviceSchema), load_default=list)
+    gain_off = fields.Nested(NetworkSchema, metadata={
+        "description": "the same network with every transconductance set to zero"})
+    options = fields.Nested(OptionsSchema, load_default=CheckOptions)
+
+    @post_load
+    def _build(self, data: dict[str, Any], **kwargs: Any) -> CheckRequest:
+        try:
+            return build_request(data)
+        except InputError as exc:
+            raise ValidationError(exc.message, exc.field) from exc
+
+
+def _network(raw: dict[str, Any], prefix: str, n_ports: int) -> tuple[Network, np.ndarray | None]:
+    """The network and, for Touchstone, its own frequencies."""
+    if "touchstone" in raw:
+        try:
+            parsed = parse_touchstone(raw["touchstone"])
+        except TouchstoneError as exc:
+            raise InputError(f"{prefix}touchstone", exc.message) from exc
+        if parsed.nports != n_ports:
+            raise InputError(f"{prefix}touchstone",
+                             f"has {parsed.nports} ports but ports lists {n_ports}")
+        return Network(parsed.parameter, parsed.values, np.asarray(parsed.z0_ohm, float)), \
+            parsed.frequency_hz
+    values = raw["data"]
+    if values.shape[1:] != (n_ports, n_ports):
+        raise InputError(f"{prefix}data", f"has matrices of shape {values.shape[1:]} but ports "
+                                          f"lists {n_ports} ports")
+    z0 = np.asarray(raw.get("z0_ohm", 50.0), dtype=float) if _numeric(raw.get("z0_ohm", 50.0)) \
+        else None
+    if z0 is None or z0.ndim > 1 or (z0.ndim == 1 and z0.size != n_ports):
+        raise InputError(f"{prefix}z0_ohm", f"must be one positive number or {n_ports} of them")
+    if not (np.isfinite(z0).all() and (z0 > 0).all()):
+        raise InputError(f"{prefix}z0_ohm", "must be positive and finite")
+    return Network(raw["parameters"], values, np.broadcast_to(z0, (n_ports,)).copy()), None
+
+
+def _numeric(value: Any) -> bool:
+    items = value if isinstance(value, list) else [value]
+    return bool(items) and all(isinstance(v, int | float) and not isinstance(v, bool)
+                               for v in items)
+
+
+def _frequencies(given: list[float] | None, from_file: np.ndarray | None, n_data: int
+                 ) -> np.ndarray:
+    if given is None and from_file is None:
+        raise InputError("frequency_hz", "is required with array data")
+    f = np.asarray(given if given is not None else from_file, dtype=float)
+    if from_file is not None and given is not None and (
+            f.shape != from_file.shape or not np.allclose(f, from_file, rtol=1e-9)):
+        raise InputError("frequency_hz", "differs from the Touchstone file's frequencies")
+    if f.size < 3:
+        raise InputError("frequency_hz", f"needs at least 3 points (got {f.size})")
+    if f.size > MAX_POINTS:
+        raise InputError("frequency_hz", f"has {f.size} points; the limit is {MAX_POINTS}")
+    if not np.isfinite(f).all() or (f < 0).any():
+        raise InputError("frequency_hz", "must be finite and >= 0")
+    if (np.diff(f) <= 0).any():
+        i = int(np.argmax(np.diff(f) <= 0))
+        raise InputError("frequency_hz", f"must be strictly increasing (point {i + 1} is not)")
+    if n_data != f.size:
+        raise InputError("data", f"has {n_data} frequency points but frequency_hz has {f.size}")
+    return f
+
+
+def _terminal(name: str | None, index: dict[str, int], field: str) -> int | None:
+    if name is None:
+        return None
+    if name not in index:
+        raise InputError(field, f"names port {name!r}, which is not in ports (every device "
+                                "terminal must be a port or null for ground)")
+    return index[name]
+
+
+def build_request(data: dict[str, Any]) -> CheckRequest:
+    """Semantic checks across fields; raises InputError naming the field."""
+    ports = data["ports"]
+    index: dict[str, int] = {}
+    for k, p in enumerate(ports):
+        if p["name"] in index:
+            raise InputError(f"ports.{k}.name", f"duplicate port name {p['name']!r}")
+        index[p["name"]] = k
+        if p["role"] == "probe" and "termination_ohm" in p:
+            raise InputError(f"ports.{k}.termination_ohm", "probe ports stay open; only external "
+                                                           "ports take a termination")
+        if "termination_ohm" in p and p["termination_ohm"] == 0:
+            raise InputError(f"ports.{k}.termination_ohm", "must not be zero")
+    n = len(ports)
+    network, file_f = _network(data, "", n)
+    f = _frequencies(data.get("frequency_hz"), file_f, network.values.shape[0])
+    gain_off = None
+    if "gain_off" in data:
+        gain_off, off_f = _network(data["gain_off"], "gain_off.", n)
+        if off_f is not None and (off_f.shape != f.shape or not np.allclose(off_f, f, rtol=1e-9)):
+            raise InputError("gain_off.touchstone", "frequencies differ from the network's")
+        if gain_off.values.shape[0] != f.size:
+            raise InputError("gain_off.data", f"has {gain_off.values.shape[0]} frequency points; "
+                                              f"expected {f.size}")
+    devices = []
+    names: set[str] = set()
+    for d, raw in enumerate(data["devices"]):
+        if raw["name"] in names:
+            raise InputError(f"devices.{d}.name", f"duplicate device name {raw['name']!r}")
+        names.add(raw["name"])
+        gm = raw["gm_s"]
+        if isinstance(gm, np.ndarray):
+            if gm.shape != f.shape:
+                raise InputError(f"devices.{d}.gm_s",
+                                 f"has {gm.size} values; expected one per frequency ({f.size})")
+        gm = np.broadcast_to(np.asarray(gm, dtype=complex), f.shape).copy()
+        control = tuple(_terminal(t, index, f"devices.{d}.control") for t in raw["control"])
+        output = tuple(_terminal(t, index, f"devices.{d}.output") for t in raw["output"])
+        if control[0] == control[1]:
+            raise InputError(f"devices.{d}.control", "the two terminals must differ")
+        if output[0] == output[1]:
+            raise InputError(f"devices.{d}.output", "the two terminals must differ")
+        devices.append(Device(raw["name"], gm, control, output, float(raw["delay_s"])))
+    if not devices and gain_off is None:
+        raise InputError("devices", "give the devices, or gain_off data, or both: the check "
+                                    "needs to know the circuit with its gain switched off")
+    port_objs = tuple(Port(p["name"], p["role"], p.get("termination_ohm")) for p in ports)
+    return CheckRequest(f, network, port_objs, tuple(devices), gain_off, data["options"])

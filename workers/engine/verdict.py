@@ -1,0 +1,160 @@
+"""The verdict: typed results of one check and their JSON form (format ``ballast.verdict/1``).
+
+The service returns exactly :meth:`CheckVerdict.to_dict`; the format is documented in
+DEVELOPERS.md ("Verdict format"). Fields are only ever added within a format version.
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import asdict, dataclass, field
+from typing import Any, Literal
+
+VERDICT_FORMAT = "ballast.verdict/1"
+
+VerdictName = Literal["stable", "unstable", "indeterminate"]
+Severity = Literal["info", "warning", "blocking"]
+DiagnosticCode = Literal[
+    "band_low_open",            # NDF has not settled to its DC value at the lowest frequency
+    "band_high_open",           # NDF has not settled to its limit at the highest frequency
+    "phase_step_too_large",     # NDF turns too far between neighbouring samples
+    "count_not_integer",        # the closed phase change is far from a whole number of π
+    "singular_points",          # Y singular at some frequencies (dropped from the contour)
+    "gain_off_mismatch",        # gain_off data and the devices' stamps disagree
+    "product_mismatch",         # Π F_k differs from det Y_on / det Y_off
+    "kurokawa_unexplained",     # a node meets Kurokawa's condition but the count says stable
+    "marginal_response",        # NDF passes very close to the origin
+    "asymptote_not_unity",      # NDF settles to a real value other than 1 at the top
+    "two_port_unavailable",     # not exactly two external ports, or Z_ext singular
+    "model_not_validated",      # the rational model failed its leave-out check
+    "model_count_disagrees",    # model's right-half-plane zeros ≠ refined encirclement count
+    "not_rational",             # the data is not rational over the band (delay): model not trusted
+    "refinement_added_points",  # the refinement evaluated the model between samples
+]
+
+
+def _clean(value: Any) -> Any:
+    """JSON-safe copy: non-finite floats become None, tuples become lists."""
+    if isinstance(value, float):
+        return value if math.isfinite(value) else None
+    if isinstance(value, dict):
+        return {k: _clean(v) for k, v in value.items()}
+    if isinstance(value, list | tuple):
+        return [_clean(v) for v in value]
+    return value
+
+
+@dataclass(frozen=True)
+class Diagnostic:
+    """Something that limited confidence; ``blocking`` ones make the verdict indeterminate."""
+
+    code: DiagnosticCode
+    severity: Severity
+    message: str
+    details: dict[str, Any] = field(default_factory=dict)
+
+
+@dataclass(frozen=True)
+class StabilisationHint:
+    """First-order shunt conductance that cancels Re Y at the node: a starting point, not a fix."""
+
+    node: str
+    frequency_hz: float
+    shunt_conductance_s: float
+    shunt_resistance_ohm: float
+    note: str = ("first-order estimate from the driving-point admittance at the mode frequency; "
+                 "re-check the circuit with the part added")
+
+
+@dataclass(frozen=True)
+class Mode:
+    """One unstable natural frequency (a complex pair counts once here and twice in the count)."""
+
+    frequency_hz: float
+    growth_rate_per_s: float | None
+    nodes: list[str]
+    devices: list[str]
+    node_participation: list[float]
+    estimated_by: str
+    hint: StabilisationHint | None = None
+
+
+@dataclass(frozen=True)
+class EdgeReport:
+    frequency_hz: float
+    ndf_re: float
+    ndf_im: float
+    distance: float
+    off_axis: float
+    drift: float
+
+
+@dataclass(frozen=True)
+class NdfReport:
+    encirclements_clockwise: int
+    residual: float
+    low_edge: EdgeReport
+    high_edge: EdgeReport
+    max_phase_step_deg: float
+    max_phase_step_at_hz: float
+    min_abs: float
+    min_abs_at_hz: float
+    trusted: bool
+
+
+@dataclass(frozen=True)
+class DeviceReport:
+    name: str
+    order: int
+    encirclements_clockwise: int | None
+    min_abs_return_difference: float
+    min_at_hz: float
+
+
+@dataclass(frozen=True)
+class KurokawaPoint:
+    frequency_hz: float
+    re_admittance_s: float
+    im_slope_s_per_hz: float
+    growth_estimate_per_s: float
+
+
+@dataclass(frozen=True)
+class NodeReport:
+    name: str
+    role: str
+    min_re_admittance_s: float
+    min_re_at_hz: float
+    kurokawa: list[KurokawaPoint]
+
+
+@dataclass(frozen=True)
+class MethodReport:
+    """What one method says about the number of right-half-plane natural frequencies."""
+
+    method: Literal["encirclement", "rational_model", "kurokawa"]
+    unstable_count: int | None
+    agrees: bool | None
+    note: str = ""
+
+
+@dataclass(frozen=True)
+class CheckVerdict:
+    verdict: VerdictName
+    unstable_count: int | None
+    modes: list[Mode]
+    ndf: NdfReport | None
+    devices: list[DeviceReport]
+    nodes: list[NodeReport]
+    two_port: dict[str, Any] | None
+    methods: list[MethodReport]
+    diagnostics: list[Diagnostic]
+    band_hz: tuple[float, float]
+    n_points: int
+    n_ports: int
+    refinement: dict[str, Any] | None = None
+
+    def to_dict(self) -> dict[str, Any]:
+        body = asdict(self)
+        body["band_hz"] = list(self.band_hz)
+        return {"format": VERDICT_FORMAT, **_clean(body)}
