@@ -323,7 +323,7 @@ def summarise_two_port(frequency_hz: np.ndarray, f: TwoPortFactors) -> TwoPortSu
     """Minimum K, μ, μ' (and where), and the bands of potential instability (μ < 1).
 
     By Edwards & Sinsky (1992), μ > 1 alone is necessary and sufficient for unconditional
-    stability, so the bands are taken from μ; μ' < 1 holds on exactly the same samples.
+    stability, so the bands are taken from μ; in exact arithmetic μ' < 1 on the same samples.
     """
     frequency_hz = np.asarray(frequency_hz, dtype=float)
     if frequency_hz.shape != f.k.shape:
