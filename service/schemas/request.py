@@ -44,7 +44,7 @@ _COMPLEX_DOC = {
 
 def _finite(values: np.ndarray, name: str) -> np.ndarray:
     if not np.isfinite(values).all():
-        raise ValidationError("must contain only finite numbers (no NaN or infinity)", name)
+        raise ValidationError({name: ["must contain only finite numbers (no NaN or infinity)"]})
     return values
 
 
@@ -52,10 +52,12 @@ def _as_float_array(raw: Any, name: str, ndim: int) -> np.ndarray:
     try:
         values = np.asarray(raw, dtype=float)
     except (TypeError, ValueError) as exc:
-        raise ValidationError(f"must be a {ndim}-dimensional array of numbers", name) from exc
+        raise ValidationError(
+            {name: [f"must be a {ndim}-dimensional array of numbers with equal-length rows"]}
+        ) from exc
     if values.ndim != ndim:
         raise ValidationError(
-            f"must be a {ndim}-dimensional array of numbers (got {values.ndim} dimensions)", name)
+            {name: [f"must be a {ndim}-dimensional array of numbers (got {values.ndim})"]})
     return _finite(values, name)
 
 
