@@ -68,7 +68,7 @@ class CheckOptions:
     refine: run the rational-model refinement and natural-frequency identification.
     """
 
-    closure_tolerance: float = 0.05
+    closure_tolerance: float = 0.2
     phase_step_limit_deg: float = 45.0
     consistency_tolerance: float = 1e-6
     refine: bool = True
