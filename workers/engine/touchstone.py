@@ -53,7 +53,7 @@ _PARAMETERS: dict[str, Parameter] = {"s": "S", "y": "Y", "z": "Z"}
 _SNP_EXTENSION = re.compile(r"\.s(\d+)p\Z", re.IGNORECASE)
 _KEYWORD = re.compile(r"\[([^\]]*)\](.*)\Z")
 _NUMBER = re.compile(r"[+-]?(?:\d+\.?\d*|\.\d+)(?:[eE][+-]?\d+)?")
-_COMMENT = re.compile(r"![^\n]*")
+_KEYWORD_LINE = re.compile(r"^[ \t]*\[", re.MULTILINE)
 _POW10 = np.array([10.0**k for k in range(309)])
 _MAX_TOKEN_WIDTH = 64
 
@@ -82,21 +82,58 @@ class _Options:
     resistance: tuple[float, ...] = (50.0,)
 
 
+class _Text:
+    """Comment-free text with its line table; ``text[i]`` is line i (0-based)."""
+
+    def __init__(self, body: str) -> None:
+        self.body = body
+        self.raw = np.frombuffer(body.encode("ascii", "replace"), dtype=np.uint8)
+        self.newlines = np.flatnonzero(self.raw == 10)
+        self.line_start = np.concatenate(([0], self.newlines + 1))
+
+    def __len__(self) -> int:
+        return int(self.line_start.size)
+
+    def __getitem__(self, index: int) -> str:
+        end = self.newlines[index] if index < self.newlines.size else len(self.body)
+        return self.body[self.line_start[index] : end]
+
+    def offset(self, index: int) -> int:
+        """Character offset where line ``index`` starts (the text length past the last line)."""
+        return int(self.line_start[index]) if index < len(self) else len(self.body)
+
+    def next_keyword_line(self, start: int) -> int:
+        """First line index at or after ``start`` that begins with '[' (len(self) if none)."""
+        match = _KEYWORD_LINE.search(self.body, self.offset(start))
+        if match is None:
+            return len(self)
+        return int(np.searchsorted(self.newlines, match.start()))
+
+
 @dataclass(frozen=True)
 class _Numbers:
-    """Every number of a data region, with the 1-based line of each."""
+    """Every number of a data region; lines are looked up on demand (1-based)."""
 
     values: np.ndarray
-    line_of_token: np.ndarray
+    offsets: np.ndarray
+    newlines: np.ndarray
+    first_line: int
+
+    def line_of(self, token: np.ndarray) -> np.ndarray:
+        return np.searchsorted(self.newlines, self.offsets[token]) + self.first_line
+
+    def line(self, token: int) -> int:
+        return int(np.searchsorted(self.newlines, self.offsets[token])) + self.first_line
 
     @property
     def line_starts(self) -> np.ndarray:
         """Token indices that are the first token on their line."""
         if self.values.size == 0:
             return np.empty(0, dtype=np.int64)
+        line = self.line_of(np.arange(self.values.size))
         new_line = np.empty(self.values.size, dtype=bool)
         new_line[0] = True
-        np.not_equal(self.line_of_token[1:], self.line_of_token[:-1], out=new_line[1:])
+        np.not_equal(line[1:], line[:-1], out=new_line[1:])
         return np.flatnonzero(new_line)
 
 
@@ -105,9 +142,10 @@ def parse_touchstone(text: str, *, filename: str | None = None) -> TouchstoneDat
 
     Raises TouchstoneError(line, message) with a 1-based line number for every syntax problem.
     """
-    body = _COMMENT.sub("", text.replace("\r\n", "\n").replace("\r", "\n"))
-    lines = body.split("\n")
-    first = next((i for i, line in enumerate(lines) if line.strip()), None)
+    if "\r" in text:
+        text = text.replace("\r\n", "\n").replace("\r", "\n")
+    lines = _Text(_strip_comments(text))
+    first = next((i for i in range(len(lines)) if lines[i].strip()), None)
     if first is None:
         raise TouchstoneError(0, "the file holds no option line and no data")
     if lines[first].lstrip().startswith("["):
@@ -115,10 +153,25 @@ def parse_touchstone(text: str, *, filename: str | None = None) -> TouchstoneDat
     return _parse_version1(lines, first, _ports_from_filename(filename))
 
 
+def _strip_comments(text: str) -> str:
+    """Remove every '!' comment up to its line end, keeping the line breaks."""
+    pieces = []
+    position = 0
+    bang = text.find("!")
+    while bang >= 0:
+        pieces.append(text[position:bang])
+        position = text.find("\n", bang)
+        if position < 0:
+            position = len(text)
+        bang = text.find("!", position)
+    pieces.append(text[position:])
+    return "".join(pieces)
+
+
 # ---------------------------------------------------------------------------------------- v1.0
 
 
-def _parse_version1(lines: list[str], first: int, nports: int | None) -> TouchstoneData:
+def _parse_version1(lines: _Text, first: int, nports: int | None) -> TouchstoneData:
     option_line = lines[first].strip()
     if not option_line.startswith("#"):
         raise TouchstoneError(
@@ -130,7 +183,7 @@ def _parse_version1(lines: list[str], first: int, nports: int | None) -> Touchst
         raise TouchstoneError(first + 1, "no network data after the option line")
     if nports is None:
         nports = _infer_ports(numbers)
-    _check_ports(nports, int(numbers.line_of_token[0]))
+    _check_ports(nports, numbers.line(0))
     record_length = 1 + 2 * nports * nports
     count = _count_records(
         numbers, record_length, noise_may_follow=nports == 2, layout=_v1_layout(nports)
@@ -158,7 +211,7 @@ def _infer_ports(numbers: _Numbers) -> int:
     """
     starts = numbers.line_starts
     counts = np.diff(np.append(starts, numbers.values.size))
-    first_line = int(numbers.line_of_token[0])
+    first_line = numbers.line(0)
     if counts[0] % 2 == 0:
         raise TouchstoneError(
             first_line, f"a frequency record needs the frequency and whole pairs, found {counts[0]}"
@@ -202,7 +255,7 @@ class _Header2:
     seen: dict[str, int] | None = None
 
 
-def _parse_version2(lines: list[str], first: int) -> TouchstoneData:
+def _parse_version2(lines: _Text, first: int) -> TouchstoneData:
     keyword, argument = _keyword(lines[first], first + 1)
     if keyword != "version":
         raise TouchstoneError(first + 1, "a Version 2.0 file must begin with [Version] 2.0")
@@ -214,7 +267,7 @@ def _parse_version2(lines: list[str], first: int) -> TouchstoneData:
     _require(header, network_line)
     assert header.nports is not None and header.frequencies is not None
     assert header.options is not None
-    stop = _next_keyword_line(lines, index + 1)
+    stop = lines.next_keyword_line(index + 1)
     numbers = _read_numbers(lines, index + 1, stop, version="2.0")
     pairs = _pairs_per_record(header.nports, header.matrix_format)
     record_length = 1 + 2 * pairs
@@ -236,7 +289,7 @@ def _parse_version2(lines: list[str], first: int) -> TouchstoneData:
     return _result(frequency, header.options.parameter, matrices, z0, "2.0")
 
 
-def _read_header2(lines: list[str], start: int, header: _Header2) -> int:
+def _read_header2(lines: _Text, start: int, header: _Header2) -> int:
     """Read keywords up to [Network Data]; return that line's index."""
     assert header.seen is not None
     index = start
@@ -338,7 +391,7 @@ def _require(header: _Header2, network_line: int) -> None:
         )
 
 
-def _read_tail2(lines: list[str], stop: int, header: _Header2) -> None:
+def _read_tail2(lines: _Text, stop: int, header: _Header2) -> None:
     """After the network data: optional [Noise Data] (skipped), then [End] and nothing else."""
     if stop >= len(lines):
         raise TouchstoneError(len(lines), "missing [End]")
@@ -346,7 +399,7 @@ def _read_tail2(lines: list[str], stop: int, header: _Header2) -> None:
     if keyword == "noise data":
         if header.noise_frequencies is None:
             raise TouchstoneError(stop + 1, "[Noise Data] without [Number of Noise Frequencies]")
-        stop = _next_keyword_line(lines, stop + 1)
+        stop = lines.next_keyword_line(stop + 1)
         if stop >= len(lines):
             raise TouchstoneError(len(lines), "missing [End]")
         keyword, argument = _keyword(lines[stop], stop + 1)
@@ -357,13 +410,6 @@ def _read_tail2(lines: list[str], stop: int, header: _Header2) -> None:
     for index in range(stop + 1, len(lines)):
         if lines[index].strip():
             raise TouchstoneError(index + 1, "text after [End]")
-
-
-def _next_keyword_line(lines: list[str], start: int) -> int:
-    for index in range(start, len(lines)):
-        if "[" in lines[index] and lines[index].lstrip().startswith("["):
-            return index
-    return len(lines)
 
 
 def _keyword(line: str, number: int) -> tuple[str, str]:
@@ -402,7 +448,7 @@ def _pairs_per_record(nports: int, matrix_format: MatrixFormat) -> int:
 
 
 def _check_record_count(
-    numbers: _Numbers, record_length: int, declared: int, end_line: int, lines: list[str]
+    numbers: _Numbers, record_length: int, declared: int, end_line: int, lines: _Text
 ) -> None:
     """Version 2.0: the network data must hold exactly [Number of Frequencies] records."""
     total = numbers.values.size
@@ -412,7 +458,7 @@ def _check_record_count(
         raise TouchstoneError(end_line, "no network data")
     full = _count_records(numbers, record_length, noise_may_follow=False, layout=None)
     if full > declared:
-        line = int(numbers.line_of_token[declared * record_length])
+        line = numbers.line(declared * record_length)
         raise TouchstoneError(line, f"more frequencies than [Number of Frequencies] {declared}")
     raise TouchstoneError(
         min(end_line, len(lines)),
@@ -490,24 +536,27 @@ def _port_references(resistance: tuple[float, ...], nports: int, line: int) -> n
 
 
 def _read_numbers(
-    lines: list[str], start: int, stop: int, *, version: Version, skip_options: bool = False
+    lines: _Text, start: int, stop: int, *, version: Version, skip_options: bool = False
 ) -> _Numbers:
-    """All numbers in lines[start:stop] (comments already removed) and the line of each.
+    """All numbers in lines[start:stop] (comments already removed).
 
     A later option line inside Version 1.0 data is ignored (read again with ``skip_options``).
     """
-    chunk = lines[start:stop]
+    begin, end = lines.offset(start), lines.offset(stop)
+    region = lines.body[begin:end]
+    raw = lines.raw[begin:end]
     if skip_options:
-        chunk = ["" if line.lstrip().startswith("#") else line for line in chunk]
-    region = "\n".join(chunk)
-    raw = np.frombuffer(region.encode("ascii", "replace"), dtype=np.uint8)
+        region = "\n".join("" if ln.lstrip().startswith("#") else ln for ln in region.split("\n"))
+        raw = np.frombuffer(region.encode("ascii", "replace"), dtype=np.uint8)
     values, offsets, bad = _scan_numbers(region, raw)
-    line_of_token = np.searchsorted(np.flatnonzero(raw == 10), offsets) + (start + 1)
+    first_nl, last_nl = np.searchsorted(lines.newlines, [begin, end])
+    newlines = lines.newlines[first_nl:last_nl] - begin
+    numbers = _Numbers(values=values, offsets=offsets, newlines=newlines, first_line=start + 1)
     if bad >= 0:
         token = region[offsets[bad] :].split(maxsplit=1)[0]
-        line = int(line_of_token[bad])
+        line = numbers.line(bad)
         if token.startswith("#"):
-            if version == "1.0":
+            if version == "1.0" and not skip_options:
                 return _read_numbers(lines, start, stop, version=version, skip_options=True)
             raise TouchstoneError(line, "an option line inside the network data")
         if token.startswith("[") and version == "1.0":
@@ -515,8 +564,8 @@ def _read_numbers(
         raise TouchstoneError(line, f"{token[:40]!r} is not a number")
     if values.size and not np.isfinite(values).all():
         first = int(np.flatnonzero(~np.isfinite(values))[0])
-        raise TouchstoneError(int(line_of_token[first]), "a number is out of floating-point range")
-    return _Numbers(values=values, line_of_token=line_of_token)
+        raise TouchstoneError(numbers.line(first), "a number is out of floating-point range")
+    return numbers
 
 
 def _count_records(
@@ -529,12 +578,11 @@ def _count_records(
     """
     total = numbers.values.size
     if total // record_length > MAX_FREQUENCIES + 1:
-        line = int(numbers.line_of_token[MAX_FREQUENCIES * record_length])
+        line = numbers.line(MAX_FREQUENCIES * record_length)
         raise TouchstoneError(line, f"more than {MAX_FREQUENCIES} frequencies")
-    line_starts = numbers.line_starts
     starts = np.arange(0, total, record_length)
-    position = np.searchsorted(line_starts, starts)
-    aligned = line_starts[np.minimum(position, line_starts.size - 1)] == starts
+    aligned = np.ones(starts.size, dtype=bool)
+    aligned[1:] = numbers.line_of(starts[1:]) != numbers.line_of(starts[1:] - 1)
     frequencies = numbers.values[starts]
     not_increasing = np.zeros(starts.size, dtype=bool)
     not_increasing[1:] = frequencies[1:] <= frequencies[:-1]
@@ -545,7 +593,7 @@ def _count_records(
         count = starts.size
     else:
         k = int(trouble[0])
-        line = int(numbers.line_of_token[starts[k]])
+        line = numbers.line(starts[k])
         if not aligned[k]:
             raise _count_error(numbers, int(starts[k - 1]), record_length, layout)
         if frequencies[k] < 0:
@@ -554,7 +602,7 @@ def _count_records(
             raise TouchstoneError(line, "frequencies must increase from one record to the next")
         count = k
     if count > MAX_FREQUENCIES:
-        line = int(numbers.line_of_token[MAX_FREQUENCIES * record_length])
+        line = numbers.line(MAX_FREQUENCIES * record_length)
         raise TouchstoneError(line, f"more than {MAX_FREQUENCIES} frequencies")
     return count
 
@@ -572,11 +620,11 @@ def _count_error(
                 at = min(first + offset, counts.size - 1)
                 found = int(counts[at]) if first + offset < counts.size else 0
                 return TouchstoneError(
-                    int(numbers.line_of_token[line_starts[at]]),
+                    numbers.line(line_starts[at]),
                     f"expected {expected} numbers on this line, found {found}",
                 )
     return TouchstoneError(
-        int(numbers.line_of_token[record_start]),
+        numbers.line(record_start),
         f"the frequency record starting here does not hold {record_length} numbers "
         f"(frequency + {record_length - 1})",
     )
@@ -585,10 +633,10 @@ def _count_error(
 def _check_increasing(numbers: _Numbers, frequencies: np.ndarray, record_length: int) -> None:
     bad = np.flatnonzero(np.diff(frequencies) <= 0)
     if bad.size:
-        line = int(numbers.line_of_token[(int(bad[0]) + 1) * record_length])
+        line = numbers.line((int(bad[0]) + 1) * record_length)
         raise TouchstoneError(line, "frequencies must increase from one record to the next")
     if frequencies.size and frequencies[0] < 0:
-        raise TouchstoneError(int(numbers.line_of_token[0]), "negative frequency")
+        raise TouchstoneError(numbers.line(0), "negative frequency")
 
 
 def _to_complex(pairs: np.ndarray, data_format: DataFormat) -> np.ndarray:
@@ -647,10 +695,10 @@ def _scan_numbers(region: str, raw: np.ndarray) -> tuple[np.ndarray, np.ndarray,
     ``[+-](digits[.digits] | .digits)[(e|E)[+-]digits]``. The mantissa digits are accumulated
     column by column over a (width, tokens) byte grid, then scaled by 10**exponent.
     """
-    is_token = (raw > 32).view(np.int8)
-    edges = np.diff(is_token, prepend=np.int8(0), append=np.int8(0))
-    starts = np.flatnonzero(edges == 1)
-    ends = np.flatnonzero(edges == -1)
+    is_token = np.zeros(raw.size + 2, dtype=np.int8)
+    np.greater(raw, 32, out=is_token[1:-1].view(bool))
+    edges = np.flatnonzero(is_token[1:] != is_token[:-1])
+    starts, ends = edges[0::2], edges[1::2]
     count = starts.size
     if count == 0:
         return np.empty(0), starts, -1
@@ -681,8 +729,9 @@ def _scan_numbers(region: str, raw: np.ndarray) -> tuple[np.ndarray, np.ndarray,
     in_mantissa = is_digit[:mantissa_end] & (
         column[:mantissa_end] <= np.minimum(e_pos, 255).astype(u8)
     )
-    multiplier = np.where(in_mantissa, u8(10), u8(1))
-    addend = digit_value[:mantissa_end] * in_mantissa
+    multiplier = in_mantissa.view(u8) * u8(9)
+    multiplier += u8(1)
+    addend = digit_value[:mantissa_end] * in_mantissa.view(u8)
     mantissa = np.zeros(count)
     for j in range(mantissa_end):
         np.multiply(mantissa, multiplier[j], out=mantissa)
@@ -704,7 +753,7 @@ def _scan_numbers(region: str, raw: np.ndarray) -> tuple[np.ndarray, np.ndarray,
     scale = _POW10[np.minimum(np.abs(exponent10), 308)]
     with np.errstate(over="ignore"):
         values = np.where(exponent10 >= 0, mantissa * scale, mantissa / scale)
-    np.negative(values, out=values, where=grid[0] == 45)
+    values *= 1.0 - 2.0 * (grid[0] == 45)
 
     for k in np.flatnonzero(bad):
         token = region[starts[k] : ends[k]]
