@@ -1,0 +1,187 @@
+"""The engine on circuits whose NDF, natural frequencies and Kurokawa points have closed forms.
+
+Port data comes from the lumped MNA simulator (workers.lumped); every expected value below is a
+formula, not a number read off the engine.
+"""
+
+from __future__ import annotations
+
+import numpy as np
+import pytest
+
+from tests.engine_support import PortSpec, engine_request, grid_for
+from workers.engine import analyse, run_check
+from workers.lumped import VCCS, Capacitor, Circuit, Inductor, Resistor
+
+# ------------------------------------------------------------------------------------------
+# Parallel RLC with a negative conductance (a transconductance from the node to itself)
+# ------------------------------------------------------------------------------------------
+
+L_H, C_F, R_OHM = 1e-9, 1e-12, 100.0  # f0 = 1/(2π√(LC)) ≈ 5.03 GHz, √(L/C) ≈ 31.6 Ω
+
+
+def negative_conductance_tank(gm_s: float) -> Circuit:
+    """R, L, C from node a to ground and a VCCS controlled by v_a whose current leaves node a,
+    i.e. a conductance gm_s (negative gm_s: a negative conductance)."""
+    return Circuit((
+        Resistor("R", "a", "0", R_OHM),
+        Inductor("L", "a", "0", L_H),
+        Capacitor("C", "a", "0", C_F),
+        VCCS("Gneg", ("a", "0"), ("a", "0"), gm_s),
+    ))
+
+
+def tank_natural_frequencies(g_net: float) -> np.ndarray:
+    # Closed form: s² + (G/C)s + 1/(LC) = 0 → s = −G/2C ± j√(1/LC − (G/2C)²) (second-order
+    # characteristic equation of the parallel RLC; common practice).
+    alpha = -g_net / (2 * C_F)
+    wd = np.sqrt(1 / (L_H * C_F) - alpha**2)
+    return np.array([alpha + 1j * wd, alpha - 1j * wd])
+
+
+TANK_CASES = [  # (gm of the device, expected right-half-plane count)
+    pytest.param(-0.012, 2, id="net -2 mS: growing pair"),
+    pytest.param(-0.0105, 2, id="net -0.5 mS: slowly growing pair"),
+    pytest.param(-0.008, 0, id="net +2 mS: damped pair"),
+    pytest.param(-0.002, 0, id="net +8 mS: well damped"),
+]
+
+
+def tank_request(gm_s: float):
+    g_net = 1 / R_OHM + gm_s
+    poles = np.concatenate([tank_natural_frequencies(g_net), tank_natural_frequencies(1 / R_OHM)])
+    f = grid_for(poles)
+    return engine_request(negative_conductance_tank(gm_s), [PortSpec("a", "a", "probe")], f)
+
+
+@pytest.mark.parametrize(("gm_s", "expected_count"), TANK_CASES)
+def test_tank_ndf_equals_closed_form(gm_s, expected_count):
+    # Closed form: with one node, NDF = Y_on/Y_off = (G + sC + 1/sL)/(1/R + sC + 1/sL),
+    # G = 1/R + gm (parallel admittances add; common practice).
+    request = tank_request(gm_s)
+    s = 2j * np.pi * request.frequency_hz
+    expected = (1 / R_OHM + gm_s + s * C_F + 1 / (s * L_H)) / (1 / R_OHM + s * C_F + 1 / (s * L_H))
+    np.testing.assert_allclose(analyse(request).loops.ndf, expected, rtol=1e-9)
+
+
+@pytest.mark.parametrize(("gm_s", "expected_count"), TANK_CASES)
+def test_tank_count_is_right_half_plane_pair(gm_s, expected_count):
+    # Closed form: the pair −G/2C ± jω_d lies in the right half-plane exactly when the net
+    # conductance G = 1/R + gm is negative (tank_natural_frequencies above).
+    assert int(np.sum(tank_natural_frequencies(1 / R_OHM + gm_s).real > 0)) == expected_count
+    verdict = run_check(tank_request(gm_s))
+    assert verdict.unstable_count == expected_count
+    assert verdict.verdict == ("unstable" if expected_count else "stable")
+
+
+@pytest.mark.parametrize(("gm_s", "expected_count"), TANK_CASES)
+def test_tank_kurokawa_crossing(gm_s, expected_count):
+    # Closed form: Y_a(ω) = G + j(ωC − 1/ωL): Im Y_a = 0 at ω0 = 1/√(LC) with dIm Y/dω = 2C > 0
+    # and Re Y = G there (Kurokawa, Bell Syst. Tech. J. 48(6), 1969: a start point when G ≤ 0);
+    # his first-order growth rate −Re Y/(dIm Y/dω) = −G/2C is the closed-form Re s.
+    request = tank_request(gm_s)
+    g_net = 1 / R_OHM + gm_s
+    f0 = 1 / (2 * np.pi * np.sqrt(L_H * C_F))
+    crossings = analyse(request).nodes.crossings
+    if g_net > 0:
+        assert crossings == ()
+        return
+    assert len(crossings) == 1
+    c = crossings[0]
+    # Im Y is interpolated linearly between the samples f1 < f0 < f2: the secant slope of
+    # ωC − 1/ωL is C + 1/(ω1ω2L), within ln(f2/f1)/2 of the tangent 2C (relative); the
+    # interpolated zero is within O(ln(f2/f1)²) of f0.
+    f = request.frequency_hz
+    i = int(np.searchsorted(f, f0))
+    step = np.log(f[i] / f[i - 1])
+    assert c.frequency_hz == pytest.approx(f0, rel=step**2)
+    assert c.re_admittance_s == pytest.approx(g_net, rel=1e-9)
+    assert c.im_slope_s_per_hz == pytest.approx(2 * C_F * 2 * np.pi, rel=step / 2)
+    assert c.growth_estimate_per_s == pytest.approx(-g_net / (2 * C_F), rel=step / 2)
+
+
+# ------------------------------------------------------------------------------------------
+# Phase-shift oscillator: inverting gain −A driving three RC sections (series R, shunt C)
+# ------------------------------------------------------------------------------------------
+
+R_LADDER, C_LADDER = 1e3, 1e-9
+EPS = 1e-3  # R_L / R: the gain stage is a VCCS gm into R_L = EPS·R, voltage gain A = gm·R_L
+
+
+def phase_shift_oscillator(gain: float) -> Circuit:
+    r_load = EPS * R_LADDER
+    return Circuit((
+        Resistor("RL", "x", "0", r_load),
+        VCCS("A", ("n3", "0"), ("x", "0"), gain / r_load),
+        Resistor("R1", "x", "n1", R_LADDER),
+        Capacitor("C1", "n1", "0", C_LADDER),
+        Resistor("R2", "n1", "n2", R_LADDER),
+        Capacitor("C2", "n2", "0", C_LADDER),
+        Resistor("R3", "n2", "n3", R_LADDER),
+        Capacitor("C3", "n3", "0", C_LADDER),
+    ))
+
+
+def ladder_denominator(x: np.ndarray, eps: float) -> np.ndarray:
+    """v_x,open / v_3 of the ladder driven through R_L = eps·R (Thevenin form of gm into R_L).
+
+    ABCD cascade of [[1 + x·r_k, r_k], [x, 1]] sections, r = (1 + eps, 1, 1), x = sRC (Pozar,
+    Microwave Engineering, 4th ed., sec. 4.4, multiplied out by hand):
+    d(x) = 1 + (6 + 3ε)x + (5 + 4ε)x² + (1 + ε)x³; at ε = 0 the textbook 1 + 6x + 5x² + x³.
+    """
+    return 1 + (6 + 3 * eps) * x + (5 + 4 * eps) * x**2 + (1 + eps) * x**3
+
+
+def critical_gain(eps: float) -> float:
+    # Routh–Hurwitz on (1 + A) + (6 + 3ε)x + (5 + 4ε)x² + (1 + ε)x³: a₂a₁ = a₃a₀ at the boundary,
+    # so A = (6 + 3ε)(5 + 4ε)/(1 + ε) − 1 = 29 + 9ε + O(ε²). At ε = 0: A = 29 at ω = √6/RC
+    # (the classic phase-shift oscillator, e.g. Sedra & Smith, Microelectronic Circuits; quoted
+    # from memory). With ε = 1e-3 the critical gain moves up by 0.009.
+    return (6 + 3 * eps) * (5 + 4 * eps) / (1 + eps) - 1
+
+
+def phase_shift_request(gain: float):
+    # natural frequencies: roots of d(x) + A = 0 (x = sRC), and of d(x) = 0 with the gain off
+    scale = 1 / (R_LADDER * C_LADDER)
+    on = np.roots([1 + EPS, 5 + 4 * EPS, 6 + 3 * EPS, 1 + gain]) * scale
+    off = np.roots([1 + EPS, 5 + 4 * EPS, 6 + 3 * EPS, 1]) * scale
+    f = grid_for(np.concatenate([on, off]))
+    ports = [PortSpec("amp_out", "x", "probe"), PortSpec("amp_in", "n3", "probe")]
+    return engine_request(phase_shift_oscillator(gain), ports, f)
+
+
+def test_critical_gain_is_textbook_value_at_zero_load():
+    # Sedra & Smith (from memory): A = 29 for the unloaded ladder; the formula must reproduce it.
+    assert critical_gain(0.0) == pytest.approx(29.0, abs=1e-12)
+    assert critical_gain(EPS) - 29 == pytest.approx(9 * EPS, rel=1e-2)
+
+
+@pytest.mark.parametrize("gain", [10.0, 28.0, 30.0, 60.0])
+def test_phase_shift_ndf_equals_one_plus_loop_gain(gain):
+    # Closed form: one device, so NDF = 1 + T with T = A / d(x) (matrix determinant lemma; the
+    # return ratio of the gain stage is A times the ladder's transfer v_3/v_x,open).
+    request = phase_shift_request(gain)
+    x = 2j * np.pi * request.frequency_hz * R_LADDER * C_LADDER
+    expected = 1 + gain / ladder_denominator(x, EPS)
+    np.testing.assert_allclose(analyse(request).loops.ndf, expected, rtol=1e-9, atol=1e-12)
+
+
+@pytest.mark.parametrize(
+    ("offset", "expected_count"),
+    [(-19.0, 0), (-1.0, 0), (-0.2, 0), (0.2, 2), (1.0, 2), (31.0, 2)],
+)
+def test_phase_shift_encirclements_below_and_above_critical_gain(offset, expected_count):
+    # 0 encirclements below the critical gain, 2 (one growing pair) above (Routh–Hurwitz on the
+    # cubic above: two sign changes in the first column when A exceeds the critical gain).
+    verdict = run_check(phase_shift_request(critical_gain(EPS) + offset))
+    assert verdict.verdict == ("unstable" if expected_count else "stable")
+    assert verdict.unstable_count == expected_count
+
+
+def test_phase_shift_mode_frequency_near_sqrt6_over_rc():
+    # Just above the critical gain the growing pair sits at ω ≈ √6/RC (Sedra & Smith, from
+    # memory); the engine's sample estimate of the mode frequency must be within 5 %.
+    verdict = run_check(phase_shift_request(critical_gain(EPS) + 0.5))
+    assert len(verdict.modes) == 1
+    f0 = np.sqrt(6) / (2 * np.pi * R_LADDER * C_LADDER)
+    assert verdict.modes[0].frequency_hz == pytest.approx(f0, rel=0.05)
