@@ -15,6 +15,8 @@ import pytest
 from service.store.redis_store import RedisStore
 from service.store.sqlite_store import SqliteStore
 
+pytest_plugins = ["tests.api_fixtures"]
+
 TEST_REDIS_URL = os.environ.get("BALLAST_TEST_REDIS_URL", "redis://127.0.0.1:6379/13")
 
 
@@ -56,3 +58,4 @@ def store(request: pytest.FixtureRequest, tmp_path, clock: FakeClock) -> Iterato
         s.close()
     else:
         yield from _redis_store(clock)
+

@@ -1,0 +1,63 @@
+"""WSGI middleware that caps request bodies before Flask reads them.
+
+A ``Content-Length`` above the cap answers 413 without reading. A chunked body is read here, up to
+the cap plus one byte, and answered 413 when longer: Werkzeug under gunicorn would otherwise cut a
+chunked body at ``MAX_CONTENT_LENGTH`` without an error and parse the truncated text. A chunked
+body on a server that does not de-chunk (no ``wsgi.input_terminated``) answers 411. What passes
+is handed on as an in-memory body with an exact ``Content-Length``.
+"""
+
+from __future__ import annotations
+
+import io
+from collections.abc import Callable, Iterable
+from typing import Any
+
+from service.problems import problem_response
+
+_READ_SIZE = 1 << 16
+
+
+class BodyLimitMiddleware:
+    def __init__(self, app: Callable[..., Iterable[bytes]], limit: int) -> None:
+        self.app = app
+        self.limit = int(limit)
+
+    def _refuse(self, environ: dict[str, Any], start_response: Callable[..., Any],
+                status: int, detail: str) -> Iterable[bytes]:
+        response = problem_response(status, detail, kind="body-size" if status == 413 else None)
+        response.headers["Connection"] = "close"
+        return response(environ, start_response)
+
+    def __call__(self, environ: dict[str, Any], start_response: Callable[..., Any]
+                 ) -> Iterable[bytes]:
+        length = environ.get("CONTENT_LENGTH", "").strip()
+        chunked = "chunked" in environ.get("HTTP_TRANSFER_ENCODING", "").lower()
+        if length and not chunked:
+            if not length.isdigit():
+                return self._refuse(environ, start_response, 400, "invalid Content-Length")
+            if int(length) > self.limit:
+                return self._refuse(environ, start_response, 413,
+                                    f"the request body exceeds the limit of {self.limit} bytes")
+            return self.app(environ, start_response)
+        if not chunked:
+            return self.app(environ, start_response)
+        if not environ.get("wsgi.input_terminated"):
+            return self._refuse(environ, start_response, 411,
+                                "chunked bodies are not accepted here: send Content-Length")
+        stream = environ["wsgi.input"]
+        body = bytearray()
+        while len(body) <= self.limit:
+            piece = stream.read(min(_READ_SIZE, self.limit + 1 - len(body)))
+            if not piece:
+                break
+            body += piece
+        if len(body) > self.limit:
+            return self._refuse(environ, start_response, 413,
+                                f"the request body exceeds the limit of {self.limit} bytes")
+        environ = dict(environ)
+        environ["wsgi.input"] = io.BytesIO(bytes(body))
+        environ["CONTENT_LENGTH"] = str(len(body))
+        environ.pop("HTTP_TRANSFER_ENCODING", None)
+        environ.pop("wsgi.input_terminated", None)
+        return self.app(environ, start_response)

@@ -1,0 +1,105 @@
+"""/v1/checks: submit one check, read its state and verdict, cancel it."""
+
+from __future__ import annotations
+
+from typing import Any
+
+from flask import current_app, url_for
+from flask_smorest import Blueprint
+from marshmallow import ValidationError
+
+from service.api.common import (
+    IDEMPOTENCY_HEADER,
+    accept_once,
+    check_view,
+    idempotency_key,
+    json_object_body,
+    store_checks,
+    validation_problem,
+)
+from service.api.tenancy import authenticate, store, tenant
+from service.problems import abort_problem
+from service.schemas.api import CheckAcceptedSchema, CheckSchema
+from service.schemas.request import CheckRequestSchema
+from service.store.base import NewCheck
+
+blp = Blueprint("checks", __name__, url_prefix="/v1/checks",
+                description="Single stability checks")
+blp.before_request(authenticate)
+
+IDEMPOTENCY_PARAMETER = {
+    "in": "header", "name": IDEMPOTENCY_HEADER, "required": False,
+    "schema": {"type": "string", "minLength": 1, "maxLength": 255},
+    "description": "a retry with the same key and body returns the first response",
+}
+ACCEPTED_HEADERS = {
+    "Location": {"schema": {"type": "string"}, "description": "where to poll"},
+    "Retry-After": {"schema": {"type": "integer"}, "description": "seconds before polling"},
+}
+
+
+def accepted(check_id: str) -> tuple[dict[str, Any], int, dict[str, str]]:
+    location = url_for("checks.get_check", check_id=check_id)
+    return (
+        {"id": check_id, "status": "queued", "location": location},
+        202,
+        {"Location": location,
+         "Retry-After": str(current_app.config["BALLAST_RETRY_AFTER_S"])},
+    )
+
+
+def validate_request(body: dict[str, Any]) -> None:
+    try:
+        CheckRequestSchema().load(body)
+    except ValidationError as exc:
+        validation_problem(exc)
+
+
+@blp.route("", methods=["POST"])
+@blp.doc(
+    operationId="submitCheck",
+    parameters=[IDEMPOTENCY_PARAMETER],
+    requestBody={"required": True,
+                 "content": {"application/json": {"schema": CheckRequestSchema}}},
+)
+@blp.response(202, CheckAcceptedSchema, headers=ACCEPTED_HEADERS,
+              description="Accepted: the check is queued")
+def submit_check():
+    """Queue one check request."""
+    body = json_object_body()
+    validate_request(body)
+
+    def create() -> str:
+        _, (check_id,) = store_checks([NewCheck(body)])
+        return check_id
+
+    check_id = accept_once(idempotency_key(), body, create, replay=lambda existing: existing)
+    return accepted(check_id)
+
+
+def _found(check_id: str):
+    record = store().get_check(tenant(), check_id)
+    if record is None:
+        abort_problem(404, f"no check {check_id!r}", kind="not-found")
+    return record
+
+
+@blp.route("/<string:check_id>", methods=["GET"])
+@blp.doc(operationId="getCheck")
+@blp.response(200, CheckSchema)
+def get_check(check_id: str):
+    """A check's status, timestamps, attempts, and its verdict when done."""
+    return check_view(_found(check_id))
+
+
+@blp.route("/<string:check_id>", methods=["DELETE"])
+@blp.doc(operationId="cancelCheck")
+@blp.response(200, CheckSchema, description="The check after cancellation (a finished check "
+                                            "is left as it was)")
+def cancel_check(check_id: str):
+    """Cancel a check that has not finished."""
+    _found(check_id)
+    record = store().cancel_check(tenant(), check_id)
+    if record is None:
+        abort_problem(404, f"no check {check_id!r}", kind="not-found")
+    return check_view(record)

@@ -1,0 +1,135 @@
+"""Helpers shared by the endpoints: JSON bodies, validation errors, idempotency, views."""
+
+from __future__ import annotations
+
+import json
+from collections.abc import Callable
+from datetime import UTC, datetime
+from typing import Any
+
+from flask import current_app, request
+from marshmallow import ValidationError
+
+from service.api.tenancy import retry_after, store, tenant
+from service.config import tenant_limit
+from service.problems import abort_problem, field_errors
+from service.schemas.errors import flatten_errors
+from service.store.base import CheckRecord, NewCheck, QuotaExceededError, content_hash
+
+IDEMPOTENCY_HEADER = "Idempotency-Key"
+MAX_IDEMPOTENCY_KEY = 255
+
+
+def iso(ts: float | None) -> str | None:
+    """RFC 3339 UTC timestamp with milliseconds."""
+    if ts is None:
+        return None
+    text = datetime.fromtimestamp(ts, UTC).isoformat(timespec="milliseconds")
+    return text.replace("+00:00", "Z")
+
+
+def _reject_constant(name: str) -> Any:
+    raise ValueError(f"{name} is not a JSON number")
+
+
+def parse_json(data: bytes | str, what: str = "the request body") -> Any:
+    try:
+        return json.loads(data, parse_constant=_reject_constant)
+    except (ValueError, RecursionError) as exc:  # JSONDecodeError and UnicodeDecodeError too
+        abort_problem(400, f"{what} is not valid JSON: {exc}", kind="malformed-json")
+
+
+def json_object_body() -> dict[str, Any]:
+    """The request's JSON object, or a problem: 415 (not JSON), 400 (malformed), 422 (not an
+    object)."""
+    if not request.mimetype or not (
+        request.mimetype == "application/json" or request.mimetype.endswith("+json")
+    ):
+        abort_problem(415, "send the body as application/json", kind="unsupported-media-type")
+    body = parse_json(request.get_data(cache=False))
+    if not isinstance(body, dict):
+        abort_problem(422, "the request body must be a JSON object", kind="invalid-request",
+                      errors=field_errors([("body", "must be a JSON object")]))
+    return body
+
+
+def validation_problem(exc: ValidationError, prefix: str = "", detail: str | None = None
+                       ) -> None:
+    pairs = flatten_errors(exc.messages, prefix)
+    first = f"{pairs[0][0]}: {pairs[0][1]}" if pairs else "invalid request"
+    abort_problem(422, detail or first, kind="invalid-request", errors=field_errors(pairs))
+
+
+def idempotency_key() -> str | None:
+    key = request.headers.get(IDEMPOTENCY_HEADER)
+    if key is None:
+        return None
+    key = key.strip()
+    if len(key) >= 2 and key[0] == key[-1] == '"':  # structured-field string form
+        key = key[1:-1]
+    if not key or len(key) > MAX_IDEMPOTENCY_KEY or not key.isprintable():
+        abort_problem(400, f"{IDEMPOTENCY_HEADER} must be 1-{MAX_IDEMPOTENCY_KEY} printable "
+                      "characters", kind="invalid-idempotency-key")
+    return key
+
+
+def accept_once(key: str | None, body: Any, create: Callable[[], str],
+                replay: Callable[[str], Any]) -> Any:
+    """Run ``create`` (which stores and returns an id) at most once per idempotency key.
+
+    Same key and same body → ``replay(id)``; same key, other body → 422; the first request with
+    that key still being accepted → 409.
+    """
+    if key is None:
+        return create_with_quota(create)
+    cfg = current_app.config
+    state, existing = store().idempotency_begin(
+        tenant(), key, content_hash(body), float(cfg["BALLAST_IDEMPOTENCY_PENDING_S"]))
+    if state == "done" and existing is not None:
+        return replay(existing)
+    if state == "mismatch":
+        abort_problem(422, f"this {IDEMPOTENCY_HEADER} was already used with another body",
+                      kind="idempotency-key-reused")
+    if state == "pending":
+        abort_problem(409, f"a request with this {IDEMPOTENCY_HEADER} is still being accepted",
+                      kind="idempotency-key-in-use", headers={"Retry-After": "1"})
+    try:
+        created = create_with_quota(create)
+    except BaseException:
+        store().idempotency_release(tenant(), key)
+        raise
+    store().idempotency_finish(tenant(), key, created)
+    return created
+
+
+def create_with_quota(create: Callable[[], str]) -> str:
+    try:
+        return create()
+    except QuotaExceededError as exc:
+        abort_problem(429, f"too many unfinished checks: {exc}", kind="too-many-unfinished",
+                      headers={"Retry-After": retry_after(30)})
+
+
+def store_checks(checks: list[NewCheck], **kwargs: Any) -> tuple[str | None, list[str]]:
+    """Store for the current tenant under its unfinished-checks quota, then enqueue the ids."""
+    limit = int(tenant_limit(current_app.config, tenant(), "max_unfinished"))
+    batch_id, ids = store().create_checks(tenant(), checks, max_unfinished=limit, **kwargs)
+    enqueue = current_app.extensions["ballast"]["enqueue"]
+    enqueue(ids)
+    return batch_id, ids
+
+
+def check_view(record: CheckRecord) -> dict[str, Any]:
+    return {
+        "id": record.id,
+        "status": record.status,
+        "batch_id": record.batch_id,
+        "label": record.label,
+        "attempts": record.attempts,
+        "created_at": iso(record.created_at),
+        "updated_at": iso(record.updated_at),
+        "started_at": iso(record.started_at),
+        "finished_at": iso(record.finished_at),
+        "verdict": record.verdict if record.status == "done" else None,
+        "reason": record.error if record.status == "failed" else None,
+    }

@@ -1,0 +1,103 @@
+"""The WSGI application: ``create_app(config)``; gunicorn runs ``service.app:create_app()``."""
+
+from __future__ import annotations
+
+import logging
+from collections.abc import Callable
+from typing import Any
+
+from flask import Flask
+
+from service.api import ProblemApi, batches, checks, health
+from service.api.body_limit import BodyLimitMiddleware
+from service.config import app_config
+from service.problems import PROBLEM_CONTENT_TYPE
+from service.store.base import Store
+
+log = logging.getLogger("ballast.api")
+
+API_TITLE = "ballast"
+API_VERSION = "1"
+BLUEPRINTS = (health.blp, checks.blp, batches.blp)
+
+_SPEC_OPTIONS = {
+    "info": {
+        "description": "Stability verdicts for RF/microwave amplifiers from multi-port data. "
+                       "Errors are RFC 9457 problem details (" + PROBLEM_CONTENT_TYPE + ").",
+        "license": {"name": "Apache-2.0", "identifier": "Apache-2.0"},
+    },
+    "components": {"securitySchemes": {
+        "bearer": {"type": "http", "scheme": "bearer",
+                   "description": "an API token (blst_…) made with `ballast token create`"},
+    }},
+    "security": [{"bearer": []}],
+}
+
+
+def _open_store(config: dict[str, Any]) -> Store:
+    from service.store import open_store
+
+    url = config.get("BALLAST_STORE_URL")
+    if not url:
+        from service.runtime_config import load_config
+
+        url = load_config().store_url
+    return open_store(url, retention_s=float(config["BALLAST_RETENTION_S"]),
+                      prefix=config["BALLAST_STORE_PREFIX"])
+
+
+def _queue_functions(config: dict[str, Any]) -> dict[str, Callable[..., Any]]:
+    functions = {
+        "enqueue": config.get("BALLAST_ENQUEUE"),
+        "workers_alive": config.get("BALLAST_WORKERS_ALIVE"),
+        "queue_reachable": config.get("BALLAST_QUEUE_REACHABLE"),
+    }
+    if any(f is None for f in functions.values()):
+        from service import queue
+
+        functions["enqueue"] = functions["enqueue"] or queue.enqueue
+        functions["workers_alive"] = functions["workers_alive"] or queue.workers_alive
+        # a queue module without its own broker probe: a live worker implies a reachable broker
+        functions["queue_reachable"] = functions["queue_reachable"] or getattr(
+            queue, "broker_reachable", functions["workers_alive"])
+    return functions  # type: ignore[return-value]
+
+
+def _safe_enqueue(enqueue: Callable[[list[str]], None]) -> Callable[[list[str]], None]:
+    def publish(check_ids: list[str]) -> None:
+        try:
+            enqueue(check_ids)
+        except Exception as exc:  # stored as queued already: the reconciler will publish them
+            log.warning("enqueue of %d check(s) failed: %s", len(check_ids), exc)
+
+    return publish
+
+
+def create_app(config: dict[str, Any] | None = None) -> Flask:
+    """The API with its store and queue; ``config`` overrides ``service.config`` defaults."""
+    app = Flask("ballast")
+    app.config.update(app_config(config))
+    app.config.update({
+        "API_TITLE": API_TITLE,
+        "API_VERSION": API_VERSION,
+        "OPENAPI_VERSION": "3.1.0",
+        "API_SPEC_OPTIONS": _SPEC_OPTIONS,
+        "MAX_CONTENT_LENGTH": app.config["BALLAST_MAX_BODY_BYTES"],
+        "MAX_FORM_MEMORY_SIZE": app.config["BALLAST_MAX_BODY_BYTES"],
+        "MAX_FORM_PARTS": int(app.config["BALLAST_MAX_VARIANTS"]) + 16,
+    })
+    app.json.sort_keys = False  # the verdict goes out exactly as the engine ordered it
+    store = app.config["BALLAST_STORE"] or _open_store(app.config)
+    functions = _queue_functions(app.config)
+    app.extensions["ballast"] = {
+        "store": store,
+        "enqueue": _safe_enqueue(functions["enqueue"]),
+        "workers_alive": functions["workers_alive"],
+        "queue_reachable": functions["queue_reachable"],
+    }
+    api = ProblemApi(app)
+    for blueprint in BLUEPRINTS:
+        api.register_blueprint(blueprint)
+    app.wsgi_app = BodyLimitMiddleware(  # type: ignore[method-assign]
+        app.wsgi_app, int(app.config["BALLAST_MAX_BODY_BYTES"]))
+    return app

@@ -1,0 +1,75 @@
+"""``ballast token create|list|revoke``: API tokens for tenants.
+
+A token is printed once, at creation; the store keeps only its SHA-256 digest. ``list`` shows each
+token's id (the first 12 hex digits of the digest), its tenant and creation time; ``revoke`` takes
+the token itself or that id.
+"""
+
+from __future__ import annotations
+
+import argparse
+import sys
+from datetime import UTC, datetime
+
+from service.auth import create_token, hash_token, looks_like_token
+from service.store.base import Store
+
+ID_LENGTH = 12
+
+
+def _store(args: argparse.Namespace) -> Store:
+    from service.store import open_store
+
+    url = args.store
+    if not url:
+        from service.runtime_config import load_config
+
+        url = load_config().store_url
+    return open_store(url)
+
+
+def _create(args: argparse.Namespace) -> int:
+    try:
+        token = create_token(_store(args), args.tenant)
+    except ValueError as exc:
+        print(f"ballast token: {exc}", file=sys.stderr)
+        return 3
+    print(token)
+    return 0
+
+
+def _list(args: argparse.Namespace) -> int:
+    for record in _store(args).list_tokens():
+        created = datetime.fromtimestamp(record.created_at, UTC).strftime("%Y-%m-%dT%H:%M:%SZ")
+        print(f"{record.token_hash[:ID_LENGTH]}  {record.tenant}  {created}")
+    return 0
+
+
+def _revoke(args: argparse.Namespace) -> int:
+    store = _store(args)
+    given = args.token.strip()
+    if looks_like_token(given):
+        digests = [hash_token(given)]
+    else:
+        digests = [t.token_hash for t in store.list_tokens()
+                   if len(given) >= 6 and t.token_hash.startswith(given.lower())]
+    if len(digests) != 1 or not store.revoke_token(digests[0]):
+        what = "matches several tokens" if len(digests) > 1 else "is not a known token or id"
+        print(f"ballast token revoke: {given[:ID_LENGTH]}… {what}", file=sys.stderr)
+        return 3
+    print(f"revoked {digests[0][:ID_LENGTH]}")
+    return 0
+
+
+def register(subparsers: argparse._SubParsersAction) -> None:
+    parser = subparsers.add_parser("token", help="create, list or revoke API tokens")
+    parser.add_argument("--store", help="store URL (default: the service's configured store)")
+    actions = parser.add_subparsers(dest="token_action", required=True, metavar="ACTION")
+    create = actions.add_parser("create", help="make a token for a tenant and print it once")
+    create.add_argument("--tenant", required=True, help="tenant name (letters, digits, . _ -)")
+    create.set_defaults(func=_create)
+    listing = actions.add_parser("list", help="list tokens (id, tenant, created)")
+    listing.set_defaults(func=_list)
+    revoke = actions.add_parser("revoke", help="revoke a token (give the token or its id)")
+    revoke.add_argument("token", help="the token, or the id shown by 'ballast token list'")
+    revoke.set_defaults(func=_revoke)

@@ -1,0 +1,75 @@
+"""The HTTP API's settings: defaults, overridable by ``create_app(config)`` or the environment.
+
+Keys (all upper case, in the Flask config):
+
+- ``BALLAST_STORE``: a ``Store`` instance; else ``BALLAST_STORE_URL`` is opened (default: the
+  queue's runtime configuration, i.e. Redis when ``BALLAST_REDIS_URL`` is set, else SQLite).
+- ``BALLAST_ENQUEUE`` (``list[str] -> None``), ``BALLAST_WORKERS_ALIVE`` and
+  ``BALLAST_QUEUE_REACHABLE`` (``() -> bool``): the queue's functions, injectable for tests.
+- ``BALLAST_MAX_BODY_BYTES``: largest request body accepted (413 above, chunked bodies too).
+- ``BALLAST_MAX_VARIANTS``: largest batch.
+- ``BALLAST_MAX_UNFINISHED``: queued + running checks per tenant (429 above).
+- ``BALLAST_RATE_LIMIT`` requests per ``BALLAST_RATE_WINDOW_S`` seconds per tenant (429 above).
+- ``BALLAST_TENANT_LIMITS``: ``{tenant: {"max_unfinished": n, "rate_limit": n}}`` overrides.
+- ``BALLAST_RETENTION_S``: how long checks and batches are kept (default 7 days).
+- ``BALLAST_RETRY_AFTER_S``: the polling interval suggested with 202 responses.
+"""
+
+from __future__ import annotations
+
+import os
+from typing import Any
+
+DEFAULTS: dict[str, Any] = {
+    "BALLAST_STORE": None,
+    "BALLAST_STORE_URL": None,
+    "BALLAST_STORE_PREFIX": "ballast:",
+    "BALLAST_ENQUEUE": None,
+    "BALLAST_WORKERS_ALIVE": None,
+    "BALLAST_QUEUE_REACHABLE": None,
+    "BALLAST_MAX_BODY_BYTES": 512 * 1024 * 1024,
+    "BALLAST_MAX_VARIANTS": 10_000,
+    "BALLAST_MAX_UNFINISHED": 50_000,
+    "BALLAST_RATE_LIMIT": 1_200,
+    "BALLAST_RATE_WINDOW_S": 60.0,
+    "BALLAST_TENANT_LIMITS": {},
+    "BALLAST_RETENTION_S": 7 * 24 * 3600.0,
+    "BALLAST_RETRY_AFTER_S": 2,
+    "BALLAST_READY_RETRY_AFTER_S": 5,
+    "BALLAST_IDEMPOTENCY_PENDING_S": 120.0,
+    "BALLAST_PAGE_SIZE": 100,
+    "BALLAST_MAX_PAGE_SIZE": 1_000,
+}
+
+# Numeric settings that may come from the environment (BALLAST_MAX_BODY_BYTES=…).
+_FROM_ENV = {
+    "BALLAST_STORE_URL": str,
+    "BALLAST_MAX_BODY_BYTES": int,
+    "BALLAST_MAX_VARIANTS": int,
+    "BALLAST_MAX_UNFINISHED": int,
+    "BALLAST_RATE_LIMIT": int,
+    "BALLAST_RATE_WINDOW_S": float,
+    "BALLAST_RETENTION_S": float,
+    "BALLAST_RETRY_AFTER_S": int,
+}
+
+
+def app_config(overrides: dict[str, Any] | None = None,
+               environ: dict[str, str] | None = None) -> dict[str, Any]:
+    """Defaults, then the environment, then ``overrides``."""
+    env = os.environ if environ is None else environ
+    config = dict(DEFAULTS)
+    for name, kind in _FROM_ENV.items():
+        raw = env.get(name, "").strip()
+        if raw:
+            config[name] = kind(raw)
+    config.update(overrides or {})
+    return config
+
+
+def tenant_limit(config: dict[str, Any], tenant: str, name: str) -> Any:
+    """A per-tenant limit (``max_unfinished`` or ``rate_limit``), falling back to the default."""
+    override = (config.get("BALLAST_TENANT_LIMITS") or {}).get(tenant, {})
+    if name in override:
+        return override[name]
+    return config["BALLAST_MAX_UNFINISHED" if name == "max_unfinished" else "BALLAST_RATE_LIMIT"]

@@ -1,0 +1,162 @@
+"""Schemas of the API's own documents (the check request itself is ``service.schemas.request``).
+
+Response schemas serialise what the API returns and document it in the OpenAPI file; the batch
+request schemas document the JSON and multipart batch bodies, whose variants are validated one by
+one with ``CheckRequestSchema`` after merging the shared map.
+"""
+
+from __future__ import annotations
+
+import copy
+
+from marshmallow import RAISE, Schema, fields, validate
+
+from service.schemas.request import CheckRequestSchema
+from service.store.base import CHECK_STATUSES, VERDICT_NAMES
+
+# Check request members a batch's shared map or one of its variants may give.
+REQUEST_FIELDS: tuple[str, ...] = tuple(CheckRequestSchema._declared_fields)
+MAX_LABEL = 200
+
+
+def _optional_request_fields() -> dict[str, fields.Field]:
+    out = {}
+    for name, field in CheckRequestSchema._declared_fields.items():
+        clone = copy.deepcopy(field)
+        clone.required = False
+        out[name] = clone
+    return out
+
+
+class _Strict(Schema):
+    class Meta:
+        unknown = RAISE
+
+
+BatchMapSchema = _Strict.from_dict(
+    _optional_request_fields(), name="BatchMapSchema",
+)
+BatchMapSchema.__doc__ = "Check request members shared by every variant of a batch."
+
+BatchVariantSchema = _Strict.from_dict(
+    {
+        **_optional_request_fields(),
+        "label": fields.String(validate=validate.Length(max=MAX_LABEL),
+                               metadata={"description": "the variant's name in listings"}),
+    },
+    name="BatchVariantSchema",
+)
+BatchVariantSchema.__doc__ = (
+    "One variant: check request members merged over the shared map (the variant's win)."
+)
+
+
+class BatchRequestSchema(_Strict):
+    """A batch: one shared map, many variants (the merged result of each is a check request)."""
+
+    label = fields.String(validate=validate.Length(max=MAX_LABEL))
+    map = fields.Nested(BatchMapSchema, metadata={"description": "shared members, stored once"})
+    variants = fields.List(fields.Nested(BatchVariantSchema), required=True,
+                           validate=validate.Length(min=1))
+
+
+class BatchUploadSchema(Schema):
+    """Multipart form: the shared map as a JSON part and one Touchstone file per variant."""
+
+    map = fields.String(required=True, metadata={
+        "description": "JSON object: the shared map (ports, devices, options …)"})
+    label = fields.String(metadata={"description": "the batch's label"})
+    files = fields.List(fields.Raw(metadata={"type": "string", "format": "binary"}),
+                        required=True, metadata={
+                            "description": "Touchstone files; each file's name is its label"})
+
+
+class CheckAcceptedSchema(Schema):
+    id = fields.String(required=True)
+    status = fields.String(required=True, validate=validate.OneOf(CHECK_STATUSES))
+    location = fields.String(required=True)
+
+
+class CheckSchema(Schema):
+    """A check's state; ``verdict`` is the engine's verdict JSON, unchanged, once done."""
+
+    id = fields.String(required=True)
+    status = fields.String(required=True, validate=validate.OneOf(CHECK_STATUSES))
+    batch_id = fields.String(allow_none=True, required=True)
+    label = fields.String(allow_none=True, required=True)
+    attempts = fields.Integer(required=True)
+    created_at = fields.String(required=True, metadata={"format": "date-time"})
+    updated_at = fields.String(required=True, metadata={"format": "date-time"})
+    started_at = fields.String(allow_none=True, required=True, metadata={"format": "date-time"})
+    finished_at = fields.String(allow_none=True, required=True, metadata={"format": "date-time"})
+    verdict = fields.Dict(allow_none=True, required=True, metadata={
+        "description": "the engine's verdict document when status is done, else null"})
+    reason = fields.String(allow_none=True, required=True, metadata={
+        "description": "why the check failed, when status is failed, else null"})
+
+
+class BatchAcceptedSchema(Schema):
+    id = fields.String(required=True)
+    location = fields.String(required=True)
+    check_ids = fields.List(fields.String(), required=True)
+
+
+def _count_fields(names: tuple[str, ...]) -> dict[str, fields.Field]:
+    return {name: fields.Integer(required=True) for name in names}
+
+
+StatusCountsSchema = Schema.from_dict(_count_fields(CHECK_STATUSES), name="StatusCountsSchema")
+VerdictCountsSchema = Schema.from_dict(_count_fields(VERDICT_NAMES), name="VerdictCountsSchema")
+
+
+class BatchSchema(Schema):
+    id = fields.String(required=True)
+    label = fields.String(allow_none=True, required=True)
+    created_at = fields.String(required=True, metadata={"format": "date-time"})
+    size = fields.Integer(required=True)
+    finished = fields.Boolean(required=True, metadata={"description": "no check left to run"})
+    counts_by_status = fields.Nested(StatusCountsSchema, required=True)
+    counts_by_verdict = fields.Nested(VerdictCountsSchema, required=True)
+
+
+class BatchListSchema(Schema):
+    items = fields.List(fields.Nested(BatchSchema), required=True)
+
+
+class BatchCheckItemSchema(Schema):
+    id = fields.String(required=True)
+    label = fields.String(allow_none=True, required=True)
+    status = fields.String(required=True, validate=validate.OneOf(CHECK_STATUSES))
+    verdict = fields.String(allow_none=True, required=True)
+    unstable_count = fields.Integer(allow_none=True, required=True)
+    first_unstable_frequency_hz = fields.Float(allow_none=True, required=True, metadata={
+        "description": "frequency of the lowest unstable mode"})
+    first_unstable_node = fields.String(allow_none=True, required=True, metadata={
+        "description": "the node where that mode shows most strongly"})
+
+
+class BatchChecksPageSchema(Schema):
+    items = fields.List(fields.Nested(BatchCheckItemSchema), required=True)
+    next_cursor = fields.String(allow_none=True, required=True)
+
+
+class BatchChecksQuerySchema(_Strict):
+    status = fields.String(validate=validate.OneOf(CHECK_STATUSES))
+    verdict = fields.String(validate=validate.OneOf(VERDICT_NAMES))
+    limit = fields.Integer(validate=validate.Range(min=1, max=1000))
+    cursor = fields.String(validate=validate.Length(max=200))
+
+
+class BatchListQuerySchema(_Strict):
+    limit = fields.Integer(validate=validate.Range(min=1, max=200))
+
+
+class HealthSchema(Schema):
+    status = fields.String(required=True)
+
+
+class ReadySchema(Schema):
+    status = fields.String(required=True, validate=validate.OneOf(["ready", "unready"]))
+    store = fields.Boolean(required=True)
+    queue = fields.Boolean(required=True)
+    workers = fields.Boolean(required=True)

@@ -1,0 +1,223 @@
+"""/v1/batches: JSON and multipart submission, counts, paginated listing, cancellation.
+
+Sources: the closed form of a parallel RLC tank with a negative conductance (natural frequencies
+−G/2C ± j√(1/LC − (G/2C)²), G = 1/R + g; unstable when G < 0; any circuits text, e.g.
+Nilsson & Riedel, Electric Circuits, ch. 8, from memory) gives which variants are unstable and at
+what frequency; RFC 8288 (Link header, rel="next"); the Touchstone v1 specification (the file
+format of the multipart upload); RFC 7578 (multipart/form-data).
+"""
+
+from __future__ import annotations
+
+import io
+import json
+import math
+import re
+
+import numpy as np
+import pytest
+
+from service.store.base import content_hash
+from tests.api_fixtures import RLC_FREQUENCY_HZ, rlc_request, run_worker, tiny_request
+
+PROBLEM = "application/problem+json"
+L_H, C_F, G_NEG_S = 1e-9, 2e-12, -3e-3
+R_VALUES = (200.0, 250.0, 500.0, 1000.0)  # 1/R > 3 mS (stable) for the first two only
+
+
+def _closed_form_hz(r_ohm: float) -> float:
+    g = 1.0 / r_ohm + G_NEG_S
+    return math.sqrt(1.0 / (L_H * C_F) - (g / (2 * C_F)) ** 2) / (2 * math.pi)
+
+
+def _rlc_batch() -> dict:
+    requests = [rlc_request(r) for r in R_VALUES]
+    shared = {k: requests[0][k] for k in ("frequency_hz", "ports", "devices")}
+    variants = [{"label": f"R={r:g}", "parameters": q["parameters"], "data": q["data"],
+                 "z0_ohm": q["z0_ohm"]} for r, q in zip(R_VALUES, requests, strict=True)]
+    return {"label": "tank sweep", "map": shared, "variants": variants}
+
+
+def _link_next(response) -> str | None:
+    match = re.match(r'^<([^>]+)>; rel="next"$', response.headers.get("Link", ""))
+    return match.group(1) if match else None
+
+
+def test_json_batch_runs_and_counts_by_status_and_verdict(client, auth, api_store, fake_queue):
+    batch = _rlc_batch()
+    response = client.post("/v1/batches", json=batch, headers=auth)
+    assert response.status_code == 202
+    body = response.get_json()
+    assert response.headers["Location"] == f"/v1/batches/{body['id']}"
+    assert len(body["check_ids"]) == 4 and fake_queue.enqueued == body["check_ids"]
+    # each stored request is the shared map merged with its variant (and the map is stored once)
+    for variant, check_id in zip(batch["variants"], body["check_ids"], strict=True):
+        member = {k: v for k, v in variant.items() if k != "label"}
+        assert api_store.get_request(check_id) == {**batch["map"], **member}
+    blobs = api_store._conn().execute("SELECT hash FROM blobs").fetchall()
+    assert [b[0] for b in blobs] == [content_hash(batch["map"])]
+
+    summary = client.get(f"/v1/batches/{body['id']}", headers=auth).get_json()
+    assert summary["size"] == 4 and summary["finished"] is False
+    assert summary["counts_by_status"] == {"queued": 4, "running": 0, "done": 0, "failed": 0,
+                                           "cancelled": 0}
+    run_worker(api_store, body["check_ids"])
+    summary = client.get(f"/v1/batches/{body['id']}", headers=auth).get_json()
+    assert summary["finished"] is True and summary["counts_by_status"]["done"] == 4
+    assert summary["counts_by_verdict"] == {"stable": 2, "unstable": 2, "indeterminate": 0}
+
+
+def test_listing_shows_the_first_offending_mode_and_filters(client, auth, api_store):
+    body = client.post("/v1/batches", json=_rlc_batch(), headers=auth).get_json()
+    run_worker(api_store, body["check_ids"])
+    page = client.get(f"/v1/batches/{body['id']}/checks?verdict=unstable", headers=auth)
+    items = page.get_json()["items"]
+    assert [i["label"] for i in items] == ["R=500", "R=1000"]
+    for item, r in zip(items, (500.0, 1000.0), strict=True):
+        assert item["status"] == "done" and item["unstable_count"] == 2  # one complex pair
+        assert item["first_unstable_frequency_hz"] == pytest.approx(_closed_form_hz(r), rel=2e-3)
+        assert item["first_unstable_node"] == "tank"
+    stable = client.get(f"/v1/batches/{body['id']}/checks?verdict=stable", headers=auth)
+    assert [i["first_unstable_node"] for i in stable.get_json()["items"]] == [None, None]
+    queued = client.get(f"/v1/batches/{body['id']}/checks?status=queued", headers=auth)
+    assert queued.get_json() == {"items": [], "next_cursor": None}
+
+
+def test_cursor_pagination_with_link_next(client, auth):
+    variants = [{"label": f"v{i}"} for i in range(7)]
+    body = client.post("/v1/batches", json={"map": tiny_request(), "variants": variants},
+                       headers=auth).get_json()
+    url = f"/v1/batches/{body['id']}/checks?limit=3"
+    seen, pages = [], 0
+    while url:
+        response = client.get(url, headers=auth)
+        assert response.status_code == 200
+        data = response.get_json()
+        seen += [i["id"] for i in data["items"]]
+        pages += 1
+        url = _link_next(response)
+        assert (url is None) == (data["next_cursor"] is None)
+    assert seen == body["check_ids"] and pages == 3
+    bad = client.get(f"/v1/batches/{body['id']}/checks?cursor=not-ours", headers=auth)
+    assert bad.status_code == 400 and bad.mimetype == PROBLEM
+
+
+def test_invalid_variant_names_index_label_and_field_and_stores_nothing(
+        client, auth, api_store, fake_queue):
+    batch = _rlc_batch()
+    batch["variants"][2]["data"]["re"] = batch["variants"][2]["data"]["re"][:-1]  # F − 1 rows
+    batch["variants"][3]["wobble"] = 1
+    response = client.post("/v1/batches", json=batch, headers=auth)
+    problem = response.get_json()
+    assert response.status_code == 422 and response.mimetype == PROBLEM
+    fields = [e["field"] for e in problem["errors"]]
+    assert fields == ["variants.3.wobble"]  # the structure is checked before the variants
+    del batch["variants"][3]["wobble"]
+    problem = client.post("/v1/batches", json=batch, headers=auth).get_json()
+    assert [e["field"][:len("variants.2.data")] for e in problem["errors"]] == ["variants.2.data"]
+    assert "variant 2 ('R=500')" in problem["errors"][0]["detail"]
+    assert api_store.list_batches("acme") == [] and fake_queue.enqueued == []
+
+
+def test_error_in_the_shared_map_is_attributed_to_the_map(client, auth):
+    batch = _rlc_batch()
+    batch["map"]["devices"][0]["control"] = ["nowhere", None]
+    problem = client.post("/v1/batches", json=batch, headers=auth).get_json()
+    assert {e["field"] for e in problem["errors"]} == {"map.devices.0.control"}
+    assert "4 of 4 variants" in problem["detail"]
+
+
+def test_a_thousand_variants_in_one_batch(client, auth, api_store):
+    rng = np.random.default_rng(7)
+    variants = []
+    for i, g in enumerate(rng.uniform(0.01, 0.05, size=1000)):
+        variants.append({"label": f"shunt-{i}", "data": {
+            "re": [[[g, 0.0], [0.05, g]]] * 4, "im": [[[0.0, 0.0], [0.0, 0.0]]] * 4}})
+    shared = {k: v for k, v in tiny_request().items() if k != "data"}
+    response = client.post("/v1/batches", json={"map": shared, "variants": variants},
+                           headers=auth)
+    assert response.status_code == 202
+    ids = response.get_json()["check_ids"]
+    assert len(set(ids)) == 1000
+    summary = client.get(f"/v1/batches/{response.get_json()['id']}", headers=auth).get_json()
+    assert summary["counts_by_status"]["queued"] == 1000
+    assert api_store.get_request(ids[999])["data"] == variants[999]["data"]
+
+
+def _touchstone(r_ohm: float) -> str:
+    """One-port Touchstone v1 (# Hz S RI R 50) of the RLC tank, written from its S data."""
+    from workers.lumped.checkdata import to_touchstone
+
+    request = rlc_request(r_ohm)
+    s = np.asarray(request["data"]["re"]) + 1j * np.asarray(request["data"]["im"])
+    return to_touchstone(RLC_FREQUENCY_HZ, s, z0=50.0)
+
+
+def test_multipart_upload_of_touchstone_files(client, auth, api_store):
+    base = rlc_request(200.0)
+    shared = {"ports": base["ports"], "devices": base["devices"]}
+
+    files = [(io.BytesIO(_touchstone(r).encode()), f"tank-{r:g}.s1p") for r in (200.0, 500.0)]
+    response = client.post(
+        "/v1/batches", headers=auth, content_type="multipart/form-data",
+        data={"map": json.dumps(shared), "label": "uploaded", "files": files},
+    )
+    assert response.status_code == 202, response.get_json()
+    ids = response.get_json()["check_ids"]
+    verdicts = run_worker(api_store, ids)
+    assert [v["verdict"] for v in verdicts] == ["stable", "unstable"]
+    items = client.get(f"/v1/batches/{response.get_json()['id']}/checks",
+                       headers=auth).get_json()["items"]
+    assert [i["label"] for i in items] == ["tank-200.s1p", "tank-500.s1p"]
+    assert items[1]["first_unstable_frequency_hz"] == pytest.approx(_closed_form_hz(500.0),
+                                                                    rel=2e-3)
+
+
+def test_multipart_errors_name_the_file(client, auth):
+    shared = {"ports": [{"name": "tank", "role": "probe"}],
+              "devices": rlc_request(200.0)["devices"]}
+    files = [(io.BytesIO(_touchstone(200.0).encode()), "good.s1p"),
+             (io.BytesIO(b"# Hz S RI R 50\n1 2\n"), "broken.s1p")]
+    problem = client.post("/v1/batches", headers=auth, content_type="multipart/form-data",
+                          data={"map": json.dumps(shared), "files": files}).get_json()
+    assert problem["status"] == 422
+    assert problem["errors"][0]["field"].startswith("files.1.touchstone")
+    assert "broken.s1p" in problem["errors"][0]["detail"]
+    again = [(io.BytesIO(_touchstone(200.0).encode()), "good.s1p")]
+    missing = client.post("/v1/batches", headers=auth, content_type="multipart/form-data",
+                          data={"files": again}).get_json()
+    assert [e["field"] for e in missing["errors"]] == ["map"]
+
+
+def test_cancel_batch_and_recent_batches(client, auth, rival_auth, api_store):
+    first = client.post("/v1/batches", json=_rlc_batch(), headers=auth).get_json()
+    run_worker(api_store, first["check_ids"][:1])
+    response = client.delete(f"/v1/batches/{first['id']}", headers=auth)
+    assert response.status_code == 200
+    assert response.get_json()["counts_by_status"]["cancelled"] == 3
+    assert response.get_json()["counts_by_status"]["done"] == 1
+    second = client.post("/v1/batches", json=_rlc_batch(), headers=auth).get_json()
+    listed = client.get("/v1/batches", headers=auth).get_json()["items"]
+    assert [b["id"] for b in listed][:2] == [second["id"], first["id"]]
+    assert client.get("/v1/batches", headers=rival_auth).get_json() == {"items": []}
+    for path in (f"/v1/batches/{first['id']}", f"/v1/batches/{first['id']}/checks"):
+        assert client.get(path, headers=rival_auth).status_code == 404
+    assert client.delete(f"/v1/batches/{second['id']}", headers=rival_auth).status_code == 404
+    assert client.get(f"/v1/batches/{second['id']}", headers=auth).get_json()[
+        "counts_by_status"]["queued"] == 4
+
+
+def test_idempotent_batch_retry(client, auth, fake_queue):
+    headers = {**auth, "Idempotency-Key": "nightly-7"}
+    first = client.post("/v1/batches", json=_rlc_batch(), headers=headers).get_json()
+    again = client.post("/v1/batches", json=_rlc_batch(), headers=headers).get_json()
+    assert first == again and len(fake_queue.enqueued) == 4
+
+
+def test_batch_envelope_errors(client, auth):
+    assert client.post("/v1/batches", json={"variants": []}, headers=auth).status_code == 422
+    problem = client.post("/v1/batches", json={"variants": [{}], "extra": 1},
+                          headers=auth).get_json()
+    assert "extra" in [e["field"] for e in problem["errors"]]
+    assert client.get("/v1/batches?limit=0", headers=auth).status_code == 422
+    assert client.get("/v1/batches?colour=red", headers=auth).status_code == 422
