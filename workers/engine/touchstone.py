@@ -32,6 +32,7 @@ from __future__ import annotations
 
 import math
 import re
+import threading
 from dataclasses import dataclass
 from typing import Literal
 
@@ -56,6 +57,23 @@ _NUMBER = re.compile(r"[+-]?(?:\d+\.?\d*|\.\d+)(?:[eE][+-]?\d+)?")
 _KEYWORD_LINE = re.compile(r"^[ \t]*\[", re.MULTILINE)
 _POW10 = np.array([10.0**k for k in range(309)])
 _MAX_TOKEN_WIDTH = 64
+_SCRATCH_LIMIT_BYTES = 256 * 1024 * 1024
+_scratch_buffers = threading.local()
+
+
+def _scratch(name: str, size: int) -> np.ndarray:
+    """A per-thread uint8 buffer of ``size`` bytes, kept between calls.
+
+    Fresh memory is paid for in page faults on first touch, which dominated the scanner's time;
+    reusing the same buffers avoids that. Contents are garbage on entry.
+    """
+    buffers = _scratch_buffers.__dict__
+    buffer = buffers.get(name)
+    if buffer is None or buffer.size < size:
+        buffer = np.empty(max(size, 1), dtype=np.uint8)
+        if size <= _SCRATCH_LIMIT_BYTES:
+            buffers[name] = buffer
+    return buffer[:size]
 
 
 @dataclass(frozen=True, eq=False)
@@ -695,7 +713,8 @@ def _scan_numbers(region: str, raw: np.ndarray) -> tuple[np.ndarray, np.ndarray,
     ``[+-](digits[.digits] | .digits)[(e|E)[+-]digits]``. The mantissa digits are accumulated
     column by column over a (width, tokens) byte grid, then scaled by 10**exponent.
     """
-    is_token = np.zeros(raw.size + 2, dtype=np.int8)
+    is_token = _scratch("edges", raw.size + 2).view(np.int8)
+    is_token[0] = is_token[-1] = 0
     np.greater(raw, 32, out=is_token[1:-1].view(bool))
     edges = np.flatnonzero(is_token[1:] != is_token[:-1])
     starts, ends = edges[0::2], edges[1::2]
@@ -704,41 +723,59 @@ def _scan_numbers(region: str, raw: np.ndarray) -> tuple[np.ndarray, np.ndarray,
         return np.empty(0), starts, -1
     length = ends - starts
     width = int(min(length.max(), _MAX_TOKEN_WIDTH))
-    padded = np.concatenate((raw, np.zeros(width, np.uint8)))
-    window = np.lib.stride_tricks.sliding_window_view(padded, width)[starts]
-    grid = np.ascontiguousarray(window.T)
+    padded = _scratch("padded", raw.size + width)
+    padded[: raw.size] = raw
+    padded[raw.size :] = 0
+    work = _scratch("grid", 8 * width * count).reshape(8, width, count)
+    grid, digit_value, scratch, spare = work[0], work[1], work[2], work[3]
+    is_digit, is_e, is_dot, is_sign = (work[i].view(bool) for i in range(4, 8))
+    index = np.empty(count, dtype=np.int64)
+    for j in range(width):  # byte j of every token, one row of the (width, tokens) grid
+        np.add(starts, j, out=index)
+        np.take(padded, index, out=grid[j])
     u8 = np.uint8
     column = np.arange(1, width + 1, dtype=u8)[:, None]
-    grid *= column <= np.minimum(length, 255).astype(u8)
-    digit_value = grid - u8(48)
-    is_digit = digit_value < 10
-    is_e = (grid | u8(32)) == 101
-    is_dot = grid == 46
-    is_sign = (grid == 43) | (grid == 45)
-    other = (grid != 0) & ~(is_digit | is_e | is_dot | is_sign)
+    np.less_equal(column, np.minimum(length, 255).astype(u8), out=is_e)
+    grid *= is_e  # blank the bytes after each token
+    np.subtract(grid, u8(48), out=digit_value)
+    np.less(digit_value, u8(10), out=is_digit)
+    np.bitwise_or(grid, u8(32), out=scratch)
+    np.equal(scratch, u8(101), out=is_e)
+    np.equal(grid, u8(46), out=is_dot)
+    np.equal(grid, u8(43), out=is_sign)
+    np.equal(grid, u8(45), out=spare.view(bool))
+    is_sign |= spare.view(bool)
+    known = spare.view(bool)
+    np.logical_or(is_digit, is_e, out=known)
+    known |= is_dot
+    known |= is_sign
+    np.not_equal(grid, u8(0), out=scratch.view(bool))
+    other = np.greater(scratch.view(bool), known, out=scratch.view(bool)).any(0)
     n_e = is_e.view(u8).sum(0, dtype=u8)
     n_dot = is_dot.view(u8).sum(0, dtype=u8)
     n_sign = is_sign.view(u8).sum(0, dtype=u8)
     has_e = n_e > 0
     has_dot = n_dot > 0
-    e_pos = np.where(has_e, (is_e.view(u8) * column).max(0).astype(np.int64) - 1, length)
-    dot_pos = np.where(has_dot, (is_dot.view(u8) * column).max(0).astype(np.int64) - 1, e_pos)
-    lead_sign = is_sign[0]
+    np.multiply(is_e.view(u8), column, out=scratch)
+    e_pos = np.where(has_e, scratch.max(0).astype(np.int64) - 1, length)
+    np.multiply(is_dot.view(u8), column, out=scratch)
+    dot_pos = np.where(has_dot, scratch.max(0).astype(np.int64) - 1, e_pos)
+    lead_sign = is_sign[0].copy()
 
     mantissa_end = int(min(e_pos.max(), width))
-    in_mantissa = is_digit[:mantissa_end] & (
-        column[:mantissa_end] <= np.minimum(e_pos, 255).astype(u8)
-    )
-    multiplier = in_mantissa.view(u8) * u8(9)
+    in_mantissa = spare[:mantissa_end].view(bool)
+    np.less_equal(column[:mantissa_end], np.minimum(e_pos, 255).astype(u8), out=in_mantissa)
+    in_mantissa &= is_digit[:mantissa_end]
+    multiplier = np.multiply(in_mantissa.view(u8), u8(9), out=scratch[:mantissa_end])
     multiplier += u8(1)
-    addend = digit_value[:mantissa_end] * in_mantissa.view(u8)
+    addend = np.multiply(digit_value[:mantissa_end], in_mantissa.view(u8), out=spare[:mantissa_end])
     mantissa = np.zeros(count)
     for j in range(mantissa_end):
         np.multiply(mantissa, multiplier[j], out=mantissa)
         np.add(mantissa, addend[j], out=mantissa)
 
     n_mantissa = e_pos - lead_sign - has_dot
-    bad = other.any(0) | (length > width) | (n_e > 1) | (n_dot > 1)
+    bad = other | (length > width) | (n_e > 1) | (n_dot > 1)
     bad |= (dot_pos > e_pos) | (n_mantissa < 1)
     exponent10 = -np.where(has_dot, e_pos - dot_pos - 1, 0)
     exponent_sign = np.zeros(count, dtype=bool)

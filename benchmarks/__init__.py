@@ -1,0 +1,1 @@
+"""Speed benchmarks: commands that print ratios (never run as tests)."""
