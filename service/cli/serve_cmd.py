@@ -1,0 +1,62 @@
+"""``ballast serve [--port N] [--demo]`` and ``ballast worker``."""
+
+from __future__ import annotations
+
+import argparse
+import os
+from typing import Any
+
+
+def _positive(text: str) -> int:
+    value = int(text)
+    if value < 0:
+        raise argparse.ArgumentTypeError("must be 0 or more")
+    return value
+
+
+def register(subparsers: Any) -> None:
+    serve = subparsers.add_parser(
+        "serve",
+        help="run the API and workers on this machine (embedded SQLite store and broker "
+             "unless BALLAST_REDIS_URL is set)",
+        description="Start the HTTP API (gunicorn) and a worker as child processes, print the "
+                    "base URL and an API token, and run until Ctrl-C. Data lives in "
+                    "BALLAST_DATA_DIR (default ./var); BALLAST_REDIS_URL switches to Redis.",
+    )
+    serve.add_argument("--host", default="127.0.0.1", help="address to listen on")
+    serve.add_argument("--port", type=int, default=8000, help="port to listen on (8000)")
+    serve.add_argument("--workers", type=_positive, default=min(2, os.cpu_count() or 1),
+                       help="worker processes running checks (0: accept only)")
+    serve.add_argument("--api-processes", type=_positive, default=2,
+                       help="gunicorn processes answering HTTP")
+    serve.add_argument("--demo", action="store_true",
+                       help="submit the demo batches of invented variants and print verdicts")
+    serve.set_defaults(func=_serve)
+
+    worker = subparsers.add_parser(
+        "worker",
+        help="run a worker on its own (distributed deployments)",
+        description="Run checks from the queue named by BALLAST_REDIS_URL (or the embedded "
+                    "broker in BALLAST_DATA_DIR). Also runs the heartbeat and the reconciler.",
+    )
+    worker.add_argument("--concurrency", type=_positive, default=os.cpu_count() or 1,
+                        help="checks run at once (processes)")
+    worker.add_argument("--name", default=None, help="worker name (default: Celery's)")
+    worker.add_argument("--loglevel", default="INFO")
+    worker.set_defaults(func=_worker)
+
+
+def _serve(args: argparse.Namespace) -> int:
+    from service.embedded import ServeOptions, serve
+
+    options = ServeOptions(host=args.host, port=args.port, worker_processes=args.workers,
+                           api_processes=max(1, args.api_processes), demo=args.demo)
+    return serve(options, out=lambda line: print(line, flush=True))
+
+
+def _worker(args: argparse.Namespace) -> int:
+    from workers.worker_process import worker_argv
+
+    argv = worker_argv(max(1, args.concurrency), args.name, args.loglevel)
+    os.execv(argv[0], argv)  # the worker replaces this process: signals reach Celery directly
+    return 0  # pragma: no cover

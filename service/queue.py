@@ -1,0 +1,60 @@
+"""The API's side of the queue: hand check ids to the workers, and ask whether any worker is alive.
+
+Only check ids cross the queue; the request and the verdict stay in the store. Publishing is
+best-effort by design: the checks are already stored as ``queued`` when :func:`enqueue` runs, and
+the workers' reconciler re-queues any queued check that the broker never delivered, so a broker
+hiccup delays a check but cannot lose it.
+"""
+
+from __future__ import annotations
+
+import logging
+
+from service.runtime_config import CHECK_QUEUE, RUN_CHECK_TASK, load_config
+from service.worker_heartbeat import live_workers
+
+log = logging.getLogger("ballast.queue")
+
+_PUBLISH_RETRY = {"max_retries": 2, "interval_start": 0.0, "interval_step": 0.2,
+                  "interval_max": 0.5}
+
+
+def enqueue(check_ids: list[str]) -> None:
+    """Publish one ``ballast.run_check`` message per id (one broker connection for the lot)."""
+    if not check_ids:
+        return
+    from workers.celery_app import app  # celery is only imported by processes that publish
+
+    try:
+        with app.producer_or_acquire() as producer:
+            for check_id in check_ids:
+                app.send_task(
+                    RUN_CHECK_TASK, args=[check_id], queue=CHECK_QUEUE, producer=producer,
+                    retry=True, retry_policy=_PUBLISH_RETRY, ignore_result=True,
+                )
+    except Exception as exc:  # the reconciler delivers what was stored but not published
+        log.warning("could not publish %d check(s) now (%s); the reconciler will", len(check_ids),
+                    exc)
+
+
+def broker_reachable() -> bool:
+    """True when a connection to the broker can be made now (for /readyz)."""
+    from workers.celery_app import app
+
+    try:
+        with app.connection_for_write() as connection:
+            connection.ensure_connection(max_retries=1, interval_start=0, timeout=2)
+            connection.default_channel  # noqa: B018 (opens the channel: Redis answers, SQLite opens)
+        return True
+    except Exception as exc:
+        log.warning("broker unreachable: %s", exc)
+        return False
+
+
+def workers_alive() -> bool:
+    """True when at least one worker has sent a heartbeat within the TTL (for /readyz)."""
+    try:
+        return bool(live_workers(load_config()))
+    except Exception as exc:
+        log.warning("cannot read worker heartbeats: %s", exc)
+        return False

@@ -1,0 +1,46 @@
+"""kombu's Redis transport with a configurable restore interval for unacknowledged messages.
+
+With late acknowledgement a message stays in Redis's ``unacked`` hash while its task runs; if the
+worker dies, kombu puts it back on the queue once it is older than ``visibility_timeout``. Stock
+kombu (5.6) only looks every 10 s × a throttle of 10 calls, i.e. about every 100 s
+(``QoS.restore_visible(interval=10)`` called by ``loop.call_repeatedly(10, ...)`` in
+``Transport.register_with_event_loop``), and exposes no option for it. This subclass drops the
+throttle and adds a timer of ``restore_interval_s`` seconds (a transport option), so a dead
+worker's message comes back ``visibility_timeout + restore_interval_s`` after its delivery.
+"""
+
+from __future__ import annotations
+
+from typing import Any
+
+from kombu.transport import redis as kombu_redis
+
+DEFAULT_RESTORE_INTERVAL_S = 10.0
+
+
+class QoS(kombu_redis.QoS):
+    """Restores visible-again messages on every call instead of every tenth."""
+
+    def restore_visible(self, start: int = 0, num: int = 10, interval: int = 1) -> None:
+        super().restore_visible(start=start, num=num, interval=1)
+
+
+class Channel(kombu_redis.Channel):
+    QoS = QoS
+    restore_interval_s = DEFAULT_RESTORE_INTERVAL_S
+    from_transport_options = (*kombu_redis.Channel.from_transport_options, "restore_interval_s")
+
+
+class Transport(kombu_redis.Transport):
+    """Replaces ``kombu.transport.redis:Transport`` through the ``broker_transport`` setting."""
+
+    Channel = Channel
+
+    def register_with_event_loop(self, connection: Any, loop: Any) -> None:
+        super().register_with_event_loop(connection, loop)
+        interval = float(
+            connection.client.transport_options.get(
+                "restore_interval_s", DEFAULT_RESTORE_INTERVAL_S
+            )
+        )
+        loop.call_repeatedly(interval, self.cycle.maybe_restore_messages)

@@ -1,0 +1,152 @@
+"""The check task: thin and idempotent. It receives a check id and nothing else.
+
+claim (compare-and-set, attempts += 1, lease) → load the request → run the engine → complete.
+A duplicate or late message finds the check already claimed or final and does nothing; a check
+that has used up its attempts is marked ``failed`` by the claim itself, so a check that kills its
+worker every time stops after ``BALLAST_MAX_ATTEMPTS`` deliveries.
+"""
+
+from __future__ import annotations
+
+import logging
+import os
+import sqlite3
+import time
+from collections.abc import Callable
+from typing import Any, TypeVar
+
+import redis.exceptions
+from billiard.exceptions import SoftTimeLimitExceeded
+from celery.worker.request import Request
+from marshmallow import ValidationError
+
+from service.runtime_config import RUN_CHECK_TASK
+from workers.celery_app import app, config
+from workers.store_access import process_store
+
+log = logging.getLogger("ballast.worker")
+
+T = TypeVar("T")
+
+STORE_WRITE_RETRY_S = 15.0
+TRANSIENT_STORE_ERRORS: tuple[type[BaseException], ...] = (
+    ConnectionError,
+    TimeoutError,
+    redis.exceptions.ConnectionError,  # includes BusyLoadingError while Redis replays its AOF
+    redis.exceptions.TimeoutError,
+    sqlite3.OperationalError,  # "database is locked" under write contention
+)
+
+
+def _with_store_retry(write: Callable[[], T], what: str) -> T:
+    """Retry a store write through a short outage (e.g. a Redis restart) before giving up.
+
+    Giving up is safe: the check stays ``running`` until its lease expires and the reconciler
+    queues it again.
+    """
+    deadline = time.monotonic() + STORE_WRITE_RETRY_S
+    delay = 0.1
+    while True:
+        try:
+            return write()
+        except TRANSIENT_STORE_ERRORS as exc:
+            if time.monotonic() >= deadline:
+                log.error("giving up on %s: %s", what, exc)
+                raise
+            log.warning("store unavailable during %s (%s); retrying", what, exc)
+        time.sleep(delay)
+        delay = min(delay * 2, 2.0)
+
+
+def _test_hooks(label: str | None) -> None:
+    """Fault injection for the reliability tests; inert unless ``BALLAST_TESTING=1``.
+
+    BALLAST_TEST_CRASH_LABEL: a check with this label kills its worker process (``os._exit``).
+    BALLAST_TEST_PAUSE_LABEL / BALLAST_TEST_PAUSE_S: a check with this label sleeps first, so
+    a test can kill the worker while the check is running or exceed the time limits.
+    """
+    if not config.testing or label is None:
+        return
+    if label == os.environ.get("BALLAST_TEST_CRASH_LABEL"):
+        log.warning("test hook: crashing on check labelled %s", label)
+        os._exit(70)
+    if label == os.environ.get("BALLAST_TEST_PAUSE_LABEL"):
+        pause_s = float(os.environ.get("BALLAST_TEST_PAUSE_S", "5"))
+        if os.environ.get("BALLAST_TEST_PAUSE_STUBBORN") == "1":
+            end = time.monotonic() + pause_s  # ignores the soft limit: only the hard one stops it
+            while time.monotonic() < end:
+                try:
+                    time.sleep(max(0.0, end - time.monotonic()))
+                except SoftTimeLimitExceeded:
+                    continue
+        else:
+            time.sleep(pause_s)
+
+
+def _run_engine(request: dict[str, Any]) -> dict[str, Any]:
+    from service.runner import run_check_json  # imported lazily: the API never loads the engine
+
+    return run_check_json(request)
+
+
+class CheckRequest(Request):
+    """Celery's request object, plus: a hard time-out marks the check ``failed`` with the reason.
+
+    The hard limit kills the pool process, so the task cannot record it; this hook runs in the
+    worker's main process.
+    """
+
+    def on_timeout(self, soft: bool, timeout: float) -> None:
+        super().on_timeout(soft, timeout)
+        if soft or not self.args:
+            return
+        check_id = str(self.args[0])
+        reason = f"time limit exceeded: the check ran longer than {timeout:g} s (hard limit)"
+        try:
+            _with_store_retry(lambda: process_store().fail(check_id, reason), "fail " + check_id)
+        except Exception:  # the lease expiry path still ends the check
+            log.exception("could not record the hard time-out of %s", check_id)
+
+
+@app.task(
+    name=RUN_CHECK_TASK,
+    bind=True,
+    Request=CheckRequest,
+    acks_late=True,
+    reject_on_worker_lost=True,
+    ignore_result=True,
+    soft_time_limit=config.soft_time_limit_s,
+    time_limit=config.hard_time_limit_s,
+)
+def run_check(self: Any, check_id: str) -> str:
+    """Run one stored check; returns what happened (for the worker log): done/failed/skipped."""
+    store = process_store()
+    record = _with_store_retry(
+        lambda: store.claim(check_id, config.lease_s, config.max_attempts), "claim " + check_id
+    )
+    if record is None or record.status != "running":
+        return "skipped"
+    request = _with_store_retry(lambda: store.get_request(check_id), "load " + check_id)
+    if request is None:
+        store.fail(check_id, "the check's request is missing from the store")
+        return "failed"
+    try:
+        _test_hooks(record.label)
+        verdict = _run_engine(request)
+    except SoftTimeLimitExceeded:
+        reason = (
+            f"time limit exceeded: the check ran longer than {config.soft_time_limit_s:g} s"
+        )
+        _with_store_retry(lambda: store.fail(check_id, reason), "fail " + check_id)
+        return "failed"
+    except (ValueError, ValidationError) as exc:  # engine InputError/TouchstoneError, schema
+        reason = f"invalid check request: {exc}"
+        _with_store_retry(lambda: store.fail(check_id, reason), "fail " + check_id)
+        return "failed"
+    except Exception as exc:
+        log.exception("engine error on check %s", check_id)
+        reason = f"engine error: {type(exc).__name__}: {exc}"
+        _with_store_retry(lambda: store.fail(check_id, reason), "fail " + check_id)
+        return "failed"
+    _with_store_retry(lambda: store.complete(check_id, verdict), "complete " + check_id)
+    return "done"
