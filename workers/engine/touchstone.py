@@ -120,6 +120,11 @@ class _Text:
         """Character offset where line ``index`` starts (the text length past the last line)."""
         return int(self.line_start[index]) if index < len(self) else len(self.body)
 
+    def last_content_line(self) -> int:
+        """1-based number of the last line that is not blank (0 for a blank text)."""
+        stripped = self.body.rstrip()
+        return stripped.count("\n") + 1 if stripped else 0
+
     def next_keyword_line(self, start: int) -> int:
         """First line index at or after ``start`` that begins with '[' (len(self) if none)."""
         match = _KEYWORD_LINE.search(self.body, self.offset(start))
@@ -357,7 +362,7 @@ def _read_header2(lines: _Text, start: int, header: _Header2) -> int:
             in_information = True
         else:
             _apply_keyword2(header, keyword, argument, number)
-    raise TouchstoneError(len(lines), "missing [Network Data]")
+    raise TouchstoneError(lines.last_content_line(), "missing [Network Data]")
 
 
 def _apply_keyword2(header: _Header2, keyword: str, argument: str, number: int) -> None:
@@ -412,14 +417,14 @@ def _require(header: _Header2, network_line: int) -> None:
 def _read_tail2(lines: _Text, stop: int, header: _Header2) -> None:
     """After the network data: optional [Noise Data] (skipped), then [End] and nothing else."""
     if stop >= len(lines):
-        raise TouchstoneError(len(lines), "missing [End]")
+        raise TouchstoneError(lines.last_content_line(), "missing [End]")
     keyword, argument = _keyword(lines[stop], stop + 1)
     if keyword == "noise data":
         if header.noise_frequencies is None:
             raise TouchstoneError(stop + 1, "[Noise Data] without [Number of Noise Frequencies]")
         stop = lines.next_keyword_line(stop + 1)
         if stop >= len(lines):
-            raise TouchstoneError(len(lines), "missing [End]")
+            raise TouchstoneError(lines.last_content_line(), "missing [End]")
         keyword, argument = _keyword(lines[stop], stop + 1)
     elif header.noise_frequencies is not None:
         raise TouchstoneError(stop + 1, "[Number of Noise Frequencies] given but no [Noise Data]")
@@ -479,7 +484,7 @@ def _check_record_count(
         line = numbers.line(declared * record_length)
         raise TouchstoneError(line, f"more frequencies than [Number of Frequencies] {declared}")
     raise TouchstoneError(
-        min(end_line, len(lines)),
+        min(end_line, lines.last_content_line()),
         f"[Number of Frequencies] is {declared} but the network data holds {full}",
     )
 
