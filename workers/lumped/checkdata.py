@@ -125,28 +125,29 @@ def to_touchstone(
 
     Layout per the Touchstone File Format Specification v1.1 (IBIS Open Forum): 2-port lines
     hold N11 N21 N12 N22; 3 or more ports write one matrix row per line group, at most four
-    complex pairs per line, each frequency's block starting with the frequency.
+    complex pairs per line, each frequency's block starting with the frequency. Values carry 10
+    significant digits.
     """
     s = np.asarray(s, dtype=complex)
     f = np.asarray(frequency_hz, dtype=float)
     if s.ndim != 3 or s.shape[1] != s.shape[2] or s.shape[0] != f.shape[0]:
         raise ValueError("s must be (F, N, N) with F matching frequency_hz")
     n = s.shape[1]
+    if not all(text.isascii() and "\n" not in text for text in comments):
+        raise ValueError("Touchstone comments must be single ASCII lines")
     lines = [f"! {text}" for text in comments]
     lines.append(f"# HZ S RI R {z0:g}")
 
-    def pair(value: complex) -> str:
-        return f"{value.real: .12e} {value.imag: .12e}"
-
-    for k in range(f.shape[0]):
-        head = f"{f[k]:.12e}"
-        if n <= 2:
-            order = [s[k, 0, 0]] if n == 1 else [s[k, 0, 0], s[k, 1, 0], s[k, 0, 1], s[k, 1, 1]]
-            lines.append(" ".join([head, *(pair(v) for v in order)]))
-            continue
-        for row in range(n):
-            for start in range(0, n, 4):
-                chunk = " ".join(pair(v) for v in s[k, row, start : start + 4])
-                prefix = head if (row == 0 and start == 0) else " " * len(head)
-                lines.append(f"{prefix} {chunk}")
+    pairs = np.stack([s.real, s.imag], axis=-1)  # (F, N, N, 2)
+    if n == 2:
+        pairs = np.swapaxes(pairs, 1, 2)  # v1 2-port order: N11 N21 N12 N22
+    rows = pairs.reshape(f.shape[0], n if n > 2 else 1, -1).tolist()
+    heads = [f"{value:.12e}" for value in f.tolist()]
+    pad = " " * len(heads[0]) if heads else ""
+    for head, block in zip(heads, rows, strict=True):
+        for row_index, row in enumerate(block):
+            for start in range(0, len(row), 8):  # at most four complex pairs per line
+                numbers = " ".join(f"{value: .9e}" for value in row[start : start + 8])
+                first = row_index == 0 and start == 0
+                lines.append(f"{head if first else pad} {numbers}")
     return "\n".join(lines) + "\n"

@@ -176,3 +176,46 @@ def natural_frequencies(
     finite = np.abs(beta) > INFINITE_EIGENVALUE_TOLERANCE * np.abs(alpha)
     s = s_scale * alpha[finite] / beta[finite]
     return s[np.lexsort((s.imag, -s.real))]
+
+
+def normalized_determinant(
+    circuit: Circuit,
+    frequency_hz: np.ndarray,
+    terminations: Mapping[str, complex | float] | None = None,
+) -> np.ndarray:
+    """NDF(f) = det M(j2πf) / det M₀(j2πf), M₀ with every transconductance set to zero.
+
+    The normalized determinant function of Platzker, Struble & Hetzler (IEEE MTT-S Digest
+    1985) evaluated directly on the terminated circuit; computed from log-determinants so that
+    large circuits do not overflow. Raises ValueError where M₀ is singular.
+    """
+    f = np.asarray(frequency_hz, dtype=float).reshape(-1)
+    s = 2j * np.pi * f
+    sign_on, log_on = np.linalg.slogdet(assemble(circuit, terminations).matrix(s))
+    sign_off, log_off = np.linalg.slogdet(assemble(circuit.gain_off(), terminations).matrix(s))
+    if np.any(sign_off == 0):
+        raise ValueError("the gain-off circuit is singular at some frequency")
+    return sign_on / sign_off * np.exp(log_on - log_off)
+
+
+def natural_mode(
+    circuit: Circuit, s: complex, terminations: Mapping[str, complex | float] | None = None
+) -> tuple[dict[str, complex], dict[str, complex]]:
+    """Right and left null vectors of M(s) at a natural frequency s, as node → weight.
+
+    M(s)·v = 0 gives the mode shape (node voltages); wᴴ·M(s) = 0 tells where a current injection
+    excites the mode. Both come from the singular vectors of the smallest singular value and
+    are scaled to a largest node entry of 1. A mode is seen from a port only if both weights at
+    the port node are non-zero (the residue of M⁻¹ there is ∝ v·wᴴ).
+    """
+    system = assemble(circuit, terminations)
+    u, _, vh = np.linalg.svd(system.matrix(np.array([s]))[0])
+    right, left = vh[-1].conj(), u[:, -1]
+    nodes = circuit.nodes
+    scaled = []
+    for vector in (right, left):
+        node_part = vector[: len(nodes)]
+        scaled.append(
+            dict(zip(nodes, node_part / node_part[np.argmax(np.abs(node_part))], strict=True))
+        )
+    return scaled[0], scaled[1]

@@ -1,0 +1,1 @@
+"""The invented demo scenario: Touchstone files of an LNA and a combined power stage."""
