@@ -15,6 +15,7 @@ from typing import Any
 from jinja2 import DictLoader, Environment
 
 from service.reports import style
+from service.reports.outcomes import state_of
 from service.reports.units import format_hz, format_number, format_siemens
 
 PLOT_CAPTIONS = {
@@ -168,11 +169,6 @@ _ENV = Environment(autoescape=True,
                    loader=DictLoader({"base": _BASE, "check": _CHECK, "batch": _BATCH}))
 
 
-def state_of(status: str | None, verdict: str | None) -> str:
-    """What a row shows: the verdict when done, else the status."""
-    return verdict if status == "done" and verdict else (status or "unknown")
-
-
 def _common() -> dict[str, Any]:
     return {"css": _CSS, "css_vars": style.css_variables()}
 
@@ -236,7 +232,7 @@ def check_page(check: Mapping[str, Any], plots: Mapping[str, bytes | None] | Non
     """The HTML page of one check: ``check`` is the API's check JSON (GET /v1/checks/{id}),
     ``plots`` maps plot names to rendered images (``plots.render_plot``)."""
     verdict = check.get("verdict") or {}
-    shown = state_of(check.get("status"), verdict.get("verdict"))
+    shown = state_of(check)
     band = verdict.get("band_hz") or [None, None]
     facts = [
         ("verdict", shown),
@@ -263,7 +259,7 @@ def batch_rows(items: list[Mapping[str, Any]],
                href: Callable[[Mapping[str, Any]], str | None]) -> list[dict[str, Any]]:
     rows = []
     for item in items:
-        state = state_of(item.get("status"), item.get("verdict"))
+        state = state_of(item)
         freq = item.get("first_unstable_frequency_hz")
         count = item.get("unstable_count")
         rows.append({
