@@ -81,6 +81,8 @@ def create_app(config: dict[str, Any] | None = None) -> Flask:
         "API_TITLE": API_TITLE,
         "API_VERSION": API_VERSION,
         "OPENAPI_VERSION": "3.1.0",
+        "OPENAPI_URL_PREFIX": "/",
+        "OPENAPI_JSON_PATH": "openapi.json",
         "API_SPEC_OPTIONS": _SPEC_OPTIONS,
         "MAX_CONTENT_LENGTH": app.config["BALLAST_MAX_BODY_BYTES"],
         "MAX_FORM_MEMORY_SIZE": app.config["BALLAST_MAX_BODY_BYTES"],

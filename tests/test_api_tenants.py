@@ -1,0 +1,104 @@
+"""Tokens and tenants: format, hashing, the embedded default's token, the admin command, and the
+API on both store back ends (tenant isolation, restart of the SQLite store).
+
+Sources: FIPS 180-4 SHA-256 (the stored digest is hashlib's, checked against the standard's
+"abc" test vector); RFC 4648 §5 (base64url alphabet of the token body); the service issue (tokens
+stored only as hashes, created and revoked by an admin command, another tenant's id → 404).
+"""
+
+from __future__ import annotations
+
+import re
+
+import pytest
+
+from service.app import create_app
+from service.auth import (
+    TOKEN_PREFIX,
+    create_token,
+    ensure_token,
+    hash_token,
+    new_token,
+    tenant_of,
+)
+from service.cli import main as ballast
+from service.store.sqlite_store import SqliteStore
+from tests.api_fixtures import FakeQueue, api_config, run_worker, tiny_request
+
+
+def test_tokens_have_the_prefix_and_256_random_bits():
+    tokens = {new_token() for _ in range(100)}
+    assert len(tokens) == 100
+    for token in tokens:
+        # 32 bytes in base64url without padding = 43 characters of A-Z a-z 0-9 - _
+        assert re.fullmatch(TOKEN_PREFIX + r"[A-Za-z0-9_-]{43}", token)
+
+
+def test_only_the_sha256_digest_is_stored(api_store):
+    # FIPS 180-4 appendix B.1 test vector: SHA-256("abc")
+    assert hash_token("abc") == (
+        "ba7816bf8f01cfea414140de5dae2223b00361a396177a9cb410ff61f20015ad")
+    token = create_token(api_store, "acme")
+    (record,) = api_store.list_tokens()
+    assert record.token_hash == hash_token(token) and token not in repr(record)
+    dump = "\n".join(api_store._conn().iterdump())
+    assert token not in dump and hash_token(token) in dump
+    assert tenant_of(api_store, token) == "acme"
+    assert tenant_of(api_store, token[:-1] + ("A" if token[-1] != "A" else "B")) is None
+
+
+def test_ensure_token_uses_the_given_token_or_makes_one(api_store):
+    given = new_token()
+    assert ensure_token(api_store, given) == given
+    assert ensure_token(api_store, given) == given  # idempotent across restarts
+    assert tenant_of(api_store, given) == "local"
+    made = ensure_token(api_store, None)
+    assert made != given and tenant_of(api_store, made) == "local"
+    with pytest.raises(ValueError, match=TOKEN_PREFIX):
+        ensure_token(api_store, "not-a-token")  # a malformed BALLAST_TOKEN is refused
+
+
+def test_admin_command_creates_lists_and_revokes(tmp_path, capsys):
+    url = f"sqlite:///{tmp_path / 'admin.sqlite3'}"
+    assert ballast(["token", "--store", url, "create", "--tenant", "acme"]) == 0
+    token = capsys.readouterr().out.strip()
+    store = SqliteStore(tmp_path / "admin.sqlite3")
+    assert tenant_of(store, token) == "acme"
+    assert ballast(["token", "--store", url, "list"]) == 0
+    listing = capsys.readouterr().out
+    assert hash_token(token)[:12] in listing and "acme" in listing and token not in listing
+    assert ballast(["token", "--store", url, "revoke", hash_token(token)[:12]]) == 0
+    assert tenant_of(store, token) is None
+    assert ballast(["token", "--store", url, "revoke", token]) == 3
+    assert ballast(["token", "--store", url, "create", "--tenant", "bad name!"]) == 3
+
+
+def test_api_on_both_stores_keeps_tenants_apart(store):
+    """The same flow on both back ends (the ``store`` fixture runs SQLite and a real Redis)."""
+    queue = FakeQueue()
+    client = create_app(api_config(store, queue)).test_client()
+    acme = {"Authorization": f"Bearer {create_token(store, 'acme')}"}
+    rival = {"Authorization": f"Bearer {create_token(store, 'rival')}"}
+    batch = {"map": tiny_request(), "variants": [{"label": "a"}, {"label": "b"}]}
+    accepted = client.post("/v1/batches", json=batch, headers=acme).get_json()
+    (verdict, _) = run_worker(store, accepted["check_ids"])
+    first = accepted["check_ids"][0]
+    assert client.get(f"/v1/checks/{first}", headers=acme).get_json()["verdict"] == verdict
+    assert client.get(f"/v1/checks/{first}", headers=rival).status_code == 404
+    assert client.get(f"/v1/batches/{accepted['id']}", headers=rival).status_code == 404
+    counts = client.get(f"/v1/batches/{accepted['id']}", headers=acme).get_json()
+    assert counts["counts_by_status"]["done"] == 2
+
+
+def test_accepted_checks_survive_a_restart_of_the_sqlite_store(tmp_path):
+    path = tmp_path / "restart.sqlite3"
+    store = SqliteStore(path)
+    headers = {"Authorization": f"Bearer {create_token(store, 'acme')}"}
+    client = create_app(api_config(store, FakeQueue())).test_client()
+    check_id = client.post("/v1/checks", json=tiny_request(), headers=headers).get_json()["id"]
+    store.close()
+    reopened = SqliteStore(path)
+    client = create_app(api_config(reopened, FakeQueue())).test_client()
+    body = client.get(f"/v1/checks/{check_id}", headers=headers).get_json()
+    assert body["status"] == "queued"
+    assert reopened.get_request(check_id) == tiny_request()
