@@ -18,6 +18,8 @@ from pathlib import Path
 import numpy as np
 import pytest
 import skrf
+from hypothesis import given, settings
+from hypothesis import strategies as st
 
 from workers.engine.errors import TouchstoneError
 from workers.engine.touchstone import (
@@ -362,6 +364,7 @@ def test_result_is_frozen_and_read_only() -> None:
         "-1.7976931348623157e308",
         "0.1",
         "7e+0005",
+        "0." + "0" * 60 + "123456789",  # longer than the scanner's 64-byte grid
     ],
 )
 def test_number_grammar_matches_python_float(token: str) -> None:
@@ -615,3 +618,33 @@ def test_version1_frequency_limit() -> None:
         parse_touchstone(text, filename="long.s1p")
     assert str(MAX_FREQUENCIES) in caught.value.message
     assert caught.value.line == MAX_FREQUENCIES + 2  # the first record past the limit
+
+
+_VALID_SAMPLES = [
+    "# GHz S RI R 50\n1 0.5 0.1\n2 0.4 -0.2\n",
+    "# MHz S MA R 50\n1 .9 -10 .1 80 .1 80 .8 -20\n2 .8 -20 .2 70 .2 70 .7 -30\n",
+    _v2(*_V2_HEAD, "[Network Data]", "1 0 0", "2 0 0", "[End]"),
+]
+
+
+@settings(derandomize=True, max_examples=300, deadline=None)
+@given(
+    sample=st.sampled_from(_VALID_SAMPLES),
+    cut=st.integers(min_value=0, max_value=200),
+    insert=st.text(alphabet="0123456789.-+eE! \n#[]xRSYZ", max_size=6),
+    drop=st.integers(min_value=0, max_value=4),
+)
+def test_mangled_text_raises_only_touchstone_errors(
+    sample: str, cut: int, insert: str, drop: int
+) -> None:
+    # Robustness: whatever the damage, the reader either returns data or raises TouchstoneError
+    # (never a bare IndexError/ValueError), and a raised error names a line inside the text.
+    position = cut % (len(sample) + 1)
+    text = sample[:position] + insert + sample[position + drop :]
+    try:
+        parsed = parse_touchstone(text)
+    except TouchstoneError as error:
+        assert 0 <= error.line <= text.count("\n") + 1
+    else:
+        assert parsed.values.shape == (parsed.frequency_hz.size, parsed.nports, parsed.nports)
+        assert np.all(np.diff(parsed.frequency_hz) > 0)

@@ -716,7 +716,9 @@ def _scan_numbers(region: str, raw: np.ndarray) -> tuple[np.ndarray, np.ndarray,
     ``raw`` is ``region`` as ASCII bytes (one byte per character). Returns (values, byte offset
     of each token, index of the first token that is not a number or -1). Grammar:
     ``[+-](digits[.digits] | .digits)[(e|E)[+-]digits]``. The mantissa digits are accumulated
-    column by column over a (width, tokens) byte grid, then scaled by 10**exponent.
+    column by column over a (width, tokens) byte grid, then scaled by 10**exponent. Positions
+    and counts are kept in 8-bit integers (a token is at most 64 bytes here; longer ones take
+    the slow path) and big temporaries live in reused scratch buffers.
     """
     is_token = _scratch("edges", raw.size + 2).view(np.int8)
     is_token[0] = is_token[-1] = 0
@@ -726,7 +728,14 @@ def _scan_numbers(region: str, raw: np.ndarray) -> tuple[np.ndarray, np.ndarray,
     count = starts.size
     if count == 0:
         return np.empty(0), starts, -1
-    length = ends - starts
+    i8, u8 = np.int8, np.uint8
+    long_token = _scratch("long", count).view(bool)
+    length = _scratch("length", count).view(i8)
+    index = _scratch("index", 8 * count).view(np.int64)
+    np.subtract(ends, starts, out=index)
+    np.greater(index, _MAX_TOKEN_WIDTH, out=long_token)
+    np.minimum(index, _MAX_TOKEN_WIDTH + 1, out=index)
+    length[:] = index
     width = int(min(length.max(), _MAX_TOKEN_WIDTH))
     padded = _scratch("padded", raw.size + width)
     padded[: raw.size] = raw
@@ -734,13 +743,11 @@ def _scan_numbers(region: str, raw: np.ndarray) -> tuple[np.ndarray, np.ndarray,
     work = _scratch("grid", 8 * width * count).reshape(8, width, count)
     grid, digit_value, scratch, spare = work[0], work[1], work[2], work[3]
     is_digit, is_e, is_dot, is_sign = (work[i].view(bool) for i in range(4, 8))
-    index = np.empty(count, dtype=np.int64)
     for j in range(width):  # byte j of every token, one row of the (width, tokens) grid
         np.add(starts, j, out=index)
         np.take(padded, index, out=grid[j])
-    u8 = np.uint8
-    column = np.arange(1, width + 1, dtype=u8)[:, None]
-    np.less_equal(column, np.minimum(length, 255).astype(u8), out=is_e)
+    column = np.arange(1, width + 1, dtype=i8)[:, None]
+    np.less_equal(column, length, out=is_e)
     grid *= is_e  # blank the bytes after each token
     np.subtract(grid, u8(48), out=digit_value)
     np.less(digit_value, u8(10), out=is_digit)
@@ -755,34 +762,37 @@ def _scan_numbers(region: str, raw: np.ndarray) -> tuple[np.ndarray, np.ndarray,
     known |= is_dot
     known |= is_sign
     np.not_equal(grid, u8(0), out=scratch.view(bool))
-    other = np.greater(scratch.view(bool), known, out=scratch.view(bool)).any(0)
-    n_e = is_e.view(u8).sum(0, dtype=u8)
-    n_dot = is_dot.view(u8).sum(0, dtype=u8)
-    n_sign = is_sign.view(u8).sum(0, dtype=u8)
+    bad = np.greater(scratch.view(bool), known, out=scratch.view(bool)).any(0)
+    bad |= long_token
+    n_e = is_e.view(i8).sum(0, dtype=i8)
+    n_dot = is_dot.view(i8).sum(0, dtype=i8)
+    n_sign = is_sign.view(i8).sum(0, dtype=i8)
     has_e = n_e > 0
     has_dot = n_dot > 0
-    np.multiply(is_e.view(u8), column, out=scratch)
-    e_pos = np.where(has_e, scratch.max(0).astype(np.int64) - 1, length)
-    np.multiply(is_dot.view(u8), column, out=scratch)
-    dot_pos = np.where(has_dot, scratch.max(0).astype(np.int64) - 1, e_pos)
+    position = scratch.view(i8)
+    np.multiply(is_e.view(i8), column, out=position)
+    e_pos = np.where(has_e, position.max(0) - i8(1), length)  # index of 'e', else the length
+    np.multiply(is_dot.view(i8), column, out=position)
+    dot_pos = np.where(has_dot, position.max(0) - i8(1), e_pos)
     lead_sign = is_sign[0].copy()
 
-    mantissa_end = int(min(e_pos.max(), width))
+    mantissa_end = min(int(e_pos.max()), width)
     in_mantissa = spare[:mantissa_end].view(bool)
-    np.less_equal(column[:mantissa_end], np.minimum(e_pos, 255).astype(u8), out=in_mantissa)
+    np.less_equal(column[:mantissa_end], e_pos, out=in_mantissa)
     in_mantissa &= is_digit[:mantissa_end]
     multiplier = np.multiply(in_mantissa.view(u8), u8(9), out=scratch[:mantissa_end])
     multiplier += u8(1)
     addend = np.multiply(digit_value[:mantissa_end], in_mantissa.view(u8), out=spare[:mantissa_end])
-    mantissa = np.zeros(count)
+    values = np.zeros(count)
     for j in range(mantissa_end):
-        np.multiply(mantissa, multiplier[j], out=mantissa)
-        np.add(mantissa, addend[j], out=mantissa)
+        np.multiply(values, multiplier[j], out=values)
+        np.add(values, addend[j], out=values)
 
-    n_mantissa = e_pos - lead_sign - has_dot
-    bad = other | (length > width) | (n_e > 1) | (n_dot > 1)
-    bad |= (dot_pos > e_pos) | (n_mantissa < 1)
-    exponent10 = -np.where(has_dot, e_pos - dot_pos - 1, 0)
+    bad |= n_e > 1
+    bad |= n_dot > 1
+    bad |= dot_pos > e_pos
+    bad |= e_pos - lead_sign - has_dot < 1  # no mantissa digit
+    exponent10 = np.where(has_dot, dot_pos + i8(1) - e_pos, i8(0)).astype(np.int16)
     exponent_sign = np.zeros(count, dtype=bool)
     with_e = np.flatnonzero(has_e)
     if with_e.size:
@@ -790,12 +800,16 @@ def _scan_numbers(region: str, raw: np.ndarray) -> tuple[np.ndarray, np.ndarray,
         exponent10[with_e] += exponent
         exponent_sign[with_e] = signed
         bad[with_e] |= broken
-    bad |= n_sign != lead_sign.astype(np.int64) + exponent_sign
-    bad |= np.abs(exponent10) > 308
-    scale = _POW10[np.minimum(np.abs(exponent10), 308)]
+    bad |= n_sign != lead_sign.view(i8) + exponent_sign.view(i8)
+    magnitude = np.abs(exponent10)
+    bad |= magnitude > 308
+    np.minimum(magnitude, 308, out=magnitude)
+    scale = np.take(_POW10, magnitude, out=_scratch("scale", 8 * count).view(np.float64))
+    negative_exponent = exponent10 < 0
     with np.errstate(over="ignore"):
-        values = np.where(exponent10 >= 0, mantissa * scale, mantissa / scale)
-    values *= 1.0 - 2.0 * (grid[0] == 45)
+        np.divide(values, scale, out=values, where=negative_exponent)
+        np.multiply(values, scale, out=values, where=~negative_exponent)
+    np.negative(values, out=values, where=grid[0] == 45)
 
     for k in np.flatnonzero(bad):
         token = region[starts[k] : ends[k]]
@@ -816,21 +830,20 @@ def _scan_exponents(
     width, count = grid.shape
     if with_e.size == count:
         sub_grid, sub_value, sub_digit = grid, digit_value, is_digit
+        after_e = e_pos.astype(np.int64) + 1
     else:
-        sub_grid, sub_value, sub_digit = (
-            grid[:, with_e],
-            digit_value[:, with_e],
-            is_digit[:, with_e],
-        )
+        sub_grid = grid[:, with_e]
+        sub_value = digit_value[:, with_e]
+        sub_digit = is_digit[:, with_e]
+        after_e = e_pos[with_e].astype(np.int64) + 1
     columns = np.arange(with_e.size)
-    after_e = e_pos[with_e] + 1
     char_after = sub_grid[np.minimum(after_e, width - 1), columns] * (after_e < width)
     signed = (char_after == 43) | (char_after == 45)
     first_digit = after_e + signed
     in_exponent = (np.arange(width)[:, None] >= first_digit) & (sub_grid != 0)
     n_digits = in_exponent.sum(0)
     broken = (n_digits < 1) | (n_digits > 4) | ~(sub_digit | ~in_exponent).all(0)
-    exponent = np.zeros(with_e.size, dtype=np.int64)
+    exponent = np.zeros(with_e.size, dtype=np.int16)
     for j in range(int(first_digit.min()), width):
         exponent = np.where(in_exponent[j], exponent * 10 + sub_value[j], exponent)
     exponent = np.where(char_after == 45, -exponent, exponent)
