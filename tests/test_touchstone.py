@@ -334,6 +334,15 @@ def test_line_endings_and_comments_anywhere() -> None:
     np.testing.assert_array_equal(parsed.values[:, 0, 0], [0.5, 0.25])
 
 
+def test_per_port_resistances_on_the_option_line() -> None:
+    # Per-port R values on the option line (TS2.1's "Version 1.1" syntax, from the IBIS TSIRD 5.1
+    # issue text: "R" then one resistance per port); S data are returned unchanged.
+    parsed = parse_touchstone("# GHz S RI R 50 75\n1 0.1 0 0.9 0 0.9 0 0.2 0\n")
+    assert parsed.z0_ohm.tolist() == [50.0, 75.0]
+    with pytest.raises(TouchstoneError, match="different R per port"):
+        parse_touchstone("# GHz Z RI R 50 75\n1 0.1 0 0.9 0 0.9 0 0.2 0\n")
+
+
 def test_later_option_line_in_version1_is_ignored() -> None:
     parsed = parse_touchstone("# GHz S RI R 50\n1 0.5 0\n# MHz Z MA R 75\n2 0.25 0\n")
     assert parsed.parameter == "S" and parsed.frequency_hz.tolist() == [1e9, 2e9]
