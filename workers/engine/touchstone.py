@@ -109,7 +109,8 @@ class _Text:
     def __init__(self, body: str) -> None:
         self.body = body
         self.raw = np.frombuffer(body.encode("ascii", "replace"), dtype=np.uint8)
-        self.newlines = np.flatnonzero(self.raw == 10)
+        is_newline = _scratch("newlines", self.raw.size).view(bool)
+        self.newlines = np.flatnonzero(np.equal(self.raw, 10, out=is_newline))
         self.line_start = np.concatenate(([0], self.newlines + 1))
 
     def __len__(self) -> int:
@@ -726,7 +727,8 @@ def _scan_numbers(region: str, raw: np.ndarray) -> tuple[np.ndarray, np.ndarray,
     is_token = _scratch("edges", raw.size + 2).view(np.int8)
     is_token[0] = is_token[-1] = 0
     np.greater(raw, 32, out=is_token[1:-1].view(bool))
-    edges = np.flatnonzero(is_token[1:] != is_token[:-1])
+    changes = _scratch("changes", raw.size + 1).view(bool)
+    edges = np.flatnonzero(np.not_equal(is_token[1:], is_token[:-1], out=changes))
     starts, ends = edges[0::2], edges[1::2]
     count = starts.size
     if count == 0:
