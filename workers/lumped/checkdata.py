@@ -119,14 +119,19 @@ def check_request(
 
 
 def to_touchstone(
-    frequency_hz: np.ndarray, s: np.ndarray, z0: float = 50.0, comments: Sequence[str] = ()
+    frequency_hz: np.ndarray,
+    s: np.ndarray,
+    z0: float = 50.0,
+    comments: Sequence[str] = (),
+    significant_digits: int = 13,
 ) -> str:
     """Touchstone v1 text, S parameters in RI format, frequency in Hz, one reference z0.
 
     Layout per the Touchstone File Format Specification v1.1 (IBIS Open Forum): 2-port lines
     hold N11 N21 N12 N22; 3 or more ports write one matrix row per line group, at most four
-    complex pairs per line, each frequency's block starting with the frequency. Values carry 10
-    significant digits.
+    complex pairs per line, each frequency's block starting with the frequency. Values carry
+    ``significant_digits`` digits (13 by default: rounding S to fewer digits visibly disturbs
+    rational fits of nearly lossless data).
     """
     s = np.asarray(s, dtype=complex)
     f = np.asarray(frequency_hz, dtype=float)
@@ -138,6 +143,9 @@ def to_touchstone(
     lines = [f"! {text}" for text in comments]
     lines.append(f"# HZ S RI R {z0:g}")
 
+    digits = int(significant_digits) - 1
+    if digits < 0:
+        raise ValueError("significant_digits must be at least 1")
     pairs = np.stack([s.real, s.imag], axis=-1)  # (F, N, N, 2)
     if n == 2:
         pairs = np.swapaxes(pairs, 1, 2)  # v1 2-port order: N11 N21 N12 N22
@@ -147,7 +155,7 @@ def to_touchstone(
     for head, block in zip(heads, rows, strict=True):
         for row_index, row in enumerate(block):
             for start in range(0, len(row), 8):  # at most four complex pairs per line
-                numbers = " ".join(f"{value: .9e}" for value in row[start : start + 8])
+                numbers = " ".join(f"{value: .{digits}e}" for value in row[start : start + 8])
                 first = row_index == 0 and start == 0
                 lines.append(f"{head if first else pad} {numbers}")
     return "\n".join(lines) + "\n"
