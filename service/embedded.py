@@ -20,6 +20,7 @@ import sys
 import time
 from collections.abc import Callable
 from dataclasses import dataclass, field
+from pathlib import Path
 
 import requests
 
@@ -63,13 +64,17 @@ class Child:
     name: str
     argv: list[str]
     env: dict[str, str]
+    log_path: Path
     process: subprocess.Popen[bytes] | None = None
     restarts: list[float] = field(default_factory=list)
 
     def start(self) -> None:
-        self.process = subprocess.Popen(
-            self.argv, env=self.env, preexec_fn=_die_with_parent
-        )
+        self.log_path.parent.mkdir(parents=True, exist_ok=True)
+        with self.log_path.open("ab") as log:  # the child keeps its own descriptor
+            self.process = subprocess.Popen(
+                self.argv, env=self.env, stdin=subprocess.DEVNULL, stdout=log,
+                stderr=subprocess.STDOUT, preexec_fn=_die_with_parent,
+            )
 
     def alive(self) -> bool:
         return self.process is not None and self.process.poll() is None
@@ -126,16 +131,18 @@ def child_processes(config: RuntimeConfig, options: ServeOptions) -> list[Child]
     env = dict(os.environ)
     env["BALLAST_DATA_DIR"] = str(config.data_dir)
     env.setdefault("PYTHONUNBUFFERED", "1")
+    logs = config.data_dir / "logs"
     children = []
     if options.worker_processes > 0:
         name = f"ballast-{config.layout}-{os.getpid()}@{os.uname().nodename}"
-        children.append(Child("worker", worker_argv(options.worker_processes, name), env))
+        children.append(Child("worker", worker_argv(options.worker_processes, name), env,
+                              logs / "worker.log"))
     api_argv = [
         sys.executable, "-m", "gunicorn", "-c", "python:service.gunicorn_conf",
         "--bind", f"{options.host}:{options.port}", "--workers", str(options.api_processes),
         "service.app:create_app()",
     ]
-    children.append(Child("api", api_argv, env))
+    children.append(Child("api", api_argv, env, logs / "api.log"))
     return children
 
 
@@ -215,11 +222,15 @@ def serve(options: ServeOptions, out: Callable[[str], None] = print) -> int:
         supervisor.start()
         if not wait_until_healthy(options.base_url, options.ready_timeout_s, supervisor.all_alive):
             err(f"ballast: the API did not come up on {options.base_url} (port in use?)")
+            for child in supervisor.children:
+                tail = child.log_path.read_text(errors="replace").splitlines()[-15:]
+                err(f"--- {child.log_path} (last lines) ---\n" + "\n".join(tail))
             return 3
         where = (f"store and broker in {config.data_dir}" if config.layout == "embedded"
                  else f"Redis at {config.redis_url}")
         out(f"ballast is serving at {options.base_url} ({config.layout}: {where})")
         out(f"token: {token}")
+        out(f"logs: {config.data_dir / 'logs'}")
         out(f"try: curl -H 'Authorization: Bearer {token}' {options.base_url}/v1/batches")
         if options.demo:
             from service.demo_run import run_demo

@@ -28,3 +28,6 @@ errorlog = "-"
 loglevel = os.environ.get("BALLAST_LOG_LEVEL", "info").lower()
 # Each worker opens its own store and broker connections after the fork.
 preload_app = False
+# No runtime control socket (gunicorn >= 25): ballast does not use it, and several API processes
+# on one host would otherwise share the default path.
+control_socket_disable = True

@@ -9,9 +9,13 @@ hiccup delays a check but cannot lose it.
 from __future__ import annotations
 
 import logging
+from typing import TYPE_CHECKING
 
 from service.runtime_config import CHECK_QUEUE, RUN_CHECK_TASK, load_config
 from service.worker_heartbeat import live_workers
+
+if TYPE_CHECKING:
+    from celery import Celery
 
 log = logging.getLogger("ballast.queue")
 
@@ -19,19 +23,24 @@ _PUBLISH_RETRY = {"max_retries": 2, "interval_start": 0.0, "interval_step": 0.2,
                   "interval_max": 0.5}
 
 
+def publish(celery_app: Celery, check_ids: list[str]) -> None:
+    """Publish one ``ballast.run_check`` message per id through ``celery_app`` (one connection)."""
+    with celery_app.producer_or_acquire() as producer:
+        for check_id in check_ids:
+            celery_app.send_task(
+                RUN_CHECK_TASK, args=[check_id], queue=CHECK_QUEUE, producer=producer,
+                retry=True, retry_policy=_PUBLISH_RETRY, ignore_result=True,
+            )
+
+
 def enqueue(check_ids: list[str]) -> None:
-    """Publish one ``ballast.run_check`` message per id (one broker connection for the lot)."""
+    """Hand the (already stored, ``queued``) checks to the workers; never raises for the broker."""
     if not check_ids:
         return
     from workers.celery_app import app  # celery is only imported by processes that publish
 
     try:
-        with app.producer_or_acquire() as producer:
-            for check_id in check_ids:
-                app.send_task(
-                    RUN_CHECK_TASK, args=[check_id], queue=CHECK_QUEUE, producer=producer,
-                    retry=True, retry_policy=_PUBLISH_RETRY, ignore_result=True,
-                )
+        publish(app, check_ids)
     except Exception as exc:  # the reconciler delivers what was stored but not published
         log.warning("could not publish %d check(s) now (%s); the reconciler will", len(check_ids),
                     exc)

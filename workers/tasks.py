@@ -20,6 +20,7 @@ from billiard.exceptions import SoftTimeLimitExceeded
 from celery.worker.request import Request
 from marshmallow import ValidationError
 
+from service.runner import run_check_json  # loaded by the worker before it forks its pool
 from service.runtime_config import RUN_CHECK_TASK
 from workers.celery_app import app, config
 from workers.store_access import process_store
@@ -83,12 +84,6 @@ def _test_hooks(label: str | None) -> None:
             time.sleep(pause_s)
 
 
-def _run_engine(request: dict[str, Any]) -> dict[str, Any]:
-    from service.runner import run_check_json  # imported lazily: the API never loads the engine
-
-    return run_check_json(request)
-
-
 class CheckRequest(Request):
     """Celery's request object, plus: a hard time-out marks the check ``failed`` with the reason.
 
@@ -132,7 +127,7 @@ def run_check(self: Any, check_id: str) -> str:
         return "failed"
     try:
         _test_hooks(record.label)
-        verdict = _run_engine(request)
+        verdict = run_check_json(request)
     except SoftTimeLimitExceeded:
         reason = (
             f"time limit exceeded: the check ran longer than {config.soft_time_limit_s:g} s"

@@ -24,7 +24,8 @@ def register(subparsers: Any) -> None:
                     "BALLAST_DATA_DIR (default ./var); BALLAST_REDIS_URL switches to Redis.",
     )
     serve.add_argument("--host", default="127.0.0.1", help="address to listen on")
-    serve.add_argument("--port", type=int, default=8000, help="port to listen on (8000)")
+    serve.add_argument("--port", type=int, default=int(os.environ.get("BALLAST_PORT") or 8000),
+                       help="port to listen on (default: BALLAST_PORT or 8000)")
     serve.add_argument("--workers", type=_positive, default=min(2, os.cpu_count() or 1),
                        help="worker processes running checks (0: accept only)")
     serve.add_argument("--api-processes", type=_positive, default=2,

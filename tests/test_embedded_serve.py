@@ -1,0 +1,162 @@
+"""The embedded default, as a user runs it: ``ballast serve --demo`` and a restart that keeps work.
+
+No Redis here: the store and the broker are SQLite files in a temporary data directory. The
+reference for each printed verdict is ``service.runner.run_check_json`` on the same Touchstone
+file and map (the engine's own answer), and for the restart the same verdicts after the service
+came back.
+"""
+
+from __future__ import annotations
+
+import json
+import os
+import queue
+import re
+import signal
+import subprocess
+import sys
+import threading
+import time
+from pathlib import Path
+
+import pytest
+
+from service.client import BallastClient, ClientConfig
+from service.runner import run_check_json
+from tests.queue_harness import free_port
+from tests.queue_variants import variants
+
+pytestmark = pytest.mark.integration
+
+BALLAST = str(Path(sys.executable).with_name("ballast"))
+DEMO_COMMAND = [BALLAST, "serve", "--demo"]  # the README's demo command, after installing
+
+
+def serve_env(data_dir: Path, port: int) -> dict[str, str]:
+    env = {k: v for k, v in os.environ.items() if not k.startswith("BALLAST_")}
+    env.update({"BALLAST_DATA_DIR": str(data_dir), "BALLAST_PORT": str(port),
+                "PYTHONUNBUFFERED": "1"})
+    return env
+
+
+class Served:
+    """A ``ballast serve`` child whose stdout is read line by line (by a reader thread)."""
+
+    def __init__(self, argv: list[str], env: dict[str, str]) -> None:
+        self.stderr_path = Path(env["BALLAST_DATA_DIR"]).with_name(f"serve-{time.time_ns()}.err")
+        with self.stderr_path.open("w") as stderr:  # a file: a full pipe would stall the child
+            self.process = subprocess.Popen(argv, env=env, stdout=subprocess.PIPE, stderr=stderr,
+                                            text=True)
+        self.lines: list[str] = []
+        self._queue: queue.Queue[str | None] = queue.Queue()
+        self._reader = threading.Thread(target=self._read, daemon=True)
+        self._reader.start()
+
+    def _read(self) -> None:
+        assert self.process.stdout is not None
+        for line in self.process.stdout:
+            self._queue.put(line.rstrip("\n"))
+        self._queue.put(None)
+
+    def read_until(self, pattern: str, timeout_s: float) -> re.Match[str]:
+        deadline = time.monotonic() + timeout_s
+        while time.monotonic() < deadline:
+            try:
+                line = self._queue.get(timeout=1.0)
+            except queue.Empty:
+                continue
+            if line is None:
+                break
+            self.lines.append(line)
+            match = re.search(pattern, line)
+            if match:
+                return match
+        raise AssertionError(f"no line matching {pattern!r}; stdout so far:\n"
+                             + "\n".join(self.lines) + "\nstderr:\n" + self.stderr_now())
+
+    def stderr_now(self) -> str:
+        return self.stderr_path.read_text(errors="replace")
+
+    def interrupt(self, timeout_s: float = 60) -> int:
+        self.process.send_signal(signal.SIGINT)
+        code = self.process.wait(timeout=timeout_s)
+        self._drain()
+        return code
+
+    def kill(self) -> None:
+        if self.process.poll() is None:
+            self.process.kill()
+            self.process.wait()
+        self._drain()
+
+    def _drain(self) -> None:
+        """Keep the remaining output, then close the pipes."""
+        self._reader.join(timeout=10)
+        while True:
+            try:
+                line = self._queue.get_nowait()
+            except queue.Empty:
+                break
+            if line is not None:
+                self.lines.append(line)
+        if self.process.stdout is not None and not self.process.stdout.closed:
+            self.process.stdout.close()
+
+
+def test_readme_demo_command_prints_the_engines_verdicts(tmp_path: Path):
+    port = free_port()
+    served = Served(DEMO_COMMAND, serve_env(tmp_path / "data", port))
+    try:
+        url = served.read_until(r"serving at (http://\S+)", 120).group(1)
+        assert url == f"http://127.0.0.1:{port}"
+        served.read_until(r"^token: blst_[A-Za-z0-9_-]{43}$", 5)
+        served.read_until(r"^demo finished: (\d+) checks", 1500)
+        assert served.interrupt() == 0
+    finally:
+        served.kill()
+    folder = tmp_path / "data" / "demo"
+    files = sorted(folder.glob("*.s*p"))
+    assert files, "the demo wrote no Touchstone files"
+    printed = {}
+    for line in served.lines:
+        match = re.match(r"^\s+(\S+)\s+(stable|unstable|indeterminate|failed)\b", line)
+        if match:
+            printed[match.group(1)] = match.group(2)
+    assert sorted(printed) == sorted(p.name for p in files)
+    for path in files:
+        family = path.name.split("_")[0]
+        mapping = json.loads((folder / f"{family}_map.json").read_text())
+        expected = run_check_json({**mapping, "touchstone": path.read_text()})["verdict"]
+        assert printed[path.name] == expected, path.name
+
+
+def test_accepted_checks_survive_a_restart(tmp_path: Path):
+    data_dir = tmp_path / "data"
+    port = free_port()
+    env = serve_env(data_dir, port)
+    batch = variants(3, points=101)
+    accept_only = Served([BALLAST, "serve", "--workers", "0"], env)
+    try:
+        accept_only.read_until(r"serving at", 120)
+        token = accept_only.read_until(r"^token: (\S+)$", 5).group(1)
+        client = BallastClient(ClientConfig(url=f"http://127.0.0.1:{port}", token=token))
+        accepted = client.submit_batch(None, [{"label": v.label, **v.request} for v in batch])
+        assert client.get_batch(accepted["id"])["counts_by_status"]["queued"] == 3
+        assert accept_only.interrupt() == 0
+    finally:
+        accept_only.kill()
+
+    restarted = Served([BALLAST, "serve"], env)
+    try:
+        restarted.read_until(r"serving at", 120)
+        assert restarted.read_until(r"^token: (\S+)$", 5).group(1) == token  # kept in data dir
+        client.wait_batch(accepted["id"], timeout_s=300)
+        items = {item["label"]: item for item in client.iter_batch_checks(accepted["id"])}
+        for check_id, variant in zip(accepted["check_ids"], batch, strict=True):
+            check = client.get_check(check_id)
+            assert check["status"] == "done", check
+            assert check["verdict"] == json.loads(json.dumps(run_check_json(variant.request)))
+            assert items[variant.label]["status"] == "done"
+        assert restarted.interrupt() == 0
+    finally:
+        restarted.kill()

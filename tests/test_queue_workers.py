@@ -1,0 +1,209 @@
+"""Real Celery workers on a private Redis: batches, killed workers, crashing checks, time limits.
+
+The reference for every verdict is ``service.runner.run_check_json`` run in the test process:
+the queue must hand back exactly what the engine computes. The failure semantics tested are
+Celery's documented late-acknowledgement behaviour (docs.celeryq.dev, configuration:
+task_acks_late, task_reject_on_worker_lost, task_time_limit / task_soft_time_limit) and the
+store's claim contract (service/store/base.py).
+"""
+
+from __future__ import annotations
+
+import json
+from pathlib import Path
+
+import pytest
+
+from service.runner import run_check_json
+from service.runtime_config import CHECK_QUEUE, RUN_CHECK_TASK, load_config
+from service.store import NewCheck, open_store
+from tests.queue_harness import (
+    REDIS_SERVER,
+    RedisServer,
+    Worker,
+    all_final,
+    statuses,
+    submit,
+    wait_until,
+    worker_env,
+)
+from tests.queue_variants import variants
+from workers.celery_app import make_app
+
+pytestmark = [
+    pytest.mark.integration,
+    pytest.mark.skipif(REDIS_SERVER is None, reason="needs redis-server"),
+]
+
+# Short limits for the failure tests: lease = hard + 5 s = 8 s (service.runtime_config).
+SHORT_LIMITS = {"BALLAST_SOFT_TIME_LIMIT_S": "2", "BALLAST_HARD_TIME_LIMIT_S": "3"}
+
+
+@pytest.fixture
+def redis_server(tmp_path: Path):
+    server = RedisServer(tmp_path / "redis")
+    server.start()
+    yield server
+    server.stop()
+
+
+@pytest.fixture
+def store(redis_server: RedisServer):
+    store = open_store(redis_server.url)
+    yield store
+    store.close()
+
+
+@pytest.fixture
+def workers(tmp_path: Path):
+    started: list[Worker] = []
+
+    def start(env: dict[str, str], concurrency: int = 1, name: str = "w") -> Worker:
+        worker = Worker(tmp_path, env, concurrency, name).start()
+        started.append(worker)
+        return worker
+
+    yield start
+    for worker in started:
+        worker.stop()
+
+
+def engine_verdict(request: dict) -> dict:
+    """The engine's own verdict, through JSON as the store keeps it."""
+    return json.loads(json.dumps(run_check_json(request)))
+
+
+def test_batch_of_200_variants_matches_the_engine(redis_server, store, workers, tmp_path):
+    env = worker_env(redis_server.url, tmp_path)
+    workers(env, concurrency=2)
+    batch = variants(200, points=101)
+    ids = submit(store, env, [(v.label, v.request) for v in batch])
+    wait_until(lambda: all_final(store, ids), 300, "the batch to finish", every_s=0.5)
+    assert statuses(store, ids) == {"done": 200}
+    for check_id, variant in zip(ids, batch, strict=True):
+        record = store.get_check_any(check_id)
+        assert record is not None and record.label == variant.label
+        assert record.attempts == 1
+        assert record.verdict == engine_verdict(variant.request), variant.label
+
+
+def _holder(pool: list[Worker], check_id: str, store) -> Worker | None:
+    """The worker whose log shows it received the task of ``check_id`` while it runs."""
+    if store.get_check_any(check_id).status != "running":
+        return None
+    holders = [w for w in pool if "received" in w.log_text()]
+    return holders[0] if len(holders) == 1 else None
+
+
+def test_killed_worker_check_completes_on_another(redis_server, store, workers, tmp_path):
+    env = worker_env(redis_server.url, tmp_path, BALLAST_SOFT_TIME_LIMIT_S="5",
+                     BALLAST_HARD_TIME_LIMIT_S="6", BALLAST_TEST_PAUSE_LABEL="slow",
+                     BALLAST_TEST_PAUSE_S="3")
+    pool = [workers(env, name="first"), workers(env, name="second")]
+    (variant,) = variants(1, points=101)
+    (check_id,) = submit(store, env, [("slow", variant.request)])
+    victim = wait_until(lambda: _holder(pool, check_id, store), 30, "a worker to start the check")
+    victim.kill9()  # mid-check: the message is unacknowledged and the lease still runs
+    survivor = next(w for w in pool if w is not victim)
+    record = wait_until(
+        lambda: (r := store.get_check_any(check_id)).status in ("done", "failed") and r, 60,
+        "the check to finish on the other worker")
+    assert record.status == "done", record.error
+    assert record.attempts == 2
+    assert record.verdict == engine_verdict(variant.request)
+    assert survivor.alive() and "succeeded" in survivor.log_text()
+
+
+def test_check_that_kills_its_worker_every_time_fails_after_max_attempts(
+        redis_server, store, workers, tmp_path):
+    env = worker_env(redis_server.url, tmp_path, **SHORT_LIMITS, BALLAST_MAX_ATTEMPTS="2",
+                     BALLAST_TEST_CRASH_LABEL="poison")
+    worker = workers(env)
+    good, bad = variants(2, points=101)
+    ids = submit(store, env, [("poison", bad.request), ("fine", good.request)])
+    wait_until(lambda: all_final(store, ids), 90, "both checks to end")
+    poison, fine = (store.get_check_any(i) for i in ids)
+    assert poison.status == "failed"
+    assert poison.attempts == 2
+    assert poison.error
+    assert fine.status == "done"
+    assert fine.verdict == engine_verdict(good.request)
+    assert worker.alive()  # Celery replaced the pool process each time
+    assert worker.log_text().count("WorkerLostError") >= 2
+
+
+def test_soft_time_limit_fails_the_check_with_the_reason(redis_server, store, workers, tmp_path):
+    env = worker_env(redis_server.url, tmp_path, **SHORT_LIMITS, BALLAST_TEST_PAUSE_LABEL="slow",
+                     BALLAST_TEST_PAUSE_S="10")
+    workers(env)
+    (variant,) = variants(1, points=101)
+    (check_id,) = submit(store, env, [("slow", variant.request)])
+    record = wait_until(lambda: (r := store.get_check_any(check_id)).status == "failed" and r, 30,
+                        "the time-out")
+    assert "time limit" in record.error and "2 s" in record.error
+    assert record.attempts == 1
+
+
+def test_hard_time_limit_fails_the_check_with_the_reason(redis_server, store, workers, tmp_path):
+    env = worker_env(redis_server.url, tmp_path, **SHORT_LIMITS, BALLAST_TEST_PAUSE_LABEL="stuck",
+                     BALLAST_TEST_PAUSE_S="10", BALLAST_TEST_PAUSE_STUBBORN="1")
+    worker = workers(env)
+    (variant,) = variants(1, points=101)
+    (check_id,) = submit(store, env, [("stuck", variant.request)])
+    record = wait_until(lambda: (r := store.get_check_any(check_id)).status == "failed" and r, 30,
+                        "the hard time-out")
+    assert "hard limit" in record.error and "3 s" in record.error
+    assert worker.alive()
+
+
+def test_dead_worker_message_restored_by_kombu_within_seconds(
+        redis_server, store, workers, tmp_path):
+    """With the reconciler out of the way, the broker alone must bring the message back: the
+    visibility timeout (lease + 5 s = 13 s here) plus the tuned 1 s restore interval, where stock
+    kombu 5.6 checks only about every 100 s (workers/redis_transport.py)."""
+    env = worker_env(redis_server.url, tmp_path, **SHORT_LIMITS, BALLAST_TEST_PAUSE_LABEL="slow",
+                     BALLAST_TEST_PAUSE_S="1.5", BALLAST_RECONCILE_INTERVAL_S="3600")
+    first = workers(env, name="first")
+    (variant,) = variants(1, points=101)
+    (check_id,) = submit(store, env, [("slow", variant.request)])
+    wait_until(lambda: store.get_check_any(check_id).status == "running", 30, "the check to start")
+    first.kill9()
+    workers(env, name="second")
+    record = wait_until(
+        lambda: (r := store.get_check_any(check_id)).status == "done" and r, 45,
+        "kombu to restore the unacknowledged message")
+    assert record.attempts == 2
+
+
+def test_redis_restart_loses_no_accepted_check(redis_server, store, workers, tmp_path):
+    """Celery 5.7.0 workers were seen to exit ("Unrecoverable error … 'NoneType' object has no
+    attribute 'hostname'") when Redis restarted under a late-acknowledged task; the pinned
+    5.6.3 must reconnect and finish everything that was accepted."""
+    env = worker_env(redis_server.url, tmp_path)
+    worker = workers(env, concurrency=2)
+    batch = variants(80, points=201)
+    ids = submit(store, env, [(v.label, v.request) for v in batch])
+    wait_until(lambda: sum(statuses(store, ids).get(s, 0) for s in ("done", "failed")) >= 5, 120,
+               "the first checks")
+    redis_server.restart(down_s=2.0)
+    wait_until(lambda: all_final(store, ids), 240, "the batch to finish after the restart",
+               every_s=0.5)
+    assert statuses(store, ids) == {"done": 80}
+    for check_id, variant in zip(ids, batch, strict=True):
+        assert store.get_check_any(check_id).verdict == engine_verdict(variant.request)
+    assert worker.alive(), worker.log_tail()
+    assert "Unrecoverable error" not in worker.log_text()
+
+
+def test_pickle_message_is_refused(redis_server, store, workers, tmp_path):
+    """accept_content=["json"]: a pickled message is rejected unread (kombu ContentDisallowed)."""
+    env = worker_env(redis_server.url, tmp_path)
+    worker = workers(env)
+    (variant,) = variants(1, points=101)
+    _, (check_id,) = store.create_checks("t", [NewCheck(variant.request, label="pickled")])
+    app = make_app(load_config(env))
+    app.send_task(RUN_CHECK_TASK, args=[check_id], queue=CHECK_QUEUE, serializer="pickle")
+    wait_until(lambda: "pickle" in worker.log_text(), 30, "the worker to refuse the message")
+    record = store.get_check_any(check_id)
+    assert record.status == "queued" and record.attempts == 0
+    app.close()
