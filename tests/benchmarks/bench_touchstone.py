@@ -4,7 +4,7 @@ Writes a seeded random 4-port, 2001-point S-parameter file (Touchstone 1.0, RI, 
 scikit-rf) to a temporary folder and times the readers in interleaved rounds (time.perf_counter),
 so that machine load hits all of them alike. Prints the best time of each, their ratio and the
 median per-round ratio. Goal: ballast at least 3x faster than skrf.Network(file).
-Run: python -m benchmarks.bench_touchstone
+Run: python -m tests.benchmarks.bench_touchstone
 """
 
 from __future__ import annotations

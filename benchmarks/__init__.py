@@ -1,1 +1,0 @@
-"""Speed benchmarks: commands that print ratios (never run as tests)."""
