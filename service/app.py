@@ -100,6 +100,11 @@ def create_app(config: dict[str, Any] | None = None) -> Flask:
     api = ProblemApi(app)
     for blueprint in BLUEPRINTS:
         api.register_blueprint(blueprint)
+    # --- report pages and plots (service.api.reports; images and HTML, outside the OpenAPI doc)
+    from service.api.reports import blp as reports_blueprint
+
+    app.register_blueprint(reports_blueprint)
+    # ---
     app.wsgi_app = BodyLimitMiddleware(  # type: ignore[method-assign]
         app.wsgi_app, int(app.config["BALLAST_MAX_BODY_BYTES"]))
     return app

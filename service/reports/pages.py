@@ -98,6 +98,9 @@ _SORT_JS = """
  }
  Array.prototype.forEach.call(table.querySelectorAll('th.sortable'),function(th){
   th.addEventListener('click',function(){sortBy(th);});});
+ var m=/sort=([a-z]+)(-desc)?/.exec(location.hash||'');
+ if(m){var th=table.querySelector('th[data-name="'+m[1]+'"]');
+  if(th){sortBy(th); if(m[2]) sortBy(th);}}
 })();
 """
 
@@ -146,14 +149,14 @@ _BATCH = """{% extends "base" %}{% block main %}
 <div class="tally" role="img" aria-label="verdict tally">{% for t in tally %}<div title="{{ t.name }}: {{ t.count }}" style="width:{{ t.percent }}%;background:{{ t.colour }}"></div>{% endfor %}</div>
 <div class="legend">{% for t in tally %}<span><span class="dot" style="background:{{ t.colour }}"></span>{{ t.name }} {{ t.count }}</span>{% endfor %}</div>
 <h2>variants</h2>
-<p class="note">Click a column heading to sort; click again to reverse. Worst verdicts come first.</p>
+<p class="note">Click a column heading to sort; click again to reverse. Worst verdicts come first. A link ending in #sort=frequency (or verdict, node, variant, unstable, status; add -desc to reverse) opens the table sorted.</p>
 <table id="variants"><thead><tr>
-<th class="sortable" data-kind="text">variant</th>
-<th class="sortable" data-kind="num">verdict</th>
-<th class="sortable num" data-kind="num">unstable</th>
-<th class="sortable num" data-kind="num">first frequency</th>
-<th class="sortable" data-kind="text">node</th>
-<th class="sortable" data-kind="text">status</th></tr></thead><tbody>
+<th class="sortable" data-kind="text" data-name="variant">variant</th>
+<th class="sortable" data-kind="num" data-name="verdict">verdict</th>
+<th class="sortable num" data-kind="num" data-name="unstable">unstable</th>
+<th class="sortable num" data-kind="num" data-name="frequency">first frequency</th>
+<th class="sortable" data-kind="text" data-name="node">node</th>
+<th class="sortable" data-kind="text" data-name="status">status</th></tr></thead><tbody>
 {% for r in rows %}<tr class="v-{{ r.state }}" data-order="{{ loop.index0 }}">
 <td data-key="{{ r.name }}">{% if r.href %}<a href="{{ r.href }}">{{ r.name }}</a>{% else %}{{ r.name }}{% endif %}</td>
 <td data-key="{{ r.severity }}"><span class="dot" style="background:{{ r.colour }}"></span>{{ r.state }}</td>

@@ -1,0 +1,149 @@
+"""Report pages and plots of finished checks, served by the API (same bearer tokens).
+
+    GET /v1/checks/{id}/plots/{name}.svg | .png   name: ndf, admittance, factors, circles
+    GET /v1/checks/{id}/report                    HTML page, plots embedded (?plots=none: without)
+    GET /v1/batches/{id}/report                   HTML page: sortable table of the batch's checks
+
+A plain Flask blueprint: the bodies are images and HTML, so these routes are kept out of the
+JSON API's OpenAPI document. Errors are problem+json like the rest of the API. Plots are
+recomputed from the stored request (``service.reports.data``) and drawn on demand; a small
+per-process cache keeps the last few, since a finished check never changes.
+"""
+
+from __future__ import annotations
+
+import threading
+from collections import OrderedDict
+from typing import Any
+
+from flask import Blueprint, Response, request, url_for
+
+from service.api.common import check_view
+from service.api.tenancy import authenticate, store, tenant
+from service.problems import abort_problem
+
+blp = Blueprint("reports", __name__)
+blp.before_request(authenticate)
+
+PLOT_NAMES = ("ndf", "admittance", "factors", "circles")
+IMAGE_TYPES = {"svg": "image/svg+xml", "png": "image/png"}
+CACHE_SIZE = 64
+MAX_BATCH_PAGE_CHECKS = 10_000
+
+
+class _ImageCache:
+    """Thread-safe LRU of rendered plots keyed by (check id, name, format)."""
+
+    def __init__(self, size: int) -> None:
+        self.size = size
+        self._items: OrderedDict[tuple[str, str, str], bytes | None] = OrderedDict()
+        self._lock = threading.Lock()
+
+    def get(self, key: tuple[str, str, str]) -> tuple[bool, bytes | None]:
+        with self._lock:
+            if key in self._items:
+                self._items.move_to_end(key)
+                return True, self._items[key]
+        return False, None
+
+    def put(self, key: tuple[str, str, str], value: bytes | None) -> None:
+        with self._lock:
+            self._items[key] = value
+            self._items.move_to_end(key)
+            while len(self._items) > self.size:
+                self._items.popitem(last=False)
+
+
+_CACHE = _ImageCache(CACHE_SIZE)
+
+
+def _done_check(check_id: str) -> tuple[Any, dict[str, Any]]:
+    """The tenant's finished check and its stored request; 404 unknown, 409 not done."""
+    record = store().get_check(tenant(), check_id)
+    if record is None:
+        abort_problem(404, f"no check {check_id!r}", kind="not-found")
+    if record.status != "done" or not record.verdict:
+        abort_problem(409, f"check {check_id!r} is {record.status}; plots exist once it is done",
+                      kind="not-done", headers={"Retry-After": "2"})
+    payload = store().get_request(check_id)
+    if payload is None:
+        abort_problem(404, f"the request of check {check_id!r} is no longer stored",
+                      kind="not-found")
+    return record, payload
+
+
+def _plots(check_id: str, names: tuple[str, ...], fmt: str) -> dict[str, bytes | None]:
+    """Rendered plots (from the cache when possible); matplotlib is imported on first use."""
+    found: dict[str, bytes | None] = {}
+    missing = []
+    for name in names:
+        hit, image = _CACHE.get((check_id, name, fmt))
+        if hit:
+            found[name] = image
+        else:
+            missing.append(name)
+    if missing:
+        from service.reports.data import figure_data
+        from service.reports.plots import render_plot
+
+        record, payload = _done_check(check_id)
+        data = figure_data(payload, record.verdict)
+        for name in missing:
+            image = render_plot(name, data, fmt)  # type: ignore[arg-type]
+            _CACHE.put((check_id, name, fmt), image)
+            found[name] = image
+    return found
+
+
+@blp.route("/v1/checks/<string:check_id>/plots/<string:name>.<string:fmt>", methods=["GET"])
+def check_plot(check_id: str, name: str, fmt: str) -> Response:
+    """One plot of a finished check as SVG or PNG."""
+    if name not in PLOT_NAMES:
+        abort_problem(404, f"no plot {name!r}; plots: {', '.join(PLOT_NAMES)}", kind="not-found")
+    if fmt not in IMAGE_TYPES:
+        abort_problem(404, f"no format {fmt!r}; formats: svg, png", kind="not-found")
+    _done_check(check_id)  # tenant, existence and status checked on every request
+    image = _plots(check_id, (name,), fmt)[name]
+    if image is None:
+        abort_problem(404, f"check {check_id!r} has no {name} plot (e.g. no two-port: it needs "
+                           "exactly two external ports)", kind="not-found")
+    return Response(image, mimetype=IMAGE_TYPES[fmt],
+                    headers={"Cache-Control": "private, max-age=3600"})
+
+
+@blp.route("/v1/checks/<string:check_id>/report", methods=["GET"])
+def check_report(check_id: str) -> Response:
+    """The HTML page of one check (plots embedded when it is done)."""
+    from service.reports.pages import check_page
+
+    record = store().get_check(tenant(), check_id)
+    if record is None:
+        abort_problem(404, f"no check {check_id!r}", kind="not-found")
+    images: dict[str, bytes | None] = {}
+    if record.status == "done" and request.args.get("plots") != "none":
+        images = _plots(check_id, PLOT_NAMES, "svg")
+    batch_href = (url_for("reports.batch_report", batch_id=record.batch_id)
+                  if record.batch_id else None)
+    page = check_page(check_view(record), images, batch_href=batch_href)
+    return Response(page, mimetype="text/html")
+
+
+@blp.route("/v1/batches/<string:batch_id>/report", methods=["GET"])
+def batch_report(batch_id: str) -> Response:
+    """The HTML page of a batch: every check, sortable by verdict, frequency and node."""
+    from service.api.batches import batch_view, item_view
+    from service.reports.pages import batch_page
+
+    record = store().get_batch(tenant(), batch_id)
+    if record is None:
+        abort_problem(404, f"no batch {batch_id!r}", kind="not-found")
+    items: list[dict[str, Any]] = []
+    after = None
+    while len(items) < MAX_BATCH_PAGE_CHECKS:
+        page, after = store().list_batch_checks(tenant(), batch_id, after=after, limit=1000)
+        items.extend(item_view(r) for r in page)
+        if after is None:
+            break
+    page_html = batch_page(batch_view(record, size=len(record.check_ids)), items,
+                           lambda item: url_for("reports.check_report", check_id=item["id"]))
+    return Response(page_html, mimetype="text/html")
