@@ -1,0 +1,142 @@
+"""End-to-end service benchmark: a batch through HTTP, the queue and worker processes.
+
+    python -m tests.benchmarks.bench_service [--variants 500] [--points 401] [--workers 2]
+                                             [--layout redis|embedded]
+
+Builds seeded invented variants (5 ports: 2 external, 3 probes; ``tests.queue_variants``), times
+the engine on them in this process (``run_check_json``, one after the other: the engine's own
+compute time), then starts the API (gunicorn) and one Celery worker with ``--workers`` processes,
+exactly as ``ballast serve`` does, submits all variants as ONE batch (POST /v1/batches, JSON),
+polls until the batch has finished and reads every verdict back (GET /v1/checks/{id}).
+
+Prints checks per second and the ratio of end-to-end wall time to the engine's compute time, both
+against the serial engine time and against that time divided by the number of worker processes
+(the ideal parallel time); the service's target is an overhead of at most 20 %. The layout is a
+private redis-server on a spare port (default when redis-server is installed) or the embedded
+SQLite store and broker. Nothing is asserted: this prints ratios.
+"""
+
+from __future__ import annotations
+
+import argparse
+import json
+import os
+import shutil
+import tempfile
+import time
+from pathlib import Path
+
+import requests
+
+from service.runner import run_check_json
+from tests.queue_harness import RedisServer, free_port, wait_until
+from tests.queue_variants import PORTS, variants
+
+
+def engine_seconds(requests_: list[dict]) -> tuple[float, list[dict]]:
+    start = time.perf_counter()
+    verdicts = [run_check_json(r) for r in requests_]
+    return time.perf_counter() - start, verdicts
+
+
+def batch_body(batch: list) -> dict:
+    """One batch: the port list is the shared map; each variant carries its data and devices."""
+    shared = {"ports": batch[0].request["ports"]}
+    return {
+        "label": "bench",
+        "map": shared,
+        "variants": [{"label": v.label, **{k: x for k, x in v.request.items() if k != "ports"}}
+                     for v in batch],
+    }
+
+
+def main() -> None:
+    parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
+    parser.add_argument("--variants", type=int, default=500)
+    parser.add_argument("--points", type=int, default=401)
+    parser.add_argument("--workers", type=int, default=2)
+    parser.add_argument("--api-processes", type=int, default=2)
+    parser.add_argument("--layout", choices=("redis", "embedded"),
+                        default="redis" if shutil.which("redis-server") else "embedded")
+    args = parser.parse_args()
+
+    print(f"{args.variants} variants, {args.points} points, {len(PORTS)} ports; "
+          f"{args.workers} worker processes, {args.api_processes} API processes, "
+          f"layout {args.layout}; load average {os.getloadavg()[0]:.1f} at start")
+    batch = variants(args.variants, points=args.points)
+    engine_s, expected = engine_seconds([v.request for v in batch])
+    print(f"engine alone (serial, this process): {engine_s:.2f} s, "
+          f"{1e3 * engine_s / len(batch):.1f} ms per check")
+
+    with tempfile.TemporaryDirectory(prefix="ballast-bench-") as tmp:
+        redis_server = None
+        if args.layout == "redis":
+            redis_server = RedisServer(Path(tmp) / "redis")
+            redis_server.start()
+            os.environ["BALLAST_REDIS_URL"] = redis_server.url
+        else:
+            os.environ.pop("BALLAST_REDIS_URL", None)
+        os.environ["BALLAST_DATA_DIR"] = str(Path(tmp) / "data")
+        os.environ["BALLAST_MAX_VARIANTS"] = str(max(10_000, args.variants))
+
+        from service.embedded import ServeOptions, Supervisor, child_processes, prepare_token
+        from service.runtime_config import load_config
+
+        config = load_config()
+        config.data_dir.mkdir(parents=True, exist_ok=True)
+        token = prepare_token(config)
+        options = ServeOptions(port=free_port(), worker_processes=args.workers,
+                               api_processes=args.api_processes)
+        supervisor = Supervisor(child_processes(config, options))
+        supervisor.start()
+        session = requests.Session()
+        session.headers["Authorization"] = f"Bearer {token}"
+        base = options.base_url
+        try:
+            wait_until(lambda: _status(session, base + "/readyz") == 200, 120,
+                       "the service to be ready", every_s=0.2)
+            body = json.dumps(batch_body(batch))
+            print(f"request body: {len(body) / 1e6:.0f} MB")
+
+            start = time.perf_counter()
+            response = session.post(base + "/v1/batches", data=body,
+                                    headers={"Content-Type": "application/json"}, timeout=600)
+            response.raise_for_status()
+            accepted_at = time.perf_counter()
+            accepted = response.json()
+            wait_until(lambda: session.get(f"{base}/v1/batches/{accepted['id']}",
+                                           timeout=30).json()["finished"],
+                       3600, "the batch to finish", every_s=0.1)
+            finished_at = time.perf_counter()
+            got = [session.get(f"{base}/v1/checks/{cid}", timeout=30).json()
+                   for cid in accepted["check_ids"]]
+            fetched_at = time.perf_counter()
+        finally:
+            supervisor.stopping = True
+            supervisor.stop()
+            if redis_server is not None:
+                redis_server.stop()
+
+    done = sum(1 for g in got if g["status"] == "done")
+    same = sum(1 for g, e in zip(got, expected, strict=True)
+               if g.get("verdict") == json.loads(json.dumps(e)))
+    ideal_s = engine_s / args.workers
+    for name, wall in (("accepted -> finished", finished_at - start),
+                       ("accepted -> all verdicts read", fetched_at - start)):
+        print(f"{name:<32} {wall:7.2f} s  {len(batch) / wall:6.1f} checks/s  "
+              f"wall/engine serial {wall / engine_s:5.2f}  "
+              f"wall/(engine/{args.workers}) {wall / ideal_s:5.2f}")
+    print(f"POST /v1/batches took {accepted_at - start:.2f} s; "
+          f"{done}/{len(batch)} done, {same}/{len(batch)} verdicts identical to the engine's; "
+          f"load average {os.getloadavg()[0]:.1f} at end")
+
+
+def _status(session: requests.Session, url: str) -> int:
+    try:
+        return session.get(url, timeout=5).status_code
+    except requests.RequestException:
+        return 0
+
+
+if __name__ == "__main__":
+    main()
