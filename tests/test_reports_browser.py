@@ -1,0 +1,86 @@
+"""The batch page in a real browser: Debian's chromium, headless.
+
+One test takes a screenshot and checks it is not blank (pixel spread, and enough pixels that are
+neither the page background nor white); another lets the page's own script sort the table
+(``#sort=frequency``) and reads the DOM chromium produced (``--dump-dom``).
+"""
+
+from __future__ import annotations
+
+import re
+import shutil
+import subprocess
+from pathlib import Path
+
+import numpy as np
+import pytest
+
+from service.reports import pages
+from service.reports.outcomes import item_from_check
+from service.runner import run_check_json
+from workers.lumped.families import parallel_rlc_negative_g
+
+CHROMIUM = shutil.which("chromium") or shutil.which("chromium-browser")
+pytestmark = [
+    pytest.mark.browser,
+    pytest.mark.skipif(CHROMIUM is None, reason="headless Chromium is not installed "
+                                                "(Debian: apt-get install chromium)"),
+]
+FLAGS = ("--headless", "--no-sandbox", "--disable-gpu", "--disable-background-networking",
+         "--no-first-run", "--disable-component-update", "--disable-sync",
+         "--hide-scrollbars")
+
+
+def chromium(tmp_path: Path, *args: str) -> subprocess.CompletedProcess:
+    profile = tmp_path / "chromium-profile"
+    return subprocess.run([CHROMIUM, *FLAGS, f"--user-data-dir={profile}", *args],
+                          capture_output=True, text=True, timeout=120, check=False)
+
+
+@pytest.fixture(scope="module")
+def batch_html() -> str:
+    """A batch of tank variants. Closed form (parallel G, L, C): unstable when G = 1/R + g < 0,
+    oscillating near 1/(2π√(LC)): with g = −8 mS, L = 2, 1, 0.5 nH give ≈ 2.5, 3.6, 5.0 GHz."""
+    items = []
+    for tag, l_h, g in (("l05", 0.5e-9, -8e-3), ("l10", 1e-9, -8e-3), ("l20", 2e-9, -8e-3),
+                        ("stable", 1e-9, -3e-3)):
+        case = parallel_rlc_negative_g(l_h=l_h, g_neg_s=g)
+        request = case.check_request(np.geomspace(1e6, 1e12, 401))
+        check = {"id": f"chk_{tag}", "label": f"tank {tag}", "status": "done",
+                 "verdict": run_check_json(request)}
+        items.append(item_from_check(check))
+    items.append({"id": "chk_f", "label": "tank broken", "status": "failed", "verdict": None})
+    items.append({"id": "chk_q", "label": "tank waiting", "status": "queued", "verdict": None})
+    return pages.batch_page({"id": "bat_demo", "label": "tank family"}, items,
+                            lambda item: f"checks/{item['id']}.html")
+
+
+def test_batch_page_screenshot_is_not_blank(tmp_path: Path, batch_html: str):
+    from matplotlib import image
+
+    page = tmp_path / "index.html"
+    page.write_text(batch_html, encoding="utf-8")
+    shot = tmp_path / "shot.png"
+    result = chromium(tmp_path, "--window-size=1200,900", f"--screenshot={shot}", page.as_uri())
+    assert shot.is_file(), result.stderr[-2000:]
+    pixels = image.imread(shot)[..., :3]
+    assert pixels.shape[:2] == (900, 1200)
+    assert float(pixels.std()) > 0.05  # a blank page has no spread
+    background = np.array([0xF7, 0xF4, 0xEC]) / 255.0  # the page colour (style.PAPER)
+    distinct = np.abs(pixels - background).max(axis=-1) > 0.1
+    white = pixels.min(axis=-1) > 0.97
+    assert (distinct & ~white).mean() > 0.02  # header strip, tally bar, text, verdict dots
+
+
+def test_page_script_sorts_by_frequency(tmp_path: Path, batch_html: str):
+    page = tmp_path / "index.html"
+    page.write_text(batch_html, encoding="utf-8")
+    result = chromium(tmp_path, "--dump-dom", page.as_uri() + "#sort=frequency")
+    assert result.returncode == 0, result.stderr[-2000:]
+    body = result.stdout.split("<tbody>", 1)[1]
+    order = re.findall(r'href="checks/([^"]+)\.html"', body)
+    # unstable tanks by ascending frequency (largest L first), then the rows without one
+    assert order[:3] == ["chk_l20", "chk_l10", "chk_l05"], order
+    assert set(order[3:]) == {"chk_stable", "chk_f", "chk_q"}
+    default = re.findall(r'href="checks/([^"]+)\.html"', batch_html.split("<tbody>", 1)[1])
+    assert default[:3] == ["chk_l05", "chk_l10", "chk_l20"]  # worst verdicts first, then order
