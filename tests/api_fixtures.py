@@ -98,9 +98,9 @@ def tiny_request() -> dict[str, Any]:
 RLC_FREQUENCY_HZ = np.geomspace(1e7, 1e12, 4001)
 
 
-def rlc_request(r_ohm: float) -> dict[str, Any]:
+def rlc_request(r_ohm: float, frequency_hz: np.ndarray = RLC_FREQUENCY_HZ) -> dict[str, Any]:
     """Parallel RLC (L = 1 nH, C = 2 pF) with a −3 mS negative conductance as a device; closed
     form natural frequencies −G/2C ± j√(1/LC − (G/2C)²), G = 1/R − 3 mS: unstable for R > 333 Ω."""
     from workers.lumped.families import parallel_rlc_negative_g
 
-    return parallel_rlc_negative_g(r_ohm=r_ohm).check_request(RLC_FREQUENCY_HZ)
+    return parallel_rlc_negative_g(r_ohm=r_ohm).check_request(frequency_hz)

@@ -8,6 +8,7 @@ the engine's own output for the stored request (service issue: "exactly as the e
 
 from __future__ import annotations
 
+import hashlib
 import json
 import re
 
@@ -96,11 +97,11 @@ def test_idempotent_retry_returns_the_same_check(client, auth, fake_queue):
 
 
 def test_idempotency_key_still_being_accepted_answers_409(client, auth, api_store):
-    from service.store.base import content_hash
-
-    # a first request holding the key has not finished storing its check yet
-    assert api_store.idempotency_begin("acme", "slow", content_hash(tiny_request()), 60)[0] == "new"
-    response = client.post("/v1/checks", json=tiny_request(),
+    body = json.dumps(tiny_request()).encode()
+    # a first request holding the key (fingerprint: SHA-256 of the body) is still storing
+    assert api_store.idempotency_begin("acme", "slow", hashlib.sha256(body).hexdigest(), 60
+                                       )[0] == "new"
+    response = client.post("/v1/checks", data=body, content_type="application/json",
                            headers={**auth, "Idempotency-Key": "slow"})
     assert response.status_code == 409 and response.mimetype == PROBLEM
 

@@ -14,7 +14,7 @@ import binascii
 import json
 from typing import Any
 
-from flask import current_app, request, url_for
+from flask import current_app, g, request, url_for
 from flask_smorest import Blueprint
 from marshmallow import RAISE, ValidationError
 
@@ -50,6 +50,7 @@ from service.store.base import (
     BatchRecord,
     CheckRecord,
     NewCheck,
+    content_hash,
     merge_request,
 )
 
@@ -205,13 +206,13 @@ def submit_batch():
     if request.mimetype == "multipart/form-data":
         label, shared, variants = _parse_multipart_batch()
         where = "files"
-        fingerprint: Any = {"label": label, "map": shared,
-                            "variants": [[n, m] for n, m in variants]}
+        fingerprint = content_hash({"label": label, "map": shared,
+                                    "variants": [[n, m] for n, m in variants]})
     else:
         body = json_object_body()
         label, shared, variants = _parse_json_batch(body)
         where = "variants"
-        fingerprint = body
+        fingerprint = g.body_digest
     limit = int(current_app.config["BALLAST_MAX_VARIANTS"])
     if len(variants) > limit:
         abort_problem(422, f"{len(variants)} variants; the limit is {limit} per batch",

@@ -4,7 +4,7 @@ from __future__ import annotations
 
 from typing import Any
 
-from flask import current_app, url_for
+from flask import current_app, g, url_for
 from flask_smorest import Blueprint
 from marshmallow import ValidationError
 
@@ -73,7 +73,7 @@ def submit_check():
         _, (check_id,) = store_checks([NewCheck(body)])
         return check_id
 
-    check_id = accept_once(idempotency_key(), body, create, replay=lambda existing: existing)
+    check_id = accept_once(idempotency_key(), g.body_digest, create, replay=lambda found: found)
     return accepted(check_id)
 
 

@@ -2,19 +2,20 @@
 
 from __future__ import annotations
 
+import hashlib
 import json
 from collections.abc import Callable
 from datetime import UTC, datetime
 from typing import Any
 
-from flask import current_app, request
+from flask import current_app, g, request
 from marshmallow import ValidationError
 
 from service.api.tenancy import retry_after, store, tenant
 from service.config import tenant_limit
 from service.problems import abort_problem, field_errors
 from service.schemas.errors import flatten_errors
-from service.store.base import CheckRecord, NewCheck, QuotaExceededError, content_hash
+from service.store.base import CheckRecord, NewCheck, QuotaExceededError
 
 IDEMPOTENCY_HEADER = "Idempotency-Key"
 MAX_IDEMPOTENCY_KEY = 255
@@ -46,7 +47,10 @@ def json_object_body() -> dict[str, Any]:
         request.mimetype == "application/json" or request.mimetype.endswith("+json")
     ):
         abort_problem(415, "send the body as application/json", kind="unsupported-media-type")
-    body = parse_json(request.get_data(cache=False))
+    raw = request.get_data(cache=False)
+    g.body_digest = hashlib.sha256(raw).hexdigest()  # the idempotency fingerprint
+    body = parse_json(raw)
+    del raw
     if not isinstance(body, dict):
         abort_problem(422, "the request body must be a JSON object", kind="invalid-request",
                       errors=field_errors([("body", "must be a JSON object")]))
@@ -73,18 +77,19 @@ def idempotency_key() -> str | None:
     return key
 
 
-def accept_once(key: str | None, body: Any, create: Callable[[], str],
+def accept_once(key: str | None, fingerprint: str, create: Callable[[], str],
                 replay: Callable[[str], Any]) -> Any:
     """Run ``create`` (which stores and returns an id) at most once per idempotency key.
 
-    Same key and same body → ``replay(id)``; same key, other body → 422; the first request with
-    that key still being accepted → 409.
+    ``fingerprint`` identifies the payload (the SHA-256 of the body). Same key and same payload →
+    ``replay(id)``; same key, other payload → 422; the first request with that key still being
+    accepted → 409.
     """
     if key is None:
         return create_with_quota(create)
     cfg = current_app.config
     state, existing = store().idempotency_begin(
-        tenant(), key, content_hash(body), float(cfg["BALLAST_IDEMPOTENCY_PENDING_S"]))
+        tenant(), key, fingerprint, float(cfg["BALLAST_IDEMPOTENCY_PENDING_S"]))
     if state == "done" and existing is not None:
         return replay(existing)
     if state == "mismatch":
