@@ -1,0 +1,109 @@
+"""The API's report routes: plots as SVG/PNG, the check and batch pages, tenants and states.
+
+The check is the two-stage LNA without its gate-return damping resistor (one complex pair of
+right-half-plane natural frequencies by scipy.linalg.eig, see tests/test_reports.py). Media types:
+image/svg+xml (SVG 1.1, W3C), image/png (RFC 2083); errors are problem+json (RFC 9457).
+"""
+
+from __future__ import annotations
+
+import re
+import time
+import xml.etree.ElementTree as ET
+from pathlib import Path
+
+import numpy as np
+import pytest
+import requests
+
+from service.auth import create_token
+from tests.client_live_server import live_server
+from workers.lumped.families import two_stage_lna
+
+BAND_HZ = np.geomspace(1e6, 1e12, 1001)
+
+
+@pytest.fixture(scope="module")
+def served(tmp_path_factory):
+    folder: Path = tmp_path_factory.mktemp("reports-api")
+    with live_server(folder) as live:
+        session = requests.Session()
+        session.headers["Authorization"] = f"Bearer {live.token}"
+        request = two_stage_lna(gate_return_damping_ohm=None).check_request(BAND_HZ)
+        body = {"label": "lna family", "variants": [{"label": "no damping", **request}]}
+        accepted = session.post(f"{live.url}/v1/batches", json=body, timeout=60).json()
+        for _ in range(600):
+            batch = session.get(f"{live.url}/v1/batches/{accepted['id']}", timeout=30).json()
+            if batch["finished"]:
+                break
+            time.sleep(0.1)
+        yield live, session, accepted["id"], accepted["check_ids"][0]
+
+
+def test_plots_come_as_svg_and_png(served):
+    live, session, _, check_id = served
+    svg = session.get(f"{live.url}/v1/checks/{check_id}/plots/ndf.svg", timeout=120)
+    assert svg.status_code == 200 and svg.headers["Content-Type"].startswith("image/svg+xml")
+    ids = {e.get("id") for e in ET.fromstring(svg.content).iter() if e.get("id")}
+    assert {"ndf-curve", "mode-marker"} <= ids
+    png = session.get(f"{live.url}/v1/checks/{check_id}/plots/admittance.png", timeout=120)
+    assert png.status_code == 200 and png.headers["Content-Type"] == "image/png"
+    assert png.content[:8] == b"\x89PNG\r\n\x1a\n"
+
+
+def test_check_page_embeds_every_plot_and_links_its_batch(served):
+    live, session, batch_id, check_id = served
+    page = session.get(f"{live.url}/v1/checks/{check_id}/report", timeout=300)
+    assert page.status_code == 200 and page.headers["Content-Type"].startswith("text/html")
+    assert len(re.findall(r'src="data:image/svg\+xml;base64,', page.text)) == 4
+    assert f"/v1/batches/{batch_id}/report" in page.text
+    bare = session.get(f"{live.url}/v1/checks/{check_id}/report?plots=none", timeout=60)
+    assert "data:image" not in bare.text and "unstable" in bare.text.lower()
+
+
+def test_batch_page_links_each_check(served):
+    live, session, batch_id, check_id = served
+    page = session.get(f"{live.url}/v1/batches/{batch_id}/report", timeout=60)
+    assert page.status_code == 200
+    assert f'href="/v1/checks/{check_id}/report"' in page.text
+    assert "lna family" in page.text and "no damping" in page.text
+
+
+@pytest.mark.parametrize(("path", "status"), [
+    ("/v1/checks/{check}/plots/smith.svg", 404),
+    ("/v1/checks/{check}/plots/ndf.gif", 404),
+    ("/v1/checks/chk_AAAAAAAAAAAAAAAAAAAAAA/plots/ndf.svg", 404),
+    ("/v1/batches/bat_AAAAAAAAAAAAAAAAAAAAAA/report", 404),
+])
+def test_unknown_things_are_problems(served, path, status):
+    live, session, _, check_id = served
+    response = session.get(live.url + path.format(check=check_id), timeout=60)
+    assert response.status_code == status
+    assert response.headers["Content-Type"].startswith("application/problem+json")
+    assert response.json()["status"] == status
+
+
+def test_other_tenants_and_strangers_see_nothing(served):
+    live, _, batch_id, check_id = served
+    other = create_token(live.store, "rival")
+    for path in (f"/v1/checks/{check_id}/plots/ndf.svg", f"/v1/checks/{check_id}/report",
+                 f"/v1/batches/{batch_id}/report"):
+        response = requests.get(live.url + path, timeout=60,
+                                headers={"Authorization": f"Bearer {other}"})
+        assert response.status_code == 404, path
+        assert requests.get(live.url + path, timeout=60).status_code == 401
+
+
+def test_plots_wait_for_the_verdict(served):
+    live, session, _, _ = served
+    live.queue.hold()
+    try:
+        request = two_stage_lna().check_request(np.geomspace(1e6, 1e12, 201))
+        accepted = session.post(f"{live.url}/v1/checks", json=request, timeout=60).json()
+        response = session.get(f"{live.url}/v1/checks/{accepted['id']}/plots/ndf.svg",
+                               timeout=60)
+        assert response.status_code == 409 and "Retry-After" in response.headers
+        page = session.get(f"{live.url}/v1/checks/{accepted['id']}/report", timeout=60)
+        assert page.status_code == 200 and "queued" in page.text and "data:image" not in page.text
+    finally:
+        live.queue.release()
