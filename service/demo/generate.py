@@ -86,10 +86,10 @@ VARIANTS: tuple[Variant, ...] = (
         {"odd_mode_ohm": None},
     ),
     Variant(
-        "pa_odd_resistor_300ohm",
+        "pa_odd_resistor_1kohm",
         "pa",
-        "drain-to-drain resistor fitted as 300 ohm",
-        {"odd_mode_ohm": 300.0},
+        "drain-to-drain resistor fitted as 1 kohm instead of 20 ohm",
+        {"odd_mode_ohm": 1000.0},
     ),
     Variant(
         "pa_odd_resistor_50ohm",

@@ -230,17 +230,20 @@ def combined_power_stage(
     gm_scale: float = 1.0,
     line_h: float = 1.5e-9,
     source_via_h: float = 0.08e-9,
+    gate_ohm: float = 1.0,
 ) -> CircuitCase:
     """Two identical FET cells in parallel for a 2.5 GHz power stage (invented values).
 
     Input: 20 pF DC block (0.5 Ω ESR), 3 pF shunt, 1 nH, a common-path stabiliser (shunt
     50 Ω + 10 pF, then series 10 Ω ∥ 5 pF) to the split node, whose DC return is a 100 nH choke
     to ground through ``gate_return_damping_ohm`` (None = missing). Each cell: ``line_h`` gate
-    line from the split node, FET (gm 250 mS × gm_scale, Cgs 2.5 pF, Cgd 0.25 pF, Rds 60 Ω,
-    Cds 0.5 pF), source via ``source_via_h``, ``line_h`` drain line to the combining node.
-    ``odd_mode_ohm`` (None = missing) links the two drains. Output: drain feed 100 nH choke to a
-    100 pF-decoupled supply, 0.5 nH, 4 pF shunt, 20 pF DC block (0.5 Ω ESR). Gain about 9.5 dB
-    at 2.5 GHz; the external two-port has mu ≥ 1 from 1 MHz to 1 THz.
+    line and ``gate_ohm`` gate resistance from the split node, FET (gm 250 mS × gm_scale,
+    Cgs 2.5 pF, Cgd 0.25 pF, Rds 60 Ω, Cds 0.5 pF), source via ``source_via_h``, ``line_h``
+    drain line to the combining node. ``odd_mode_ohm`` (None = missing) links the two drains.
+    Output: drain feed 100 nH choke to a 100 pF-decoupled supply, 0.5 nH, 4 pF shunt, 20 pF DC
+    block (0.5 Ω ESR). Gain about 9.2 dB at 2.5 GHz; the external two-port has mu ≥ 1 from
+    1 MHz to 1 THz (mu → 1 at the ends, where the DC blocks and shunt capacitors make the
+    ports nearly lossless).
 
     In the odd mode (cells in antiphase) the split and combining nodes are virtual grounds, so
     each cell sees a short at the far end of its gate and drain lines: a tuned-gate/tuned-drain
@@ -249,10 +252,11 @@ def combined_power_stage(
     the split or combining node, so the in/out two-port data are the same whatever that
     resistor is. Natural frequency with the largest real part (50 Ω at in and out), computed
     with scipy.linalg.eig through :func:`natural_frequencies`, s/2π:
-    default (20 Ω): −49.2 MHz ± j55.0 MHz; odd resistor None: +148 MHz ± j2243 MHz (odd mode);
-    300 Ω: +98.7 MHz ± j2227 MHz (odd); 50 Ω: −49.2 MHz ± j55.0 MHz (odd mode at
-    −75.5 MHz ± j2214 MHz); line_h 2 nH: −49.2 MHz ± j55.0 MHz; line_h 2 nH and no odd
-    resistor: +165 MHz ± j1893 MHz (odd); gate damping None: −13.2 MHz ± j77.9 MHz.
+    default (20 Ω): −49.2 MHz ± j55.0 MHz (odd mode at −263 MHz ± j2255 MHz);
+    odd resistor None: +102 MHz ± j2242 MHz (odd mode); 1 kΩ: +86.7 MHz ± j2236 MHz (odd);
+    50 Ω: −49.2 MHz ± j55.0 MHz (odd mode at −124 MHz ± j2207 MHz); line_h 2 nH:
+    −49.2 MHz ± j55.0 MHz; line_h 2 nH and no odd resistor: +132 MHz ± j1892 MHz (odd);
+    gate damping None: −13.2 MHz ± j77.8 MHz.
     Ports: in, out (external, 50 Ω), g_a, s_a, d_a, g_b, s_b, d_b (probes).
     """
     fet = {**PA_FET, "gm_s": PA_FET["gm_s"] * gm_scale}
@@ -274,7 +278,8 @@ def combined_power_stage(
     ]
     for cell in ("a", "b"):
         elements += [
-            Inductor(f"Lg_{cell}", "split", f"g_{cell}", line_h),
+            Inductor(f"Lg_{cell}", "split", f"gl_{cell}", line_h),
+            Resistor(f"Rg_{cell}", f"gl_{cell}", f"g_{cell}", gate_ohm),
             *fet_cell(f"_{cell}", f"g_{cell}", f"d_{cell}", f"s_{cell}", **fet),
             Inductor(f"Ls_{cell}", f"s_{cell}", "0", source_via_h),
             Inductor(f"Ld_{cell}", f"d_{cell}", "comb", line_h),
