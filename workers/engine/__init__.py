@@ -1,7 +1,8 @@
 """ballast's numerical engine: pure numpy/scipy, arrays frequency first.
 
 ``run_check(request)`` turns a validated :class:`~workers.engine.request.CheckRequest` into a
-:class:`~workers.engine.verdict.CheckVerdict`; ``verdict.to_dict()`` is the JSON the service returns.
+:class:`~workers.engine.verdict.CheckVerdict`; ``verdict.to_dict()`` is the JSON the service
+returns.
 """
 
 from __future__ import annotations
@@ -10,19 +11,32 @@ from workers.engine.check import Analysis, analyse
 from workers.engine.decide import decide
 from workers.engine.errors import InputError, TouchstoneError
 from workers.engine.external import two_port_report
+from workers.engine.refine import RefinedCheck, refine_analysis
 from workers.engine.request import CheckOptions, CheckRequest, Device, Network, Port
-from workers.engine.verdict import VERDICT_FORMAT, CheckVerdict
+from workers.engine.verdict import VERDICT_FORMAT, CheckVerdict, Diagnostic
 
 
 def run_check(request: CheckRequest) -> CheckVerdict:
-    """Every indicator of one check, and the verdict."""
+    """Every indicator of one check, the model refinement (``options.refine``), and the verdict."""
     analysis = analyse(request)
-    diagnostics: list = []
-    two_port, _ = two_port_report(request, analysis.state.y_data, diagnostics)
-    return decide(analysis, two_port, extra=diagnostics)
+    diagnostics: list[Diagnostic] = []
+    two_port, factors = two_port_report(request, analysis.state.y_data, diagnostics)
+    if not request.options.refine:
+        return decide(analysis, two_port, extra=diagnostics)
+    refined = refine_analysis(analysis, None if factors is None else (factors[0], factors[2]))
+    return decide(
+        analysis, two_port,
+        refinement=refined.report,
+        model_modes=refined.modes,
+        extra=diagnostics + refined.diagnostics,
+        model_method=refined.method,
+        refined_count=None if refined.refinement is None else refined.refinement.count,
+        model_zeros_rad_s=refined.zeros_rad_s,
+    )
 
 
 __all__ = [
     "VERDICT_FORMAT", "Analysis", "CheckOptions", "CheckRequest", "CheckVerdict", "Device",
-    "InputError", "Network", "Port", "TouchstoneError", "analyse", "run_check",
+    "InputError", "Network", "Port", "RefinedCheck", "TouchstoneError", "analyse",
+    "refine_analysis", "run_check",
 ]

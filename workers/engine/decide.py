@@ -1,8 +1,11 @@
-"""From an analysis to the verdict.
+"""From an analysis to the verdict, by consensus of the methods.
 
-``unstable`` needs a trusted encirclement count above zero; ``stable`` needs a trusted count of zero
-with nothing left unexplained; everything else is ``indeterminate`` with the blocking diagnostics
-that made it so. A count that cannot be trusted never yields ``stable``.
+The count is the encirclement count on the refined contour when the rational model validated
+(``refine``), else on the samples. ``unstable`` needs a trusted count above zero; ``stable`` needs
+a trusted count of zero, no right-half-plane zero in the validated model, and no sharp Kurokawa
+point that neither explains. When the model's right-half-plane zeros and the refined count
+differ, the verdict is ``indeterminate`` with both numbers. Everything else that blocks makes it
+``indeterminate`` too. A count that cannot be trusted never yields ``stable``.
 """
 
 from __future__ import annotations
@@ -13,6 +16,7 @@ import numpy as np
 
 from workers.engine import modes as mode_estimates
 from workers.engine.check import Analysis, count_trusted
+from workers.engine.encirclement import Encirclements
 from workers.engine.verdict import (
     CheckVerdict,
     DeviceReport,
@@ -29,6 +33,8 @@ from workers.engine.verdict import (
 # Kurokawa's first-order estimate is only sharp for a high-Q crossing (common practice): a point
 # with |σ|/ω below this that the count does not explain blocks a ``stable`` verdict.
 KUROKAWA_SHARP_RATIO = 0.1
+# a model zero within this fraction of the frequency (or 3 half-widths) explains a Kurokawa point
+KUROKAWA_EXPLAIN_SPAN = 0.05
 MARGINAL_ABS = 1e-3
 
 
@@ -39,7 +45,7 @@ def ndf_report(analysis: Analysis, trusted: bool) -> NdfReport | None:
 
     def edge(e: Any) -> EdgeReport:
         return EdgeReport(e.frequency_hz, e.value.real, e.value.imag, e.distance, e.off_axis,
-                          e.drift)
+                          e.drift, e.trend)
 
     return NdfReport(c.clockwise, c.residual, edge(c.low), edge(c.high), c.max_phase_step_deg,
                      c.max_phase_step_at_hz, c.min_abs, c.min_abs_at_hz, trusted)
@@ -121,8 +127,28 @@ def sample_modes(analysis: Analysis, count: int) -> list[Mode]:
     return found
 
 
-def unexplained_kurokawa(analysis: Analysis, count: int) -> list[Diagnostic]:
-    """Sharp Kurokawa points that a count of zero does not explain."""
+def _explaining_zero(frequency_hz: float, zeros_rad_s: np.ndarray | None) -> complex | None:
+    """The model zero nearest the Kurokawa point, if it is in the left half-plane and close
+    enough (KUROKAWA_EXPLAIN_SPAN of the frequency, or 3 half-widths) to account for it."""
+    if zeros_rad_s is None or zeros_rad_s.size == 0:
+        return None
+    upper = zeros_rad_s[zeros_rad_s.imag >= 0]
+    if upper.size == 0:
+        return None
+    nearest = complex(upper[np.argmin(np.abs(upper - 2j * np.pi * frequency_hz))])
+    reach = max(KUROKAWA_EXPLAIN_SPAN * frequency_hz, 3 * abs(nearest.real) / (2 * np.pi))
+    if nearest.real < 0 and abs(nearest.imag / (2 * np.pi) - frequency_hz) <= reach:
+        return nearest
+    return None
+
+
+def unexplained_kurokawa(analysis: Analysis, count: int,
+                         model_zeros_rad_s: np.ndarray | None = None) -> list[Diagnostic]:
+    """Sharp Kurokawa points that a count of zero does not explain.
+
+    With a validated model, a point next to a left-half-plane zero of NDF is explained: the
+    model places that natural frequency exactly, where Kurokawa's estimate is first-order.
+    """
     if count != 0:
         return []
     found = []
@@ -131,25 +157,69 @@ def unexplained_kurokawa(analysis: Analysis, count: int) -> list[Diagnostic]:
         ratio = abs(c.growth_estimate_per_s) / omega if omega > 0 else np.inf
         node = analysis.request.ports[c.node].name
         sharp = ratio < KUROKAWA_SHARP_RATIO
+        details = {"node": node, "frequency_hz": c.frequency_hz,
+                   "re_admittance_s": c.re_admittance_s}
+        zero = _explaining_zero(c.frequency_hz, model_zeros_rad_s)
+        if zero is not None:
+            found.append(Diagnostic(
+                "kurokawa_unexplained", "info",
+                f"node {node} meets Kurokawa's condition at {c.frequency_hz:.6g} Hz "
+                f"(Re Y = {c.re_admittance_s:.3g} S); the validated model explains it: the "
+                f"natural frequency there is σ = {zero.real:.4g} 1/s (left half-plane) at "
+                f"{zero.imag / (2 * np.pi):.6g} Hz",
+                {**details, "model_growth_rate_per_s": zero.real,
+                 "model_frequency_hz": zero.imag / (2 * np.pi)},
+            ))
+            continue
         found.append(Diagnostic(
             "kurokawa_unexplained", "blocking" if sharp else "info",
             f"node {node} meets Kurokawa's condition at {c.frequency_hz:.6g} Hz "
             f"(Re Y = {c.re_admittance_s:.3g} S) although NDF does not encircle the origin"
             + ("" if sharp else "; the crossing is broad, so its first-order estimate is weak"),
-            {"node": node, "frequency_hz": c.frequency_hz, "re_admittance_s": c.re_admittance_s},
+            details,
         ))
     return found
+
+
+def _method_reports(analysis: Analysis, count: int | None, model_method: MethodReport | None,
+                    diagnostics: list[Diagnostic]) -> list[MethodReport]:
+    """What each method says, and whether it agrees with the encirclement count."""
+    model_count = model_method.unstable_count if model_method is not None else None
+    both = count is not None and model_count is not None
+    methods = [MethodReport("encirclement", count, None if count is None
+                            else (model_count == count if both else True))]
+    if model_method is not None:
+        methods.append(MethodReport("rational_model", model_count,
+                                    (model_count == count) if both else None, model_method.note))
+    crossings = len(analysis.nodes.crossings)
+    blocking_points = sum(1 for d in diagnostics
+                          if d.code == "kurokawa_unexplained" and d.severity == "blocking")
+    agrees = None
+    if count is not None:
+        agrees = crossings > 0 if count > 0 else blocking_points == 0
+    methods.append(MethodReport(
+        "kurokawa", None, agrees,
+        f"{crossings} node crossing(s) meet Kurokawa's condition "
+        "(a necessary start condition per node; it does not count natural frequencies)"))
+    return methods
 
 
 def decide(analysis: Analysis, two_port: dict[str, Any] | None,
            refinement: dict[str, Any] | None = None,
            model_modes: list[Mode] | None = None,
            extra: list[Diagnostic] | None = None,
-           model_method: MethodReport | None = None) -> CheckVerdict:
-    """The verdict of one check (see module docstring)."""
+           model_method: MethodReport | None = None,
+           refined_count: Encirclements | None = None,
+           model_zeros_rad_s: np.ndarray | None = None) -> CheckVerdict:
+    """The verdict of one check by consensus (module docstring).
+
+    ``refined_count``: the count on the contour refined with the validated model (replaces the
+    samples' count); ``model_method``: what the model's right-half-plane zeros say;
+    ``model_zeros_rad_s``: all the model's trusted zeros (to explain Kurokawa points).
+    """
     request = analysis.request
     diagnostics = list(analysis.diagnostics) + list(extra or [])
-    count = analysis.ndf_count
+    count = refined_count if refined_count is not None else analysis.ndf_count
     blocking_count: list[Diagnostic] = []
     if count is None:
         blocking_count.append(Diagnostic(
@@ -173,16 +243,16 @@ def decide(analysis: Analysis, two_port: dict[str, Any] | None,
     trusted = not blocking_count
     unstable_count = count.clockwise if (trusted and count is not None) else None
     if unstable_count is not None:
-        diagnostics += unexplained_kurokawa(analysis, unstable_count)
-    methods = [MethodReport("encirclement", unstable_count, None if unstable_count is None
-                            else True)]
-    kurokawa_pairs = sum(1 for c in analysis.nodes.crossings)
-    methods.append(MethodReport(
-        "kurokawa", None, None,
-        f"{kurokawa_pairs} node crossing(s) meet Kurokawa's condition "
-        "(a necessary start condition per node; it does not count natural frequencies)"))
-    if model_method is not None:
-        methods.insert(1, model_method)
+        diagnostics += unexplained_kurokawa(analysis, unstable_count, model_zeros_rad_s)
+    model_count = model_method.unstable_count if model_method is not None else None
+    if unstable_count is not None and model_count is not None and model_count != unstable_count:
+        diagnostics.append(Diagnostic(
+            "model_count_disagrees", "blocking",
+            f"the refined encirclement count is {unstable_count} but the validated model has "
+            f"{model_count} right-half-plane zero(s) in the band",
+            {"encirclement_count": unstable_count, "model_count": model_count},
+        ))
+    methods = _method_reports(analysis, unstable_count, model_method, diagnostics)
     blocked = any(d.severity == "blocking" for d in diagnostics)
     if blocked or unstable_count is None:
         name, unstable_count, found_modes = "indeterminate", None, []

@@ -1,0 +1,83 @@
+"""Refinement benchmark: agreement with a 10× denser grid, and the refinement's cost.
+
+    python -m tests.benchmarks.bench_refine [--size 20] [--seed 11] [--repeat 5]
+
+On generated lumped circuits (tests/test_refine_circuits.py: tanks with |σ|/ω from 0.1 % to 2 %
+of either sign, odd-mode pairs), with 201-point inputs:
+
+* match: the refined verdict, count and mode frequencies (within 0.5 %) equal those of the same
+  engine on a 2,001-point input; also reported against eig of the MNA pencil;
+* cost: (refined run − unrefined run) / unrefined run per variant, best of ``--repeat`` runs each,
+  in CPU time of this process (``time.process_time``: the benchmark machine is shared, and wall
+  time there measures the neighbours). Target (issue 3): every variant matches, cost <= 5.
+
+Prints one line per variant and a summary of ratios; not a timed test.
+"""
+
+from __future__ import annotations
+
+import argparse
+import time
+
+import numpy as np
+
+from tests.test_refine_circuits import COARSE_HZ, DENSE_HZ, Case, generated_set
+from workers.engine import run_check
+
+
+def _best_time(case: Case, refine: bool, repeat: int) -> tuple[float, object]:
+    request = case.request(COARSE_HZ, refine=refine)
+    best, verdict = np.inf, None
+    for _ in range(repeat):
+        start = time.process_time()
+        verdict = run_check(request)
+        best = min(best, time.process_time() - start)
+    return best, verdict
+
+
+def _same(a, b, frequencies: np.ndarray | None = None) -> bool:
+    if a.verdict != b.verdict or a.unstable_count != b.unstable_count:
+        return False
+    reference = [m.frequency_hz for m in b.modes] if frequencies is None else list(frequencies)
+    if len(a.modes) != len(reference):
+        return False
+    return all(abs(m.frequency_hz - f) <= 5e-3 * f for m, f in zip(a.modes, reference,
+                                                                   strict=True))
+
+
+def main(argv: list[str] | None = None) -> int:
+    parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
+    parser.add_argument("--size", type=int, default=20)
+    parser.add_argument("--seed", type=int, default=11)
+    parser.add_argument("--repeat", type=int, default=5)
+    args = parser.parse_args(argv)
+    cases = generated_set(seed=args.seed, size=args.size)
+    run_check(cases[0].request(COARSE_HZ))  # warm-up (imports, caches)
+    ratios, matches, oracle_matches = [], 0, 0
+    print(f"{'variant':34s} {'verdict':13s} {'dense':13s} {'eig':>4s} "
+          f"{'plain ms':>9s} {'refined ms':>10s} {'cost ratio':>10s}")
+    for case in cases:
+        plain, _ = _best_time(case, False, args.repeat)
+        refined, coarse = _best_time(case, True, args.repeat)
+        dense = run_check(case.request(DENSE_HZ))
+        truth = case.unstable()
+        match = _same(coarse, dense)
+        oracle = (coarse.unstable_count == 2 * truth.size
+                  and _same(coarse, coarse, truth.imag / (2 * np.pi)))
+        matches += match
+        oracle_matches += oracle
+        ratio = (refined - plain) / plain
+        ratios.append(ratio)
+        print(f"{case.name:34s} {coarse.verdict:13s} {dense.verdict:13s} "
+              f"{'ok' if oracle else 'NO':>4s} {1e3 * plain:9.2f} {1e3 * refined:10.2f} "
+              f"{ratio:10.2f}{'' if match else '   <- differs from dense'}")
+    r = np.array(ratios)
+    print(f"\nmatch with 2,001-point grid: {matches}/{len(cases)} "
+          f"({matches / len(cases):.0%}); with eig: {oracle_matches}/{len(cases)}")
+    print(f"refinement cost / unrefined run: median {np.median(r):.2f}, max {r.max():.2f} "
+          f"(target <= 5): {'met' if r.max() <= 5 else 'NOT met'}")
+    return 0
+
+
+if __name__ == "__main__":
+    raise SystemExit(main())

@@ -1,0 +1,188 @@
+"""Generated lumped circuits for the refinement tests and benchmark, checked against closed forms.
+
+Each circuit is built with workers.lumped; its port data comes from the MNA Schur complement and
+its natural frequencies from scipy.linalg.eig on the MNA pencil det(G + sC) = 0 — the independent
+oracle of every refinement test. The builders are checked here against the closed-form natural
+frequencies of a parallel RLC tank (s² + (G/C)s + 1/(LC) = 0, common practice).
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import numpy as np
+import pytest
+import scipy.linalg
+
+from workers.engine.request import CheckOptions, CheckRequest, Device, Network, Port
+from workers.lumped import (
+    GROUND,
+    VCCS,
+    Capacitor,
+    Circuit,
+    Conductance,
+    Inductor,
+    Resistor,
+    assemble,
+    natural_frequencies,
+    port_admittance,
+)
+
+
+@dataclass(frozen=True)
+class Case:
+    """A circuit, its probe ports (port name = node name) and its devices in switch-on order."""
+
+    name: str
+    circuit: Circuit
+    nodes: tuple[str, ...]
+    devices: tuple[str, ...]
+
+    def natural_frequencies(self) -> np.ndarray:
+        return natural_frequencies(self.circuit)
+
+    def unstable(self) -> np.ndarray:
+        """Right-half-plane natural frequencies with Im ≥ 0 (one per pair), by frequency."""
+        s = self.natural_frequencies()
+        s = s[(s.real > 0) & (s.imag >= 0)]
+        return s[np.argsort(s.imag)]
+
+    def request(self, frequency_hz: np.ndarray, refine: bool = True,
+                noise: float = 0.0, seed: int = 0) -> CheckRequest:
+        """Y data at the probe ports (devices on); optional complex Gaussian noise relative to
+        each entry (seeded)."""
+        f = np.asarray(frequency_hz, dtype=float)
+        y = port_admittance(self.circuit, list(self.nodes), f)
+        if noise:
+            rng = np.random.default_rng(seed)
+            y = y * (1 + noise * (rng.standard_normal(y.shape)
+                                  + 1j * rng.standard_normal(y.shape)) / np.sqrt(2))
+        index = {node: k for k, node in enumerate(self.nodes)}
+
+        def at(node: str) -> int | None:
+            return None if node == GROUND else index[node]
+
+        devices = []
+        for name in self.devices:
+            d = self.circuit.element(name)
+            devices.append(Device(name, np.full(f.size, complex(d.gm_s)),
+                                  (at(d.control[0]), at(d.control[1])),
+                                  (at(d.output[0]), at(d.output[1]))))
+        ports = tuple(Port(node, "probe") for node in self.nodes)
+        return CheckRequest(f, Network("Y", y, np.full(len(self.nodes), 50.0)), ports,
+                            tuple(devices), options=CheckOptions(refine=refine))
+
+
+def tank(f0_hz: float, growth_ratio: float, q_off: float = 20.0, l_h: float = 1e-9) -> Case:
+    """Parallel L, C, R tank at node "tank" with a negative-conductance device (a VCCS whose
+    control and output are the tank node, gm < 0) set so that the pair has σ/ω₀ = growth_ratio.
+
+    Closed form: s² + (G/C)s + 1/(LC) = 0 with G = 1/R + gm, so σ = −G/2C; gm = −1/R − 2Cσ.
+    """
+    w0 = 2 * np.pi * f0_hz
+    c_f = 1 / (w0**2 * l_h)
+    r_ohm = q_off / (w0 * c_f)
+    gm = -1 / r_ohm - 2 * c_f * growth_ratio * w0
+    circuit = Circuit((
+        Resistor("R", "tank", "0", r_ohm),
+        Inductor("L", "tank", "0", l_h),
+        Capacitor("C", "tank", "0", c_f),
+        VCCS("Q1", ("tank", "0"), ("tank", "0"), gm),
+    ))
+    return Case(f"tank_{f0_hz:.3g}_{growth_ratio:+.4f}", circuit, ("tank",), ("Q1",))
+
+
+def odd_mode_pair(f0_hz: float = 2e9, g_net_s: float = -1e-3, coupling_f: float = 0.5e-12,
+                  order: tuple[str, str] = ("Q1", "Q2")) -> Case:
+    """Two identical tanks "a" and "b", each with a negative-conductance device (Q1 at a, Q2 at b),
+    joined through capacitors Cc to a combining node "m" that has a resistor Re to ground.
+
+    The even mode (v_a = v_b) drives current through Re and is damped; the odd mode
+    (v_a = −v_b) leaves m at virtual ground, sees Cc as a lossless shunt and, with net
+    conductance g_net_s < 0 per tank, grows. Re is set so that ωCc·2Re = 1 at f0 (largest
+    even-mode loss, ωCc/2 per tank).
+    """
+    l_h = 1e-9
+    w0 = 2 * np.pi * f0_hz
+    c_f = 1 / (w0**2 * l_h)
+    r_ohm = 20 / (w0 * c_f)
+    gm = g_net_s - 1 / r_ohm
+    re_ohm = 1 / (2 * w0 * coupling_f)
+    elements = []
+    for tag in ("a", "b"):
+        device = "Q1" if tag == "a" else "Q2"
+        elements += [
+            Resistor(f"R{tag}", tag, "0", r_ohm),
+            Inductor(f"L{tag}", tag, "0", l_h),
+            Capacitor(f"C{tag}", tag, "0", c_f),
+            Capacitor(f"Cc{tag}", tag, "m", coupling_f),
+            VCCS(device, (tag, "0"), (tag, "0"), gm),
+        ]
+    elements.append(Resistor("Re", "m", "0", re_ohm))
+    return Case("odd_mode_pair", Circuit(tuple(elements)), ("a", "b", "m"), order)
+
+
+def mode_shape(case: Case, s: complex) -> dict[str, float]:
+    """|node voltage| of the natural mode nearest s at the case's port nodes, largest = 1,
+    from the eigenvector of the MNA pencil (scipy.linalg.eig(G, −C))."""
+    system = assemble(case.circuit)
+    values, vectors = scipy.linalg.eig(system.G, -system.C)
+    finite = np.isfinite(values)
+    k = int(np.argmin(np.where(finite, np.abs(values - s), np.inf)))
+    x = np.abs(vectors[:, k])
+    at = {node: float(x[system.labels.index(node)]) for node in case.nodes}
+    top = max(at.values())
+    return {node: value / top for node, value in at.items()}
+
+
+def with_shunt(case: Case, node: str, siemens: float) -> Case:
+    """The case with a shunt conductance added from ``node`` to ground."""
+    return Case(case.name + "+shunt", case.circuit.with_elements(
+        Conductance("Gshunt", node, "0", siemens)), case.nodes, case.devices)
+
+
+def generated_set(seed: int = 7, size: int = 10) -> list[Case]:
+    """Seeded random tanks (f0 0.5–5 GHz, |σ|/ω 0.1–2 %, either sign) and odd-mode pairs."""
+    rng = np.random.default_rng(seed)
+    cases = []
+    for i in range(size):
+        if i % 4 == 3:
+            cases.append(odd_mode_pair(f0_hz=float(rng.uniform(1e9, 4e9)),
+                                       g_net_s=float(rng.choice([-1, 1]) * rng.uniform(0.3e-3,
+                                                                                        2e-3))))
+        else:
+            ratio = float(rng.choice([-1, 1]) * 10 ** rng.uniform(-3, np.log10(0.02)))
+            cases.append(tank(float(rng.uniform(0.5e9, 5e9)), ratio,
+                              q_off=float(rng.uniform(5, 40))))
+    return cases
+
+
+COARSE_HZ = np.geomspace(10e6, 40e9, 201)
+DENSE_HZ = np.geomspace(10e6, 40e9, 2001)
+
+
+# --- the builders against closed forms -------------------------------------------------------
+
+
+@pytest.mark.parametrize("ratio", [0.005, -0.005, 0.001])
+def test_tank_builder_places_the_pair(ratio):
+    # Closed form (parallel RLC, common practice): s = σ ± j√(ω₀² − σ²) with σ = ratio·ω₀.
+    case = tank(1e9, ratio)
+    w0 = 2 * np.pi * 1e9
+    s = case.natural_frequencies()
+    assert s.size == 2
+    expected = ratio * w0 + 1j * np.sqrt(w0**2 - (ratio * w0) ** 2)
+    top = s[np.argmax(s.imag)]
+    assert abs(top - expected) <= 1e-9 * w0
+
+
+def test_odd_mode_pair_has_one_unstable_odd_pair():
+    # Symmetry (common practice): the odd mode leaves the combining node at virtual ground, so
+    # its eigenvector has v_a = −v_b and v_m = 0; only it grows when g_net < 0.
+    case = odd_mode_pair()
+    unstable = case.unstable()
+    assert unstable.size == 1
+    shape = mode_shape(case, unstable[0])
+    assert shape["a"] == pytest.approx(1.0, rel=1e-6)
+    assert shape["b"] == pytest.approx(1.0, rel=1e-6)
+    assert shape["m"] < 1e-6

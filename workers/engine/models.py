@@ -1,0 +1,247 @@
+"""Rational models of sampled responses: AAA fits on the jω axis, validated by leave-out error.
+
+The fit is the AAA algorithm (Y. Nakatsukasa, O. Sète, L. N. Trefethen, "The AAA algorithm for
+rational approximation", SIAM J. Sci. Comput. 40(3), A1494–A1522, 2018) as implemented by
+``scipy.interpolate.AAA``. A real circuit's response obeys H(−jω) = conj H(jω), so every fit
+sees the samples twice: at s = jω and, mirrored, at s = −jω with conjugated values; its poles and
+zeros then come in conjugate pairs. Frequencies are scaled by the top of the band.
+
+Validation by leave-out: one model is fitted on the even-numbered samples and checked on the odd
+ones. When it converges to rounding level and reproduces the unseen samples to EXACT_LEVEL, the
+data is rational and that model stands alone. Otherwise the even fit's error history gives the
+noise floor (the error stalls on a plateau at the noise level), both halves are fitted with a
+tolerance just above that plateau so that they stop before fitting noise, and each is checked on
+the samples the other saw. A pole–zero pair whose effect on the axis is below the noise floor is
+a Froissart doublet (op. cit., sec. 5) and is discarded; with two half-models a zero is only kept
+when both find it (a zero fitted into noise does not repeat on independent samples).
+"""
+
+from __future__ import annotations
+
+import warnings
+from dataclasses import dataclass
+
+import numpy as np
+from scipy.interpolate import AAA
+
+MAX_TERMS = 50           # largest barycentric order (bounds the cost of every fit)
+TIGHT_RTOL = 1e-12       # AAA tolerance for data that is rational to rounding level
+NOISE_MARGIN = 4.0       # tolerance of a fit given a known noise floor
+PLATEAU_MARGIN = 1.5     # refit tolerance = PLATEAU_MARGIN × the stalled fit error
+EXACT_LEVEL = 1e-9       # leave-out error (of max|H|) of data rational to rounding level
+VALIDATION_LIMIT = 2e-3  # largest leave-out error (relative to max|H|) of a validated model
+LOCAL_LIMIT = 0.25       # largest leave-out error relative to |H| at the same sample
+DOUBLET_FACTOR = 30.0    # pole–zero pairs that move H by less than this × noise are doublets
+MATCH_TOLERANCE = 0.02   # two half-models' zeros agree within this fraction of |z| ...
+MATCH_GROWTH = 0.25      # ... or within this fraction of |Re z|, whichever is larger
+
+
+@dataclass(frozen=True)
+class HalfFit:
+    """One AAA fit on every other sample (mirrored), in scaled units s/ω_top."""
+
+    fit: AAA
+    terms: int
+    converged: bool
+
+
+def _mirror(s: np.ndarray, h: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    return np.concatenate([s, -s]), np.concatenate([h, np.conj(h)])
+
+
+def aaa_fit(s: np.ndarray, h: np.ndarray, rtol: float, max_terms: int = MAX_TERMS) -> HalfFit:
+    """AAA on the mirrored samples ``s`` (scaled jω), without SciPy's own doublet clean-up.
+
+    SciPy warns when AAA stops at ``max_terms``; that outcome is returned as ``converged=False``
+    and judged by the leave-out check instead.
+    """
+    z, values = _mirror(s, h)
+    terms = int(max(2, min(max_terms, z.size // 3)))
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore", RuntimeWarning)
+        fit = AAA(z, values, rtol=rtol, max_terms=terms, clean_up=False)
+    m = int(fit.weights.size)
+    return HalfFit(fit, m, bool(fit.errors[-1] <= rtol * np.max(np.abs(values)) or m < terms))
+
+
+def _evaluate(fit: AAA, s: np.ndarray) -> np.ndarray:
+    """The barycentric formula r(s) = Σ w_j f_j/(s − z_j) / Σ w_j/(s − z_j), vectorised.
+
+    (Same value as ``fit(s)``, without its per-call bookkeeping; a point that hits a support
+    point exactly takes the support value.)
+    """
+    s = np.asarray(s, dtype=complex)
+    nodes, values, weights = fit.support_points, fit.support_values, fit.weights
+    with np.errstate(divide="ignore", invalid="ignore"):
+        cauchy = 1.0 / (s.reshape(-1)[:, None] - nodes[None, :])
+        r = (cauchy @ (weights * values)) / (cauchy @ weights)
+    hit = ~np.isfinite(cauchy)
+    if hit.any():
+        rows, cols = np.nonzero(hit)
+        r[rows] = values[cols]
+    return r.reshape(s.shape)
+
+
+def _drop_doublets(zeros: np.ndarray, poles: np.ndarray, s_axis: np.ndarray, noise: float
+                   ) -> tuple[np.ndarray, int]:
+    """Zeros that do not nearly cancel a pole (scaled units); with the roles swapped, poles.
+
+    A pair (z, p) multiplies H by (s − z)/(s − p) = 1 + (p − z)/(s − p); on the sampled axis that
+    moves H by at most |p − z| / dist(p, samples). Below DOUBLET_FACTOR × noise it is invisible in
+    the data, so it cannot be told from a Froissart doublet.
+    """
+    if zeros.size == 0 or poles.size == 0:
+        return zeros, 0
+    gap = np.abs(zeros[:, None] - poles[None, :])
+    nearest = np.argmin(gap, axis=1)
+    reach = np.min(np.abs(poles[nearest][:, None] - s_axis[None, :]), axis=1)
+    with np.errstate(divide="ignore", invalid="ignore"):
+        effect = gap[np.arange(zeros.size), nearest] / reach
+    spurious = effect < DOUBLET_FACTOR * max(noise, 1e-13)
+    return zeros[~spurious], int(spurious.sum())
+
+
+def _matched(a: np.ndarray, b: np.ndarray) -> np.ndarray:
+    """Zeros of ``a`` that ``b`` also has (greedy nearest match); their mean positions."""
+    kept = []
+    free = list(range(b.size))
+    for z in a[np.argsort(np.abs(a))]:
+        if not free:
+            break
+        distances = np.abs(b[free] - z)
+        j = int(np.argmin(distances))
+        tolerance = max(MATCH_TOLERANCE * abs(z), MATCH_GROWTH * abs(z.real))
+        if distances[j] <= tolerance and np.sign(b[free[j]].real) == np.sign(z.real):
+            kept.append(0.5 * (z + b[free[j]]))
+            free.pop(j)
+    return np.asarray(kept, dtype=complex)
+
+
+@dataclass(frozen=True)
+class RationalModel:
+    """A validated (or rejected) rational model of one sampled response H(jω).
+
+    Errors are relative to max|H| over the samples. ``zeros_rad_s``/``poles_rad_s`` are in rad/s
+    (s-plane), Froissart doublets removed, zeros confirmed by both half-models.
+    """
+
+    frequency_hz: np.ndarray
+    scale_rad_s: float
+    even: HalfFit
+    odd: HalfFit | None  # None: the data is rational to rounding level, one half-model suffices
+    fit_error: float
+    leave_out_error: float
+    local_error: float
+    noise_floor: float
+    validated: bool
+    zeros_rad_s: np.ndarray
+    poles_rad_s: np.ndarray
+    doublets_removed: int
+    unmatched_zeros: int
+
+    @property
+    def terms(self) -> int:
+        return max(half.terms for half in self.halves)
+
+    @property
+    def halves(self) -> tuple[HalfFit, ...]:
+        return (self.even,) if self.odd is None else (self.even, self.odd)
+
+    def at_s(self, s_rad_s: np.ndarray) -> np.ndarray:
+        """The model at complex frequencies s (rad/s): the mean of the half-models."""
+        x = np.asarray(s_rad_s, dtype=complex) / self.scale_rad_s
+        if self.odd is None:
+            return _evaluate(self.even.fit, x)
+        return 0.5 * (_evaluate(self.even.fit, x) + _evaluate(self.odd.fit, x))
+
+    def __call__(self, frequency_hz: np.ndarray) -> np.ndarray:
+        """The model on the jω axis at ``frequency_hz``."""
+        return self.at_s(2j * np.pi * np.asarray(frequency_hz, dtype=float))
+
+    def summary(self) -> dict[str, float | int | bool]:
+        return {
+            "terms": self.terms,
+            "fit_error": self.fit_error,
+            "leave_out_error": self.leave_out_error,
+            "local_leave_out_error": self.local_error,
+            "noise_floor": self.noise_floor,
+            "validated": self.validated,
+            "doublets_removed": self.doublets_removed,
+            "unmatched_zeros": self.unmatched_zeros,
+        }
+
+
+def fit_response(frequency_hz: np.ndarray, h: np.ndarray) -> RationalModel:
+    """Fit, validate and clean a rational model of H sampled at ``frequency_hz`` (module doc).
+
+    ``h`` must be finite; needs at least 8 samples. The noise floor is read from the even
+    half-fit's error history: rational data converges to rounding level, noisy data stalls on a
+    plateau at the noise level, and the fits are then stopped just above that plateau.
+    """
+    f = np.asarray(frequency_hz, dtype=float)
+    h = np.asarray(h, dtype=complex)
+    if f.size < 8:
+        raise ValueError("a rational model needs at least 8 samples")
+    top = float(f[-1])
+    scale = 2 * np.pi * top
+    s = 1j * f / top
+    level = float(np.max(np.abs(h)))
+    even = aaa_fit(s[0::2], h[0::2], TIGHT_RTOL)
+    rtol = TIGHT_RTOL
+    noise = float(even.fit.errors[-1]) / level
+    if not even.converged:
+        history = np.asarray(even.fit.errors, dtype=float) / level
+        plateau = float(np.median(history[history.size // 2:]))
+        rtol, noise = PLATEAU_MARGIN * plateau, plateau / 3.0
+        even = aaa_fit(s[0::2], h[0::2], rtol)
+    miss_odd = np.abs(_evaluate(even.fit, s[1::2]) - h[1::2])
+    odd: HalfFit | None = None
+    missed = miss_odd
+    if not (rtol == TIGHT_RTOL and float(np.max(miss_odd)) / level <= EXACT_LEVEL):
+        odd = aaa_fit(s[1::2], h[1::2], rtol)
+        missed = np.concatenate([np.abs(_evaluate(odd.fit, s[0::2]) - h[0::2]), miss_odd])
+    halves = (even,) if odd is None else (even, odd)
+    noise = max(noise, 1e-14)
+    leave_out = float(np.max(missed)) / level
+    sampled = np.abs(h[1::2]) if odd is None else np.concatenate([np.abs(h[0::2]),
+                                                                    np.abs(h[1::2])])
+    with np.errstate(divide="ignore", invalid="ignore"):
+        local = float(np.max(missed / sampled))
+    fit_error = max(float(half.fit.errors[-1]) for half in halves) / level
+    validated = bool(np.isfinite(leave_out) and leave_out <= VALIDATION_LIMIT
+                     and local <= LOCAL_LIMIT)
+    axis = np.concatenate([s, -s])
+    kept, kept_poles = [], []
+    doublets = 0
+    for half in halves:
+        zeros, dropped = _drop_doublets(half.fit.roots(), half.fit.poles(), axis, noise)
+        kept.append(zeros)
+        doublets += dropped
+        kept_poles.append(_drop_doublets(half.fit.poles(), half.fit.roots(), axis, noise)[0])
+    if odd is None:
+        confirmed, poles, unmatched = kept[0], kept_poles[0], 0
+    else:
+        confirmed = _matched(kept[0], kept[1])
+        unmatched = int(max(kept[0].size, kept[1].size) - confirmed.size)
+        poles = _matched(kept_poles[0], kept_poles[1])
+    return RationalModel(
+        frequency_hz=f, scale_rad_s=scale, even=even, odd=odd, fit_error=fit_error,
+        leave_out_error=leave_out, local_error=local, noise_floor=noise, validated=validated,
+        zeros_rad_s=confirmed * scale, poles_rad_s=poles * scale, doublets_removed=doublets,
+        unmatched_zeros=unmatched,
+    )
+
+
+def fit_single(frequency_hz: np.ndarray, h: np.ndarray, noise_floor: float = 0.0
+               ) -> tuple[AAA, float]:
+    """One AAA fit on all samples (mirrored), tolerance from a known noise floor.
+
+    Returns the fit (scaled units s/(2π·f_top)) and its relative error on the samples. Used for
+    attribution (return differences), never for the verdict's count.
+    """
+    f = np.asarray(frequency_hz, dtype=float)
+    s = 1j * f / f[-1]
+    rtol = max(TIGHT_RTOL, NOISE_MARGIN * noise_floor)
+    half = aaa_fit(s, np.asarray(h, dtype=complex), rtol)
+    error = float(half.fit.errors[-1]) / float(np.max(np.abs(h)))
+    return half.fit, error
