@@ -93,25 +93,33 @@ def _check_gain_off(request: CheckRequest, y_on: np.ndarray, y_off: np.ndarray,
         ))
 
 
+# How fast the devices' share of NDF, |NDF − 1|, may still grow towards a band edge (per e-fold of
+# frequency) for that edge to count as settled; see ``encirclement`` for the reasoning.
+TREND_TOLERANCE = 0.25
+
+
 def count_trusted(count: Encirclements, request: CheckRequest) -> list[Diagnostic]:
     """The reasons, if any, why an NDF encirclement count cannot stand for the whole axis."""
     opts = request.options
     found: list[Diagnostic] = []
-    if count.low.distance > opts.closure_tolerance:
+    low, high, tol = count.low, count.high, opts.closure_tolerance
+    if low.distance > tol or low.trend < -TREND_TOLERANCE:
         found.append(Diagnostic(
             "band_low_open", "blocking",
-            f"NDF has not settled at the lowest frequency ({count.low.frequency_hz:.6g} Hz): "
-            f"distance {count.low.distance:.3g} > tolerance {opts.closure_tolerance:g}; extend the "
-            "band towards 0 Hz",
-            {"distance": count.low.distance, "frequency_hz": count.low.frequency_hz},
+            f"NDF has not settled at the lowest frequency ({low.frequency_hz:.6g} Hz): distance "
+            f"{low.distance:.3g} (tolerance {tol:g}), the devices' share of NDF grows towards DC "
+            f"with slope {-low.trend:.2f} per e-fold (limit {TREND_TOLERANCE:g}); extend the band "
+            "towards 0 Hz",
+            {"distance": low.distance, "trend": low.trend, "frequency_hz": low.frequency_hz},
         ))
-    if count.high.distance > opts.closure_tolerance:
+    if high.distance > tol or high.trend > TREND_TOLERANCE:
         found.append(Diagnostic(
             "band_high_open", "blocking",
-            f"NDF has not settled at the highest frequency ({count.high.frequency_hz:.6g} Hz): "
-            f"distance {count.high.distance:.3g} > tolerance {opts.closure_tolerance:g}; extend the "
-            "band upwards",
-            {"distance": count.high.distance, "frequency_hz": count.high.frequency_hz},
+            f"NDF has not settled at the highest frequency ({high.frequency_hz:.6g} Hz): distance "
+            f"{high.distance:.3g} (tolerance {tol:g}), the devices' share of NDF still grows with "
+            f"slope {high.trend:.2f} per e-fold (limit {TREND_TOLERANCE:g}); extend the band "
+            "upwards",
+            {"distance": high.distance, "trend": high.trend, "frequency_hz": high.frequency_hz},
         ))
     if count.max_phase_step_deg > opts.phase_step_limit_deg:
         found.append(Diagnostic(
