@@ -113,7 +113,7 @@ class Worker:
         with self.log_path.open("ab") as log:
             self.process = subprocess.Popen(self.argv, env=self.env, stdout=log,
                                             stderr=subprocess.STDOUT, start_new_session=True)
-        wait_until(lambda: b"ready." in self.log_path.read_bytes() or not self.alive(), 60,
+        wait_until(lambda: b"ready." in self.log_path.read_bytes() or not self.alive(), 120,
                    "the worker to start")
         assert self.alive(), self.log_tail()
         return self
@@ -145,11 +145,13 @@ class Worker:
         return "\n".join(self.log_text().splitlines()[-lines:])
 
 
-def worker_env(redis_url: str, data_dir: Path, **overrides: str) -> dict[str, str]:
-    """The environment of a test worker: this Redis, fast reconciliation, testing hooks on."""
+def worker_env(redis_url: str | None, data_dir: Path, **overrides: str) -> dict[str, str]:
+    """The environment of a test worker: this Redis (None: the embedded SQLite layout in
+    ``data_dir``), fast reconciliation, testing hooks on."""
     env = {k: v for k, v in os.environ.items() if not k.startswith("BALLAST_")}
+    if redis_url:
+        env["BALLAST_REDIS_URL"] = redis_url
     env.update({
-        "BALLAST_REDIS_URL": redis_url,
         "BALLAST_DATA_DIR": str(data_dir),
         "BALLAST_TESTING": "1",
         "BALLAST_SOFT_TIME_LIMIT_S": "60",
