@@ -17,12 +17,13 @@ import numpy as np
 import pytest
 from skrf.network import s2y
 
+from service.runner import load_request
 from tests.engine_support import damping, engine_request, log_grid, random_amplifier
 from workers.engine import analyse
 from workers.engine.conversions import y_from_s
 from workers.engine.loops import determinant_ratio, successive_return_differences
 from workers.engine.request import Network
-from workers.lumped import Circuit, assemble, port_admittance, s_from_y
+from workers.lumped import Circuit, assemble, check_request, port_admittance, s_from_y
 
 SEEDS = [0, 1, 2, 6, 12, 19]  # 2–4 devices each (tests.engine_support.random_amplifier)
 
@@ -208,3 +209,22 @@ def test_two_hundred_nodes_ndf_where_det_underflows():
     pivots, singular = successive_return_differences(y_off, gains, u, v)
     assert not singular.any()
     np.testing.assert_allclose(pivots, f_k, rtol=1e-10)
+
+
+@pytest.mark.parametrize("seed", SEEDS[:3])
+def test_json_request_with_gain_off_data_gives_the_same_ndf(seed):
+    # Two ways to switch the devices off: subtract their stamps from the data (rank-one terms),
+    # or use the exported gain_off state; both are the same det Y_off. The JSON path (S data,
+    # z0 = 50 Ω, through service.runner.load_request) must reproduce the direct Y request.
+    rc = random_amplifier(seed)
+    f = sample_grid(seed)
+    direct = analyse(engine_request(rc.circuit, rc.ports, f))
+    payload = check_request(
+        rc.circuit, [(p.name, p.node, p.role) for p in rc.ports],
+        [(d.name, d) for d in rc.circuit.devices], f, parameter="S", include_gain_off=True)
+    via_json = analyse(load_request(payload))
+    assert via_json.request.gain_off is not None
+    assert not any(d.code == "gain_off_mismatch" for d in via_json.diagnostics)
+    np.testing.assert_allclose(via_json.loops.ndf, direct.loops.ndf, rtol=1e-7)
+    np.testing.assert_allclose(via_json.loops.return_difference, direct.loops.return_difference,
+                               rtol=1e-7)
