@@ -64,7 +64,7 @@ def cut_request(name: str, side: str, ratio: float):
     off = natural_frequencies(circuit.gain_off(), osc.terminations)
     assert rhp_count(on) > 0  # the oracle says it oscillates
     growing_hz = np.abs(on[on.real > 0]) / (2 * np.pi)
-    full = grid_for(np.concatenate([on, off]))
+    full = grid_for(np.concatenate([on, off]), margin_decades=4.0)
     if side == "low":
         f = full[full >= ratio * growing_hz.max()]
     else:
@@ -79,22 +79,22 @@ def cut_verdict(name: str, side: str, ratio: float):
     return run_check(cut_request(name, side, ratio))
 
 
-RATIOS = (1.5, 3.0, 10.0)
+RATIOS = (1.5, 3.0, 10.0, 30.0, 100.0, 300.0)
 
-# Measured on 2026-12-02 against the engine at 12cbc57 plus the lead's working tree (closure
-# tolerance 0.2, rational-model refinement on). Strict, so each mark must go when it is fixed.
-STABLE_BUG = ("engine returns 'stable' for a band that stops below a growing pair: the closure "
-              "distance at the top edge is under the 0.2 tolerance and the validated model's "
-              "right-half-plane zeros outside the band are not counted (see report)")
+# Measured 2026-12-02 ~04:55 UTC on the lead's working tree (identify.NEAR_BAND = 100, closure
+# tolerance 0.2): these cuts come back ``stable``. In the phase-shift cases the validated NDF
+# model even has the growing pair (≈ 12.3 kHz ± j414.6 kHz vs the oracle's 12.2 kHz ± j414.5 kHz)
+# but it lies more than NEAR_BAND beyond the edge and is ignored; the closure distance at the
+# cut edge is under 0.2. Strict, so each mark must go when the engine is fixed.
 WRONGLY_STABLE = {
-    ("tank -2 mS", "high", 3.0), ("tank -2 mS", "high", 10.0), ("tank -20 mS", "high", 10.0),
+    ("phase shift A=crit+5", "low", 100.0), ("phase shift A=crit+5", "low", 300.0),
+    ("phase shift A=crit+5", "high", 100.0), ("phase shift A=crit+5", "high", 300.0),
+    ("random seed 19", "high", 300.0),
 }
-NO_EDGE_CODE = ("indeterminate, but the open edge is not named: the closure distance is under "
-                "the 0.2 tolerance (the low cuts are caught by model_count_disagrees instead)")
-EDGE_NOT_NAMED = WRONGLY_STABLE | {
-    ("tank -2 mS", "low", 3.0), ("tank -2 mS", "low", 10.0), ("tank -20 mS", "low", 10.0),
-    ("phase shift A=crit+5", "low", 3.0), ("phase shift A=crit+5", "low", 10.0),
-}
+STABLE_BUG = ("engine says 'stable' when the growing pair lies >= 100x beyond the band edge: "
+              "model zeros beyond NEAR_BAND are ignored and the edge closes within 0.2")
+EDGE_NOT_NAMED = WRONGLY_STABLE
+NO_EDGE_CODE = STABLE_BUG
 
 
 def _cases(xfail: set, reason: str):
