@@ -64,7 +64,7 @@ def test_unstable_variant_fails_the_flow_with_a_junit_failure(server, tmp_path, 
     code = main(["submit", str(folder), "--wait", "--junit", str(junit)])
     out, err = capsys.readouterr()
     assert code == 1
-    assert "2/2" in err and "checks/s" in err and "unstable 1" in err
+    assert "2/2" in err and re.search(r"checks/(s|min)", err) and "unstable 1" in err
     assert "tank_3mS.json" in out and "tank_8mS.json" in out
     root, cases = parse_junit(junit)
     assert (root.get("tests"), root.get("failures"), root.get("errors")) == ("2", "1", "0")
@@ -204,3 +204,18 @@ def test_unreachable_server_and_bad_input_exit_3(tmp_path, capsys, monkeypatch):
     assert main(["submit", str(empty), "--map", str(folder / "a.json"),
                  "--url", "http://127.0.0.1:9"]) == 3
     assert "no Touchstone files" in capsys.readouterr().err
+
+
+def test_progress_line_counts_and_rates():
+    from service.cli.client_progress import progress_line
+    from service.client import BatchProgress
+
+    progress = BatchProgress(total=40, finished=12, by_status={"done": 11, "failed": 1},
+                             by_verdict={"stable": 9, "unstable": 2}, elapsed_s=4.0)
+    line = progress_line(progress, width=20)
+    assert line.startswith("[" + "#" * 6 + "·" * 14 + "]")  # 12/40 of 20 cells
+    assert "12/40" in line and "stable 9 · unstable 2 · indeterminate 0" in line
+    assert "failed/cancelled 1" in line and "3.0 checks/s" in line and "~9 s left" in line
+    slow = BatchProgress(total=6, finished=1, by_status={"done": 1},
+                         by_verdict={"unstable": 1}, elapsed_s=120.0)
+    assert "0.5 checks/min" in progress_line(slow) and "~10 min 00 s left" in progress_line(slow)

@@ -229,12 +229,17 @@ def _write_report(client: BallastClient, args: argparse.Namespace, batch: dict[s
         if item["id"] not in checks and wants_plots(args.plots, item):
             checks[item["id"]] = client.get_check(item["id"])
 
+    live = sys.stderr.isatty()
+
     def note(n: int, total: int) -> None:
-        print(f"\rballast submit: writing report {n}/{total}", end="", file=sys.stderr)
+        if live:
+            print(f"\rballast submit: writing report {n}/{total}", end="", file=sys.stderr,
+                  flush=True)
 
     index = write_batch_report(args.report_dir, batch, items, checks, by_id, plots=args.plots,
                                on_check=note)
-    print(file=sys.stderr)
+    if live:
+        print(file=sys.stderr)
     return index
 
 

@@ -27,9 +27,24 @@ def progress_line(progress: BatchProgress, width: int = BAR_WIDTH) -> str:
         counts.append(f"failed/cancelled {failed}")
     rate = progress.rate_per_s
     remaining = progress.total - progress.finished
-    eta = f" │ ~{remaining / rate:.0f} s left" if rate > 0 and remaining > 0 else ""
+    eta = f" │ ~{duration(remaining / rate)} left" if rate > 0 and remaining > 0 else ""
     return (f"[{bar}] {progress.finished:>{len(str(progress.total))}}/{progress.total} │ "
-            + " · ".join(counts) + f" │ {rate:.1f} checks/s{eta}")
+            + " · ".join(counts) + f" │ {format_rate(rate)}{eta}")
+
+
+def format_rate(per_s: float) -> str:
+    """'3.2 checks/s', or per minute below one a second ('4.5 checks/min')."""
+    return f"{per_s:.1f} checks/s" if per_s >= 1.0 else f"{per_s * 60:.1f} checks/min"
+
+
+def duration(seconds: float) -> str:
+    """'42 s', '3 min 05 s', '2 h 10 min'."""
+    seconds = round(seconds)
+    if seconds < 90:
+        return f"{seconds} s"
+    if seconds < 5400:
+        return f"{seconds // 60} min {seconds % 60:02d} s"
+    return f"{seconds // 3600} h {seconds % 3600 // 60} min"
 
 
 class ProgressPrinter:
