@@ -131,6 +131,8 @@ def child_processes(config: RuntimeConfig, options: ServeOptions) -> list[Child]
     env = dict(os.environ)
     env["BALLAST_DATA_DIR"] = str(config.data_dir)
     env.setdefault("PYTHONUNBUFFERED", "1")
+    for var in ("OPENBLAS_NUM_THREADS", "OMP_NUM_THREADS", "MKL_NUM_THREADS"):
+        env.setdefault(var, "1")  # one process per core already; see workers/celery_app.py
     logs = config.data_dir / "logs"
     children = []
     if options.worker_processes > 0:

@@ -16,11 +16,17 @@ private redis-server on a spare port (default when redis-server is installed) or
 SQLite store and broker. Nothing is asserted: this prints ratios.
 """
 
+# ruff: noqa: E402 (the thread settings must precede numpy's first import)
 from __future__ import annotations
+
+import os
+
+# The engine baseline runs with one BLAS thread, like the workers (workers/celery_app.py).
+for _var in ("OPENBLAS_NUM_THREADS", "OMP_NUM_THREADS", "MKL_NUM_THREADS"):
+    os.environ.setdefault(_var, "1")
 
 import argparse
 import json
-import os
 import shutil
 import tempfile
 import time
