@@ -17,6 +17,7 @@ Keys (all upper case, in the Flask config):
 
 from __future__ import annotations
 
+import json
 import os
 from typing import Any
 
@@ -63,6 +64,9 @@ def app_config(overrides: dict[str, Any] | None = None,
         raw = env.get(name, "").strip()
         if raw:
             config[name] = kind(raw)
+    limits = env.get("BALLAST_TENANT_LIMITS", "").strip()
+    if limits:  # JSON: {"tenant": {"max_unfinished": n, "rate_limit": n}}
+        config["BALLAST_TENANT_LIMITS"] = json.loads(limits)
     config.update(overrides or {})
     return config
 

@@ -7,6 +7,7 @@ so verdicts in these tests are the engine's own.
 
 from __future__ import annotations
 
+from collections.abc import Iterator
 from dataclasses import dataclass, field
 from typing import Any
 
@@ -40,8 +41,10 @@ def api_config(store: Any, queue: FakeQueue, **overrides: Any) -> dict[str, Any]
 
 
 @pytest.fixture
-def api_store(tmp_path) -> SqliteStore:
-    return SqliteStore(tmp_path / "api.sqlite3")
+def api_store(tmp_path) -> Iterator[SqliteStore]:
+    store = SqliteStore(tmp_path / "api.sqlite3")
+    yield store
+    store.close()
 
 
 @pytest.fixture

@@ -34,7 +34,9 @@ def _free_port() -> int:
 def gunicorn(tmp_path_factory: pytest.TempPathFactory):
     tmp_path = tmp_path_factory.mktemp("gunicorn")
     store_path = tmp_path / "store.sqlite3"
-    token = create_token(SqliteStore(store_path), "acme")
+    setup_store = SqliteStore(store_path)
+    token = create_token(setup_store, "acme")
+    setup_store.close()
     port = _free_port()
     env = {**os.environ, "BALLAST_STORE_URL": f"sqlite:///{store_path}",
            "BALLAST_DATA_DIR": str(tmp_path), "BALLAST_MAX_BODY_BYTES": str(CAP)}
@@ -46,13 +48,15 @@ def gunicorn(tmp_path_factory: pytest.TempPathFactory):
     try:
         deadline = time.monotonic() + 30
         while True:
+            conn = http.client.HTTPConnection("127.0.0.1", port, timeout=5)
             try:
-                conn = http.client.HTTPConnection("127.0.0.1", port, timeout=5)
                 conn.request("GET", "/healthz")
                 if conn.getresponse().status == 200:
                     break
             except OSError:
                 pass
+            finally:
+                conn.close()
             if proc.poll() is not None or time.monotonic() > deadline:
                 pytest.fail(f"gunicorn did not start: {proc.stderr.read() if proc.stderr else ''}")
             time.sleep(0.2)
@@ -73,9 +77,11 @@ def _post_chunked(port: int, token: str, body: bytes) -> tuple[int, str, dict]:
     pieces = (body[i:i + 1000] for i in range(0, len(body), 1000))
     conn.request("POST", "/v1/checks", body=pieces, encode_chunked=True, headers={
         "Content-Type": "application/json", "Authorization": f"Bearer {token}"})
-    response = conn.getresponse()
-    payload = json.loads(response.read() or b"{}")
-    conn.close()
+    try:
+        response = conn.getresponse()
+        payload = json.loads(response.read() or b"{}")
+    finally:
+        conn.close()
     return response.status, response.getheader("Content-Type", ""), payload
 
 

@@ -147,3 +147,14 @@ def test_readyz_when_the_store_is_down(fake_queue, tmp_path):
     client = create_app(api_config(dead, fake_queue)).test_client()
     response = client.get("/readyz")
     assert response.status_code == 503 and response.get_json()["store"] is False
+
+
+def test_settings_from_the_environment():
+    from service.config import app_config, tenant_limit
+
+    config = app_config(environ={"BALLAST_MAX_BODY_BYTES": "1000", "BALLAST_RATE_LIMIT": "7",
+                                 "BALLAST_TENANT_LIMITS": '{"big": {"rate_limit": 70}}'})
+    assert config["BALLAST_MAX_BODY_BYTES"] == 1000
+    assert tenant_limit(config, "small", "rate_limit") == 7
+    assert tenant_limit(config, "big", "rate_limit") == 70
+    assert tenant_limit(config, "big", "max_unfinished") == config["BALLAST_MAX_UNFINISHED"]
