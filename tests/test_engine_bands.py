@@ -26,7 +26,7 @@ from tests.test_engine_closed_forms import (
 from workers.engine import run_check
 from workers.lumped import Circuit, natural_frequencies
 
-pytestmark = pytest.mark.slow  # the full verdict (model refinement on) for 30 cut bands: ~30 s
+pytestmark = pytest.mark.slow  # the full verdict (model refinement on) for 60 cut bands: ~30 s
 
 
 @dataclass(frozen=True)
