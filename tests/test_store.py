@@ -332,3 +332,38 @@ def test_sqlite_is_safe_across_processes_and_restarts(tmp_path):
     assert sum(wins) == 60  # every check claimed exactly once across the four processes
     reopened = SqliteStore(path)
     assert all(reopened.get_check("acme", cid).attempts == 1 for cid in ids)
+
+
+def test_quota_holds_under_concurrent_submissions(store):
+    outcomes: list[bool] = []
+    barrier = threading.Barrier(10)
+
+    def submit() -> None:
+        barrier.wait()
+        try:
+            store.create_checks("acme", [NewCheck({"i": i}) for i in range(3)], max_unfinished=12)
+            outcomes.append(True)
+        except QuotaExceededError:
+            outcomes.append(False)
+
+    threads = [threading.Thread(target=submit) for _ in range(10)]
+    for t in threads:
+        t.start()
+    for t in threads:
+        t.join()
+    assert outcomes.count(True) == 4 and store.count_unfinished("acme") == 12
+
+
+def test_redis_purge_drops_unfinished_entries_without_a_record(clock):
+    from tests.conftest import _redis_store
+
+    gen = _redis_store(clock)
+    store = next(gen)
+    try:
+        _, (cid,) = store.create_checks("acme", [NewCheck({"i": 0})])
+        store.r.sadd(f"{store.p}t:acme:open", "chk_lost-in-a-crash")
+        assert store.count_unfinished("acme") == 2
+        assert store.purge(clock.now) == 1
+        assert store.count_unfinished("acme") == 1 and store.get_check("acme", cid) is not None
+    finally:
+        gen.close()

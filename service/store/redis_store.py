@@ -148,6 +148,15 @@ if not c then return {'pending', ''} end
 return {'done', c}
 """
 
+# KEYS[1] = the tenant's unfinished set; ARGV: limit (-1: none), ids... -> {accepted, unfinished}
+_LUA_RESERVE = """
+local n = redis.call('SCARD', KEYS[1])
+local limit = tonumber(ARGV[1])
+if limit >= 0 and n + #ARGV - 1 > limit then return {0, n} end
+for i = 2, #ARGV do redis.call('SADD', KEYS[1], ARGV[i]) end
+return {1, n}
+"""
+
 _LUA_IDEM_RELEASE = """
 if redis.call('HEXISTS', KEYS[1], 'check_id') == 0 then redis.call('DEL', KEYS[1]) end
 return 1
@@ -211,6 +220,7 @@ class RedisStore:
         self._cancel_batch = self.r.register_script(_LUA_CANCEL_BATCH)
         self._idem_begin = self.r.register_script(_LUA_IDEM_BEGIN)
         self._idem_release = self.r.register_script(_LUA_IDEM_RELEASE)
+        self._reserve = self.r.register_script(_LUA_RESERVE)
 
     @property
     def _ttl(self) -> int:
@@ -237,50 +247,53 @@ class RedisStore:
         shared_hash = content_hash(shared) if shared is not None else None
         ids = [new_check_id() for _ in checks]
         open_key = f"{self.p}t:{tenant}:open"
-        with self.r.pipeline(transaction=True) as pipe:
-            while True:
+        payloads = [canonical_json(c.request) for c in checks]
+        # reserve the tenant's quota atomically (Lua), then write everything in one MULTI/EXEC;
+        # a failed write gives the reservation back
+        accepted, unfinished = self._reserve(
+            keys=[open_key], args=[-1 if max_unfinished is None else max_unfinished, *ids])
+        if not int(accepted):
+            raise QuotaExceededError(int(max_unfinished or 0), int(unfinished), len(checks))
+        try:
+            pipe = self.r.pipeline(transaction=True)
+            if shared is not None:
+                blob = f"{self.p}blob:{shared_hash}"
+                pipe.set(blob, canonical_json(shared), ex=ttl, nx=True)
+                pipe.expire(blob, ttl)
+            if batch_id is not None:
+                bkey = f"{self.p}batch:{batch_id}"
+                pipe.hset(bkey, mapping={
+                    "tenant": tenant, "created_at": _t(now), "label": batch_label or "",
+                    "size": len(checks), "shared_hash": shared_hash or "",
+                })
+                pipe.rpush(f"{bkey}:ids", *ids)
+                pipe.hset(f"{bkey}:counts", "s:queued", len(checks))
+                for key in (bkey, f"{bkey}:ids", f"{bkey}:counts"):
+                    pipe.expire(key, ttl)
+                tb = f"{self.p}t:{tenant}:batches"
+                pipe.zadd(tb, {batch_id: now})
+                pipe.zremrangebyscore(tb, "-inf", now - self.retention_s)
+                pipe.expire(tb, ttl)
+            for seq, (cid, c, payload) in enumerate(zip(ids, checks, payloads, strict=True)):
+                ck = f"{self.p}check:{cid}"
+                pipe.hset(ck, mapping={
+                    "tenant": tenant, "status": "queued", "created_at": _t(now),
+                    "updated_at": _t(now), "attempts": 0, "batch_id": batch_id or "",
+                    "seq": seq, "label": c.label if c.label is not None else "",
+                    "shared_hash": shared_hash or "",
+                })
+                pipe.expire(ck, ttl)
+                pipe.set(f"{self.p}req:{cid}", payload, ex=ttl)
+            if ids:
+                pipe.zadd(f"{self.p}queued", dict.fromkeys(ids, now))
+            pipe.execute()
+        except BaseException:
+            if ids:
                 try:
-                    pipe.watch(open_key)
-                    if max_unfinished is not None:
-                        unfinished = int(pipe.scard(open_key))
-                        if unfinished + len(checks) > max_unfinished:
-                            raise QuotaExceededError(max_unfinished, unfinished, len(checks))
-                    pipe.multi()
-                    if shared is not None:
-                        blob = f"{self.p}blob:{shared_hash}"
-                        pipe.set(blob, canonical_json(shared), ex=ttl, nx=True)
-                        pipe.expire(blob, ttl)
-                    if batch_id is not None:
-                        bkey = f"{self.p}batch:{batch_id}"
-                        pipe.hset(bkey, mapping={
-                            "tenant": tenant, "created_at": _t(now), "label": batch_label or "",
-                            "size": len(checks), "shared_hash": shared_hash or "",
-                        })
-                        pipe.rpush(f"{bkey}:ids", *ids)
-                        pipe.hset(f"{bkey}:counts", "s:queued", len(checks))
-                        for key in (bkey, f"{bkey}:ids", f"{bkey}:counts"):
-                            pipe.expire(key, ttl)
-                        tb = f"{self.p}t:{tenant}:batches"
-                        pipe.zadd(tb, {batch_id: now})
-                        pipe.zremrangebyscore(tb, "-inf", now - self.retention_s)
-                        pipe.expire(tb, ttl)
-                    for seq, (cid, c) in enumerate(zip(ids, checks, strict=True)):
-                        ck = f"{self.p}check:{cid}"
-                        pipe.hset(ck, mapping={
-                            "tenant": tenant, "status": "queued", "created_at": _t(now),
-                            "updated_at": _t(now), "attempts": 0, "batch_id": batch_id or "",
-                            "seq": seq, "label": c.label if c.label is not None else "",
-                            "shared_hash": shared_hash or "",
-                        })
-                        pipe.expire(ck, ttl)
-                        pipe.set(f"{self.p}req:{cid}", canonical_json(c.request), ex=ttl)
-                    if ids:
-                        pipe.sadd(open_key, *ids)
-                        pipe.zadd(f"{self.p}queued", dict.fromkeys(ids, now))
-                    pipe.execute()
-                    break
-                except redis.WatchError:
-                    continue
+                    self.r.srem(open_key, *ids)
+                except redis.RedisError:
+                    pass  # the purge drops reserved ids that never got a record
+            raise
         return batch_id, ids
 
     # -- reading ----------------------------------------------------------------------------------
@@ -445,14 +458,23 @@ class RedisStore:
             self.r.zadd(f"{self.p}queued", dict.fromkeys(check_ids, now), xx=True)
 
     def purge(self, now: float) -> int:
-        """Redis expires records by TTL; only the global indexes need pruning of vanished ids."""
+        """Redis expires records by TTL; purge only drops index entries whose record is gone
+        (from the reconciler's zsets and the tenants' unfinished sets). Returns how many."""
         gone = 0
-        for index in (f"{self.p}queued", f"{self.p}leases"):
+        indexes = [f"{self.p}queued", f"{self.p}leases"]
+        for index in indexes:
             ids = self.r.zrangebyscore(index, "-inf", _t(now - self.retention_s))
             for cid in ids:
                 if not self.r.exists(f"{self.p}check:{cid}"):
-                    self.r.zrem(index, cid)
-                    gone += 1
+                    gone += self.r.zrem(index, cid)
+        for open_key in self.r.scan_iter(match=f"{self.p}t:*:open", count=1000):
+            members = list(self.r.sscan_iter(open_key, count=1000))
+            pipe = self.r.pipeline(transaction=False)
+            for cid in members:
+                pipe.exists(f"{self.p}check:{cid}")
+            for cid, present in zip(members, pipe.execute(), strict=True):
+                if not present:
+                    gone += self.r.srem(open_key, cid)
         return gone
 
     # -- idempotency ------------------------------------------------------------------------------
