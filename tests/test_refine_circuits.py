@@ -67,13 +67,14 @@ class Case:
             d = self.circuit.element(name)
             devices.append(Device(name, np.full(f.size, complex(d.gm_s)),
                                   (at(d.control[0]), at(d.control[1])),
-                                  (at(d.output[0]), at(d.output[1]))))
+                                  (at(d.output[0]), at(d.output[1])), d.delay_s))
         ports = tuple(Port(node, "probe") for node in self.nodes)
         return CheckRequest(f, Network("Y", y, np.full(len(self.nodes), 50.0)), ports,
                             tuple(devices), options=CheckOptions(refine=refine))
 
 
-def tank(f0_hz: float, growth_ratio: float, q_off: float = 20.0, l_h: float = 1e-9) -> Case:
+def tank(f0_hz: float, growth_ratio: float, q_off: float = 20.0, l_h: float = 1e-9,
+         delay_s: float = 0.0) -> Case:
     """Parallel L, C, R tank at node "tank" with a negative-conductance device (a VCCS whose
     control and output are the tank node, gm < 0) set so that the pair has σ/ω₀ = growth_ratio.
 
@@ -87,7 +88,7 @@ def tank(f0_hz: float, growth_ratio: float, q_off: float = 20.0, l_h: float = 1e
         Resistor("R", "tank", "0", r_ohm),
         Inductor("L", "tank", "0", l_h),
         Capacitor("C", "tank", "0", c_f),
-        VCCS("Q1", ("tank", "0"), ("tank", "0"), gm),
+        VCCS("Q1", ("tank", "0"), ("tank", "0"), gm, delay_s),
     ))
     return Case(f"tank_{f0_hz:.3g}_{growth_ratio:+.4f}", circuit, ("tank",), ("Q1",))
 
@@ -155,6 +156,34 @@ def generated_set(seed: int = 7, size: int = 10) -> list[Case]:
             cases.append(tank(float(rng.uniform(0.5e9, 5e9)), ratio,
                               q_off=float(rng.uniform(5, 40))))
     return cases
+
+
+def embedded(case: Case, sections: int, seed: int = 0) -> Case:
+    """``case`` with a lossy ladder hung on its first node: ``sections`` series R–L sections with
+    a shunt C at each new node (each a probe port), ending in 50 Ω to ground (seeded values)."""
+    rng = np.random.default_rng(seed)
+    elements = []
+    previous = case.nodes[0]
+    nodes = list(case.nodes)
+    for k in range(sections):
+        node, mid = f"n{k + 1}", f"x{k + 1}"
+        elements += [
+            Resistor(f"Rs{k + 1}", previous, mid, float(rng.uniform(20, 200))),
+            Inductor(f"Ls{k + 1}", mid, node, float(rng.uniform(0.2e-9, 2e-9))),
+            Capacitor(f"Cp{k + 1}", node, "0", float(rng.uniform(0.05e-12, 0.5e-12))),
+        ]
+        nodes.append(node)
+        previous = node
+    elements.append(Resistor("Rend", previous, "0", 50.0))
+    return Case(f"{case.name}+ladder{sections}", case.circuit.with_elements(*elements),
+                tuple(nodes), case.devices)
+
+
+def benchmark_set(seed: int = 11, size: int = 20) -> list[Case]:
+    """The generated set with every other circuit embedded in a 3–7 section ladder (4–10 ports)."""
+    rng = np.random.default_rng(seed + 1)
+    return [embedded(case, int(rng.integers(3, 8)), seed=k) if k % 2 else case
+            for k, case in enumerate(generated_set(seed, size))]
 
 
 COARSE_HZ = np.geomspace(10e6, 40e9, 201)

@@ -2,8 +2,9 @@
 
     python -m tests.benchmarks.bench_refine [--size 20] [--seed 11] [--repeat 5]
 
-On generated lumped circuits (tests/test_refine_circuits.py: tanks with |σ|/ω from 0.1 % to 2 %
-of either sign, odd-mode pairs), with 201-point inputs:
+On generated lumped circuits (tests/test_refine_circuits.py ``benchmark_set``: tanks with |σ|/ω
+from 0.1 % to 2 % of either sign and odd-mode pairs, every other one embedded in a lossy ladder
+with 3–7 more probe ports), with 201-point inputs:
 
 * match: the refined verdict, count and mode frequencies (within 0.5 %) equal those of the same
   engine on a 2,001-point input; also reported against eig of the MNA pencil;
@@ -21,7 +22,7 @@ import time
 
 import numpy as np
 
-from tests.test_refine_circuits import COARSE_HZ, DENSE_HZ, Case, generated_set
+from tests.test_refine_circuits import COARSE_HZ, DENSE_HZ, Case, benchmark_set
 from workers.engine import run_check
 
 
@@ -51,10 +52,10 @@ def main(argv: list[str] | None = None) -> int:
     parser.add_argument("--seed", type=int, default=11)
     parser.add_argument("--repeat", type=int, default=5)
     args = parser.parse_args(argv)
-    cases = generated_set(seed=args.seed, size=args.size)
+    cases = benchmark_set(seed=args.seed, size=args.size)
     run_check(cases[0].request(COARSE_HZ))  # warm-up (imports, caches)
     ratios, matches, oracle_matches = [], 0, 0
-    print(f"{'variant':34s} {'verdict':13s} {'dense':13s} {'eig':>4s} "
+    print(f"{'variant':42s} {'verdict':13s} {'dense':13s} {'eig':>4s} "
           f"{'plain ms':>9s} {'refined ms':>10s} {'cost ratio':>10s}")
     for case in cases:
         plain, _ = _best_time(case, False, args.repeat)
@@ -68,7 +69,7 @@ def main(argv: list[str] | None = None) -> int:
         oracle_matches += oracle
         ratio = (refined - plain) / plain
         ratios.append(ratio)
-        print(f"{case.name:34s} {coarse.verdict:13s} {dense.verdict:13s} "
+        print(f"{case.name:42s} {coarse.verdict:13s} {dense.verdict:13s} "
               f"{'ok' if oracle else 'NO':>4s} {1e3 * plain:9.2f} {1e3 * refined:10.2f} "
               f"{ratio:10.2f}{'' if match else '   <- differs from dense'}")
     r = np.array(ratios)

@@ -80,7 +80,8 @@ class NodeFit:
     def impedance(self, s_rad_s: np.ndarray) -> np.ndarray:
         """Z_kk at complex frequencies s, (len(s), N)."""
         x = np.asarray(s_rad_s, dtype=complex)[:, None] / self.scale_rad_s
-        basis = 1.0 / (x - self.poles_rad_s[None, :] / self.scale_rad_s)
+        with np.errstate(divide="ignore", invalid="ignore"):
+            basis = 1.0 / (x - self.poles_rad_s[None, :] / self.scale_rad_s)
         return (basis @ (self.residues / self.scale_rad_s) + self.constant[None, :]
                 + x * self.slope[None, :])
 
@@ -95,6 +96,7 @@ def fit_nodes(frequency_hz: np.ndarray, impedance: np.ndarray, poles_rad_s: np.n
     x_all = np.concatenate([x, -x])
     z_all = np.concatenate([z, np.conj(z)])
     p = np.asarray(poles_rad_s, dtype=complex) / scale_rad_s
+    p = p[np.min(np.abs(x_all[:, None] - p[None, :]), axis=0, initial=np.inf) > 0]
     basis = np.concatenate([1.0 / (x_all[:, None] - p[None, :]), np.ones((x_all.size, 1)),
                             x_all[:, None]], axis=1)
     norms = np.linalg.norm(basis, axis=0)
@@ -105,7 +107,7 @@ def fit_nodes(frequency_hz: np.ndarray, impedance: np.ndarray, poles_rad_s: np.n
     with np.errstate(divide="ignore", invalid="ignore"):
         error = np.max(np.abs(fitted - z_all), axis=0) / np.max(np.abs(z_all), axis=0)
     n = p.size
-    return NodeFit(np.asarray(poles_rad_s, dtype=complex), coefficients[:n] * scale_rad_s,
+    return NodeFit(p * scale_rad_s, coefficients[:n] * scale_rad_s,
                    coefficients[n], coefficients[n + 1], scale_rad_s, error)
 
 
@@ -116,34 +118,33 @@ def _near(candidates: np.ndarray, target: complex, span: float) -> bool:
 
 def carrying_devices(frequency_hz: np.ndarray, return_difference: np.ndarray,
                      zeros_rad_s: np.ndarray, noise_floor: float) -> list[list[int]]:
-    """For each unstable zero, the devices whose switching-on brings it into the right half-plane.
+    """For each unstable zero, the device whose switching-on brings it into the right half-plane.
 
-    F_k = D_k / D_(k−1), where D_k is NDF with devices 1..k on; its right-half-plane zeros are the
-    unstable natural frequencies of the circuit with devices 1..k on, its right-half-plane poles
-    those with 1..k−1 on. Device k carries a mode when F_k has a right-half-plane zero near the
-    mode (within CARRY_SPAN of |s|: switching devices on moves the mode) and no right-half-plane
-    pole there. F_k is fitted locally, on the LOCAL_SAMPLES samples nearest the mode frequency.
-    With a single device F_1 = NDF carries every mode.
+    With D_k = F_1·…·F_k (NDF with devices 1..k on), the right-half-plane zeros of D_k are the
+    unstable natural frequencies of that partial circuit, and F_k = D_k / D_(k−1). The device
+    that carries a mode is the first k whose D_k has a right-half-plane zero near it (within
+    CARRY_SPAN of |s|: switching devices on moves a mode); D_D = NDF has it by definition, so
+    only D_1 … D_(D−1) are fitted, locally, on the LOCAL_SAMPLES samples nearest the mode.
     """
     n_devices = return_difference.shape[1]
-    if n_devices == 1:
-        return [[0] for _ in zeros_rad_s]
-    carriers: list[list[int]] = [[] for _ in zeros_rad_s]
+    carriers: list[list[int]] = []
     f = np.asarray(frequency_hz, dtype=float)
-    for i, z in enumerate(zeros_rad_s):
+    partial = np.cumprod(return_difference, axis=1)
+    for z in zeros_rad_s:
         f_mode = abs(z.imag) / (2 * np.pi)
         window = np.sort(np.argsort(np.abs(f - f_mode), kind="stable")[:LOCAL_SAMPLES])
-        for k in range(n_devices):
-            fk = return_difference[window, k]
-            ok = np.isfinite(fk)
+        carrier = n_devices - 1
+        for k in range(n_devices - 1):
+            dk = partial[window, k]
+            ok = np.isfinite(dk)
             if ok.sum() < 8:
                 continue
-            fit, _ = fit_single(f[window][ok], fk[ok], noise_floor)
-            scale = 2 * np.pi * f[window][ok][-1]
-            roots, poles = fit.roots() * scale, fit.poles() * scale
-            if _near(roots[roots.real > 0], z, CARRY_SPAN) and \
-                    not _near(poles[poles.real > 0], z, CARRY_SPAN):
-                carriers[i].append(k)
+            fit, _ = fit_single(f[window][ok], dk[ok], noise_floor)
+            roots = fit.roots() * (2 * np.pi * f[window][ok][-1])
+            if _near(roots[roots.real > 0], z, CARRY_SPAN):
+                carrier = k
+                break
+        carriers.append([carrier] if n_devices else [])
     return carriers
 
 
@@ -161,8 +162,11 @@ def identify_modes(zeros_rad_s: np.ndarray, node_fit: NodeFit, port_names: list[
     """One Mode per unstable zero (a pair once), nodes ranked by |residue of Z_kk|."""
     modes = []
     for i, z in enumerate(zeros_rad_s):
-        j = int(np.argmin(np.abs(node_fit.poles_rad_s - z)))
-        weights = np.abs(node_fit.residues[j])
+        if node_fit.poles_rad_s.size:
+            j = int(np.argmin(np.abs(node_fit.poles_rad_s - z)))
+            weights = np.abs(node_fit.residues[j])
+        else:
+            weights = np.zeros(len(port_names))
         weights = np.where(np.isfinite(weights), weights, 0.0)
         top = weights.max() if weights.size and weights.max() > 0 else 1.0
         weights = weights / top

@@ -25,12 +25,13 @@ import numpy as np
 from scipy.interpolate import AAA
 
 MAX_TERMS = 50           # largest barycentric order (bounds the cost of every fit)
-TIGHT_RTOL = 1e-12       # AAA tolerance for data that is rational to rounding level
+TIGHT_RTOL = 1e-9        # AAA tolerance for data rational to (text-file) rounding level
 NOISE_MARGIN = 4.0       # tolerance of a fit given a known noise floor
 PLATEAU_MARGIN = 1.5     # refit tolerance = PLATEAU_MARGIN × the stalled fit error
-EXACT_LEVEL = 1e-9       # leave-out error (of max|H|) of data rational to rounding level
+EXACT_LEVEL = 1e-8       # leave-out error (of max|H|) of data rational to rounding level
 VALIDATION_LIMIT = 2e-3  # largest leave-out error (relative to max|H|) of a validated model
 LOCAL_LIMIT = 0.25       # largest leave-out error relative to |H| at the same sample
+CANCEL_RELATIVE = 1e-6   # pole–zero pairs closer than this × |z| cancel (see _drop_doublets)
 DOUBLET_FACTOR = 30.0    # pole–zero pairs that move H by less than this × noise are doublets
 MATCH_TOLERANCE = 0.02   # two half-models' zeros agree within this fraction of |z| ...
 MATCH_GROWTH = 0.25      # ... or within this fraction of |Re z|, whichever is larger
@@ -88,7 +89,9 @@ def _drop_doublets(zeros: np.ndarray, poles: np.ndarray, s_axis: np.ndarray, noi
 
     A pair (z, p) multiplies H by (s − z)/(s − p) = 1 + (p − z)/(s − p); on the sampled axis that
     moves H by at most |p − z| / dist(p, samples). Below DOUBLET_FACTOR × noise it is invisible in
-    the data, so it cannot be told from a Froissart doublet.
+    the data, so it cannot be told from a Froissart doublet. A pair closer than CANCEL_RELATIVE·|z|
+    is dropped too: NDF's poles lie in the closed left half-plane, so a genuine right-half-plane
+    zero is at least Re z from every pole, and Re z < 1e-6·|z| is beyond any sampled data.
     """
     if zeros.size == 0 or poles.size == 0:
         return zeros, 0
@@ -97,7 +100,8 @@ def _drop_doublets(zeros: np.ndarray, poles: np.ndarray, s_axis: np.ndarray, noi
     reach = np.min(np.abs(poles[nearest][:, None] - s_axis[None, :]), axis=1)
     with np.errstate(divide="ignore", invalid="ignore"):
         effect = gap[np.arange(zeros.size), nearest] / reach
-    spurious = effect < DOUBLET_FACTOR * max(noise, 1e-13)
+    spurious = (effect < DOUBLET_FACTOR * max(noise, 1e-13)) | \
+        (gap[np.arange(zeros.size), nearest] <= CANCEL_RELATIVE * np.abs(zeros))
     return zeros[~spurious], int(spurious.sum())
 
 

@@ -270,7 +270,13 @@ def refine_analysis(analysis: Analysis, factors: tuple[np.ndarray, Any] | None =
             "model_not_validated", "warning",
             f"only {f.size} frequencies have a defined NDF; no rational model was fitted"))
         return _not_used(diagnostics, "too few samples for a rational model")
-    model = fit_response(f, h)
+    try:
+        model = fit_response(f, h)
+    except (ValueError, np.linalg.LinAlgError) as exc:
+        diagnostics.append(Diagnostic(
+            "model_not_validated", "warning",
+            f"no rational model of NDF could be fitted ({exc}); the count rests on the samples"))
+        return _not_used(diagnostics, "model fit failed")
     delayed = [d.name for d in request.devices if d.delay_s > 0]
     if not model.validated:
         diagnostics.append(Diagnostic(
