@@ -21,6 +21,7 @@ from marshmallow import RAISE, ValidationError
 from service.api.checks import IDEMPOTENCY_PARAMETER
 from service.api.common import (
     accept_once,
+    document_errors,
     idempotency_key,
     iso,
     json_object_body,
@@ -201,6 +202,7 @@ def _accepted(batch_id: str) -> tuple[dict[str, Any], int, dict[str, str]]:
 @blp.response(202, BatchAcceptedSchema, description="Accepted: every variant is queued",
               headers={"Location": {"schema": {"type": "string"}},
                        "Retry-After": {"schema": {"type": "integer"}}})
+@document_errors(blp, 400, 401, 409, 413, 415, 422, 429)
 def submit_batch():
     """Queue many variants sharing one port/device map (JSON, or multipart Touchstone files)."""
     if request.mimetype == "multipart/form-data":
@@ -250,6 +252,7 @@ def batch_view(record: BatchRecord, size: int | None = None) -> dict[str, Any]:
 @blp.doc(operationId="listBatches")
 @blp.arguments(BatchListQuerySchema, location="query", as_kwargs=True, unknown=RAISE)
 @blp.response(200, BatchListSchema)
+@document_errors(blp, 401, 422, 429)
 def list_batches(limit: int = 50):
     """The tenant's most recent batches, newest first."""
     return {"items": [batch_view(b) for b in store().list_batches(tenant(), limit=limit)]}
@@ -265,6 +268,7 @@ def _found(batch_id: str) -> BatchRecord:
 @blp.route("/<string:batch_id>", methods=["GET"])
 @blp.doc(operationId="getBatch")
 @blp.response(200, BatchSchema)
+@document_errors(blp, 401, 404, 429)
 def get_batch(batch_id: str):
     """Counts of the batch's checks per status and per verdict."""
     record = _found(batch_id)
@@ -274,6 +278,7 @@ def get_batch(batch_id: str):
 @blp.route("/<string:batch_id>", methods=["DELETE"])
 @blp.doc(operationId="cancelBatch")
 @blp.response(200, BatchSchema, description="The batch after cancelling its unfinished checks")
+@document_errors(blp, 401, 404, 429)
 def cancel_batch(batch_id: str):
     """Cancel every check of the batch that has not finished."""
     _found(batch_id)
@@ -318,6 +323,7 @@ def item_view(record: CheckRecord) -> dict[str, Any]:
 @blp.arguments(BatchChecksQuerySchema, location="query", as_kwargs=True, unknown=RAISE)
 @blp.response(200, BatchChecksPageSchema, headers={"Link": {
     "schema": {"type": "string"}, "description": 'RFC 8288 link to the next page, rel="next"'}})
+@document_errors(blp, 400, 401, 404, 422, 429)
 def list_batch_checks(batch_id: str, **query: Any):
     """One page of the batch's checks in submission order, optionally filtered."""
     if store().get_batch(tenant(), batch_id) is None:

@@ -12,6 +12,7 @@ from service.api.common import (
     IDEMPOTENCY_HEADER,
     accept_once,
     check_view,
+    document_errors,
     idempotency_key,
     json_object_body,
     store_checks,
@@ -64,6 +65,7 @@ def validate_request(body: dict[str, Any]) -> None:
 )
 @blp.response(202, CheckAcceptedSchema, headers=ACCEPTED_HEADERS,
               description="Accepted: the check is queued")
+@document_errors(blp, 400, 401, 409, 413, 415, 422, 429)
 def submit_check():
     """Queue one check request."""
     body = json_object_body()
@@ -87,6 +89,7 @@ def _found(check_id: str):
 @blp.route("/<string:check_id>", methods=["GET"])
 @blp.doc(operationId="getCheck")
 @blp.response(200, CheckSchema)
+@document_errors(blp, 401, 404, 429)
 def get_check(check_id: str):
     """A check's status, timestamps, attempts, and its verdict when done."""
     return check_view(_found(check_id))
@@ -96,6 +99,7 @@ def get_check(check_id: str):
 @blp.doc(operationId="cancelCheck")
 @blp.response(200, CheckSchema, description="The check after cancellation (a finished check "
                                             "is left as it was)")
+@document_errors(blp, 401, 404, 429)
 def cancel_check(check_id: str):
     """Cancel a check that has not finished."""
     _found(check_id)

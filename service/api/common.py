@@ -9,16 +9,50 @@ from datetime import UTC, datetime
 from typing import Any
 
 from flask import current_app, g, request
+from flask_smorest import Blueprint
 from marshmallow import ValidationError
 
 from service.api.tenancy import retry_after, store, tenant
 from service.config import tenant_limit
-from service.problems import abort_problem, field_errors
+from service.problems import PROBLEM_CONTENT_TYPE, ProblemSchema, abort_problem, field_errors
 from service.schemas.errors import flatten_errors
 from service.store.base import CheckRecord, NewCheck, QuotaExceededError
 
 IDEMPOTENCY_HEADER = "Idempotency-Key"
+_RETRY_AFTER = {"Retry-After": {"schema": {"type": "integer"},
+                                "description": "seconds to wait before trying again"}}
+_ERROR_HEADERS: dict[int, dict[str, Any]] = {
+    401: {"WWW-Authenticate": {"schema": {"type": "string"},
+                               "description": "Bearer challenge (RFC 6750)"}},
+    409: _RETRY_AFTER,
+    429: _RETRY_AFTER,
+}
+_ERROR_MEANING = {
+    400: "Malformed JSON, header or cursor",
+    401: "No valid bearer token",
+    404: "No such check or batch for this tenant",
+    409: "A request with this Idempotency-Key is still being accepted",
+    411: "Chunked body on a server that does not de-chunk",
+    413: "Request body above the configured limit",
+    415: "Body is not application/json (or multipart/form-data for batches)",
+    422: "Invalid request; `errors` names each field",
+    429: "Request rate or unfinished-check limit of the tenant reached",
+}
 MAX_IDEMPOTENCY_KEY = 255
+
+
+def document_errors(blp: Blueprint, *codes: int) -> Callable[[Any], Any]:
+    """Document problem+json answers of an operation (the OpenAPI ``default`` covers the rest)."""
+
+    def decorate(func: Any) -> Any:
+        for code in codes:
+            func = blp.alt_response(
+                code, schema=ProblemSchema, content_type=PROBLEM_CONTENT_TYPE,
+                description=_ERROR_MEANING[code], headers=_ERROR_HEADERS.get(code),
+            )(func)
+        return func
+
+    return decorate
 
 
 def iso(ts: float | None) -> str | None:
