@@ -3,8 +3,9 @@ against the Flask app on a socket (SQLite store, in-process queue running the re
 
 Expected verdicts come from closed forms, not from the engine: a parallel R, L, C tank with a
 negative conductance g has natural frequencies s = −G/2C ± j√(1/LC − (G/2C)²), G = 1/R + g
-(second-order circuit, any circuits textbook, e.g. Nilsson & Riedel, Electric Circuits, ch. 8 —
-from memory), so with R = 200 Ω it is stable for g = −3 mS and oscillates for g = −8 mS at
+(the parallel RLC natural response of any circuits textbook, e.g. Nilsson & Riedel, Electric
+Circuits, the chapter on second-order circuits — edition and chapter not checked, from memory),
+so with R = 200 Ω it is stable for g = −3 mS and oscillates for g = −8 mS at
 √(1/LC − (G/2C)²)/2π ≈ 3.557 GHz.
 """
 

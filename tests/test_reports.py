@@ -4,7 +4,8 @@ Circuits: the two-stage LNA of ``workers.lumped.families`` with and without the 
 its first gate DC return. The independent truth is scipy.linalg.eig on the circuit's MNA pencil
 (det(G + sC) = 0): no right-half-plane natural frequency with the resistor, one complex pair near
 145 MHz without it. SVG is parsed with xml.etree (W3C SVG 1.1 namespace); PNG is checked against
-its signature (PNG specification, ISO/IEC 15948 §5.2) and decoded.
+its 8-byte signature (PNG specification, W3C / ISO/IEC 15948, section "PNG signature" —
+section number from memory) and decoded.
 """
 
 from __future__ import annotations
