@@ -216,3 +216,31 @@ def test_batch_page_lists_worst_first_and_escapes_labels(lna):
     page = pages.check_page(checks[1], {"ndf": b"<svg/>"}, batch_href="../index.html")
     assert 'id="plot-ndf"' in page and "data:image/svg+xml;base64," in page
     assert re.search(r"14[0-9]\.[0-9] MHz", page)  # the mode's frequency, ≈ 146 MHz
+
+
+def test_report_folder_draws_the_same_pictures_in_parallel(tmp_path):
+    """Two oscillating tanks (closed form: G = 1/R + g < 0) and one with a broken request."""
+    from service.reports.writer import write_batch_report
+
+    checks, payloads = {}, {}
+    for tag, l_h in (("a", 1e-9), ("b", 2e-9)):
+        request = parallel_rlc_negative_g(l_h=l_h, g_neg_s=-8e-3).check_request(
+            np.geomspace(1e6, 1e12, 301))
+        checks[f"chk_{tag}"] = {"id": f"chk_{tag}", "label": tag, "status": "done",
+                                "verdict": run_check_json(request)}
+        payloads[f"chk_{tag}"] = request
+    checks["chk_c"] = dict(checks["chk_a"], id="chk_c", label="c")
+    payloads["chk_c"] = {"frequency_hz": [1.0]}  # cannot be analysed again
+    items = [item_from_check(c) for c in checks.values()]
+    batch = {"id": "bat_p", "label": "parallel"}
+    serial = write_batch_report(tmp_path / "serial", batch, items, checks, payloads, processes=1)
+    parallel = write_batch_report(tmp_path / "parallel", batch, items, checks, payloads,
+                                  processes=2)
+    for tag in ("a", "b", "c"):
+        one = (serial.parent / "checks" / f"chk_{tag}.html").read_text(encoding="utf-8")
+        two = (parallel.parent / "checks" / f"chk_{tag}.html").read_text(encoding="utf-8")
+        assert one == two, tag
+    page_a = (parallel.parent / "checks" / "chk_a.html").read_text(encoding="utf-8")
+    page_c = (parallel.parent / "checks" / "chk_c.html").read_text(encoding="utf-8")
+    assert 'id="plot-ndf"' in page_a and 'id="plot-circles"' not in page_a  # no two-port
+    assert "could not be drawn" in page_c and 'id="plot-ndf"' not in page_c

@@ -15,6 +15,7 @@ from __future__ import annotations
 import argparse
 import glob
 import json
+import os
 import sys
 from collections.abc import Mapping, Sequence
 from pathlib import Path
@@ -65,6 +66,8 @@ def register(subparsers: argparse._SubParsersAction) -> None:
                         help="write the HTML batch report and one page per check; implies --wait")
     submit.add_argument("--plots", choices=("not-stable", "all", "none"), default="not-stable",
                         help="which check pages get plots (default: not-stable)")
+    submit.add_argument("--jobs", type=int, default=min(4, os.cpu_count() or 1), metavar="N",
+                        help="processes drawing the report's plots (default: up to 4)")
     submit.add_argument("--timeout", type=float, metavar="SECONDS",
                         help="give up waiting after this long (exit 3)")
     submit.set_defaults(func=run_submit)
@@ -237,7 +240,7 @@ def _write_report(client: BallastClient, args: argparse.Namespace, batch: dict[s
                   flush=True)
 
     index = write_batch_report(args.report_dir, batch, items, checks, by_id, plots=args.plots,
-                               on_check=note)
+                               on_check=note, processes=args.jobs)
     if live:
         print(file=sys.stderr)
     return index

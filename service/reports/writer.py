@@ -8,7 +8,9 @@ default only checks that are not stable get pictures.
 from __future__ import annotations
 
 import logging
+import multiprocessing
 from collections.abc import Callable, Mapping, Sequence
+from concurrent.futures import ProcessPoolExecutor
 from pathlib import Path
 from typing import Any, Literal
 
@@ -41,26 +43,58 @@ def check_href(item: Mapping[str, Any]) -> str:
     return f"checks/{item['id']}.html"
 
 
+def render_many(jobs: Sequence[tuple[str, Mapping[str, Any], Mapping[str, Any]]],
+                processes: int = 1) -> dict[str, dict[str, bytes | None] | Exception]:
+    """Plots of several checks: ``jobs`` are (check id, request, verdict). With ``processes`` > 1
+    they are drawn in that many spawned processes (matplotlib is not thread-safe)."""
+    results: dict[str, dict[str, bytes | None] | Exception] = {}
+    if processes <= 1 or len(jobs) <= 1:
+        for check_id, payload, verdict in jobs:
+            try:
+                results[check_id] = check_plots(payload, verdict)
+            except Exception as exc:  # a page without pictures beats no page
+                results[check_id] = exc
+        return results
+    context = multiprocessing.get_context("spawn")
+    with ProcessPoolExecutor(max_workers=min(processes, len(jobs)), mp_context=context) as pool:
+        futures = {check_id: pool.submit(check_plots, dict(payload), dict(verdict))
+                   for check_id, payload, verdict in jobs}
+        for check_id, future in futures.items():
+            try:
+                results[check_id] = future.result()
+            except Exception as exc:
+                results[check_id] = exc
+    return results
+
+
 def write_batch_report(folder: Path, batch: Mapping[str, Any], items: Sequence[Mapping[str, Any]],
                        checks: Mapping[str, Mapping[str, Any]],
                        payloads: Mapping[str, Mapping[str, Any]],
                        plots: PlotChoice = "not-stable",
-                       on_check: Callable[[int, int], None] | None = None) -> Path:
+                       on_check: Callable[[int, int], None] | None = None,
+                       processes: int = 1) -> Path:
     """Write the pages; return the path of ``index.html``. ``checks`` maps ids to full check JSON
-    (items without one get a page from their listing row), ``payloads`` ids to check requests."""
+    (items without one get a page from their listing row), ``payloads`` ids to check requests;
+    ``processes`` > 1 draws the plots in parallel."""
     folder.mkdir(parents=True, exist_ok=True)
     (folder / "checks").mkdir(exist_ok=True)
+    jobs = []
+    for item in items:
+        check = checks.get(str(item["id"]))
+        payload = payloads.get(str(item["id"]))
+        if wants_plots(plots, item) and payload is not None and check and check.get("verdict"):
+            jobs.append((str(item["id"]), payload, check["verdict"]))
+    drawn = render_many(jobs, processes)
     for n, item in enumerate(items, start=1):
         check = checks.get(str(item["id"])) or {**item, "verdict": None}
         images: dict[str, bytes | None] = {}
         note = None
-        payload = payloads.get(str(item["id"]))
-        if wants_plots(plots, item) and payload is not None and check.get("verdict"):
-            try:
-                images = check_plots(payload, check["verdict"])
-            except Exception as exc:  # a page without pictures beats no page
-                log.warning("plots of %s failed: %s", item["id"], exc)
-                note = f"The plots could not be drawn: {exc}"
+        result = drawn.get(str(item["id"]))
+        if isinstance(result, Exception):
+            log.warning("plots of %s failed: %s", item["id"], result)
+            note = f"The plots could not be drawn: {result}"
+        elif result is not None:
+            images = result
         elif plots == "not-stable" and state_of(item) == "stable":
             note = "Stable: no pictures drawn (ask for them with --plots all)."
         page = check_page(check, images, batch_href="../index.html", plots_note=note)
