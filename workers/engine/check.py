@@ -103,22 +103,26 @@ def count_trusted(count: Encirclements, request: CheckRequest) -> list[Diagnosti
     opts = request.options
     found: list[Diagnostic] = []
     low, high, tol = count.low, count.high, opts.closure_tolerance
-    if low.distance > tol or low.trend < -TREND_TOLERANCE:
+    low_growing = low.trend is not None and low.trend < -TREND_TOLERANCE
+    high_flat = high.trend is not None and high.trend > -TREND_TOLERANCE
+    if low.distance > tol or low_growing:
         found.append(Diagnostic(
             "band_low_open", "blocking",
             f"NDF has not settled at the lowest frequency ({low.frequency_hz:.6g} Hz): distance "
-            f"{low.distance:.3g} (tolerance {tol:g}), the devices' share of NDF grows towards DC "
-            f"with slope {-low.trend:.2f} per e-fold (limit {TREND_TOLERANCE:g}); extend the band "
-            "towards 0 Hz",
+            f"{low.distance:.3g} (tolerance {tol:g}); the devices' share of NDF "
+            + (f"grows towards DC with slope {-low.trend:.2f} per e-fold (limit "
+               f"{TREND_TOLERANCE:g})" if low_growing else "is not growing towards DC")
+            + "; extend the band towards 0 Hz",
             {"distance": low.distance, "trend": low.trend, "frequency_hz": low.frequency_hz},
         ))
-    if high.distance > tol or high.trend > TREND_TOLERANCE:
+    if high.distance > tol or high_flat:
         found.append(Diagnostic(
             "band_high_open", "blocking",
             f"NDF has not settled at the highest frequency ({high.frequency_hz:.6g} Hz): distance "
-            f"{high.distance:.3g} (tolerance {tol:g}), the devices' share of NDF still grows with "
-            f"slope {high.trend:.2f} per e-fold (limit {TREND_TOLERANCE:g}); extend the band "
-            "upwards",
+            f"{high.distance:.3g} (tolerance {tol:g}); the devices' share of NDF "
+            + (f"changes with slope {high.trend:.2f} per e-fold where it must be falling (below "
+               f"{-TREND_TOLERANCE:g})" if high_flat else "is falling")
+            + "; extend the band upwards",
             {"distance": high.distance, "trend": high.trend, "frequency_hz": high.frequency_hz},
         ))
     if count.max_phase_step_deg > opts.phase_step_limit_deg:

@@ -13,11 +13,12 @@ measured here ("closure"), with the largest phase step between neighbouring samp
 
 Closure has two parts. ``distance``: the edge value lies near the real axis and H has stopped
 moving (|d ln H / d ln f| small). ``trend``: the slope s = d ln|H − 1| / d ln f, i.e. how the part
-of H that the devices add is going. At the top of a band it must not still be growing (s ≤ 0
-when H has passed the devices' gain, e.g. s ≈ −1 as a transconductance meets its input
-capacitance); at the bottom it must not grow towards DC (s ≥ 0). A loop whose return ratio is
-still small but growing towards the edge — an oscillation just outside the band — shows as
-s ≈ +1 at the top or s ≈ −1 at the bottom, even while the distance is small.
+of H that the devices add is going. At the top of a band it must be falling (s < 0: the band
+has passed the devices' gain, e.g. s ≈ −1 as a transconductance meets its input capacitance;
+every physical device's gain rolls off); at the bottom it must not grow towards DC (s ≥ 0). A
+loop whose return ratio is still small but growing towards the edge — an oscillation just outside
+the band — shows as s ≈ +1 at the top or s ≈ −1 at the bottom, even while the distance is small,
+and a share that is still flat at the top means the devices are still at full gain there.
 """
 
 from __future__ import annotations
@@ -27,7 +28,7 @@ from dataclasses import dataclass
 import numpy as np
 
 
-NEGLIGIBLE_ADDED = 1e-3  # |H − 1| below this: the devices no longer change H at this edge
+NEGLIGIBLE_ADDED = 1e-8  # |H − 1| below this: the devices no longer change H at this edge
 
 
 @dataclass(frozen=True)
@@ -36,14 +37,15 @@ class EdgeClosure:
 
     ``off_axis``: |Im H| / |H| at the edge (0 on the real axis, where H(0) and H(∞) lie).
     ``drift``: |d ln H / d ln f| at the edge (0 once H has settled).
-    ``trend``: d ln|H − 1| / d ln f at the edge (module docstring); 0 where |H − 1| is negligible.
+    ``trend``: d ln|H − 1| / d ln f at the edge (module docstring); None where |H − 1| is
+    negligible (the devices no longer change H there) or the edge is 0 Hz.
     """
 
     frequency_hz: float
     value: complex
     off_axis: float
     drift: float
-    trend: float = 0.0
+    trend: float | None = None
 
     @property
     def distance(self) -> float:
@@ -71,14 +73,14 @@ def _edge(frequency_hz: np.ndarray, h: np.ndarray, phase: np.ndarray, at: int, t
     off_axis = abs(value.imag) / magnitude if magnitude > 0 else np.inf
     f_edge, f_next = frequency_hz[at], frequency_hz[towards]
     if f_edge <= 0.0:
-        drift = trend = 0.0  # the DC sample itself is the low asymptote
+        drift, trend = 0.0, None  # the DC sample itself is the low asymptote
     else:
         dlog_f = np.log(f_next / f_edge)
         dlog_h = np.log(abs(h[towards]) / magnitude) + 1j * (phase[towards] - phase[at])
         drift = float(abs(dlog_h) / abs(dlog_f))
         added_edge, added_next = abs(value - 1.0), abs(complex(h[towards]) - 1.0)
         negligible = max(added_edge, added_next) < NEGLIGIBLE_ADDED
-        trend = 0.0 if negligible or min(added_edge, added_next) == 0.0 else \
+        trend = None if negligible or min(added_edge, added_next) == 0.0 else \
             float(np.log(added_next / added_edge) / dlog_f)
     return EdgeClosure(float(f_edge), value, float(off_axis), drift, trend)
 

@@ -87,7 +87,7 @@ class EdgeReport:
     distance: float
     off_axis: float
     drift: float
-    trend: float = 0.0
+    trend: float | None = None
 
 
 @dataclass(frozen=True)
