@@ -7,11 +7,13 @@ process group so that ``kill -9`` takes the pool processes with it.
 
 from __future__ import annotations
 
+import json
 import os
 import shutil
 import signal
 import socket
 import subprocess
+import sys
 import time
 from collections.abc import Callable
 from pathlib import Path
@@ -163,6 +165,23 @@ def worker_env(redis_url: str | None, data_dir: Path, **overrides: str) -> dict[
     })
     env.update(overrides)
     return env
+
+
+_REFERENCE_SCRIPT = """
+import json, sys
+from service.runner import run_check_json
+requests = json.load(sys.stdin)
+json.dump([run_check_json(r) for r in requests], sys.stdout)
+"""
+
+
+def engine_verdicts(requests: list[dict], env: dict[str, str]) -> list[dict]:
+    """The engine's own verdicts (``run_check_json``), computed in a fresh process with the
+    workers' environment (one BLAS thread, same code as the workers just loaded), through JSON
+    as the store keeps them."""
+    done = subprocess.run([sys.executable, "-c", _REFERENCE_SCRIPT], input=json.dumps(requests),
+                          capture_output=True, text=True, env=env, timeout=1800, check=True)
+    return json.loads(done.stdout)
 
 
 def submit(store: Store, env: dict[str, str], requests: list[tuple[str, dict]],

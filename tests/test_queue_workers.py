@@ -1,7 +1,8 @@
 """Real Celery workers on a private Redis: batches, killed workers, crashing checks, time limits.
 
-The reference for every verdict is ``service.runner.run_check_json`` run in the test process:
-the queue must hand back exactly what the engine computes. The failure semantics tested are
+The reference for every verdict is ``service.runner.run_check_json`` run in a fresh process with
+the workers' environment (``engine_verdicts``): the queue must hand back exactly what the engine
+computes. The failure semantics tested are
 Celery's documented late-acknowledgement behaviour (docs.celeryq.dev, configuration:
 task_acks_late, task_reject_on_worker_lost, task_time_limit / task_soft_time_limit) and the
 store's claim contract (service/store/base.py).
@@ -9,12 +10,10 @@ store's claim contract (service/store/base.py).
 
 from __future__ import annotations
 
-import json
 from pathlib import Path
 
 import pytest
 
-from service.runner import run_check_json
 from service.runtime_config import CHECK_QUEUE, RUN_CHECK_TASK, load_config
 from service.store import NewCheck, open_store
 from tests.queue_harness import (
@@ -22,6 +21,7 @@ from tests.queue_harness import (
     RedisServer,
     Worker,
     all_final,
+    engine_verdicts,
     statuses,
     submit,
     wait_until,
@@ -68,11 +68,6 @@ def workers(tmp_path: Path):
         worker.stop()
 
 
-def engine_verdict(request: dict) -> dict:
-    """The engine's own verdict, through JSON as the store keeps it."""
-    return json.loads(json.dumps(run_check_json(request)))
-
-
 def differences(got: object, want: object, path: str = "") -> list[str]:
     """Paths where two JSON values differ (for a readable failure message)."""
     if isinstance(got, dict) and isinstance(want, dict):
@@ -88,14 +83,15 @@ def test_batch_of_200_variants_matches_the_engine(redis_server, store, workers, 
     env = worker_env(redis_server.url, tmp_path)
     workers(env, concurrency=2)
     batch = variants(200, points=101)
+    expected = engine_verdicts([v.request for v in batch], env)
     ids = submit(store, env, [(v.label, v.request) for v in batch])
     wait_until(lambda: all_final(store, ids), 300, "the batch to finish", every_s=0.5)
     assert statuses(store, ids) == {"done": 200}
-    for check_id, variant in zip(ids, batch, strict=True):
+    for check_id, variant, want in zip(ids, batch, expected, strict=True):
         record = store.get_check_any(check_id)
         assert record is not None and record.label == variant.label
         assert record.attempts == 1
-        assert differences(record.verdict, engine_verdict(variant.request)) == [], variant.label
+        assert differences(record.verdict, want) == [], variant.label
 
 
 def _holder(pool: list[Worker], check_id: str, store) -> Worker | None:
@@ -117,6 +113,7 @@ def test_killed_worker_check_completes_on_another(layout, redis_server, workers,
     store = open_store(load_config(env).store_url)
     pool = [workers(env, name="first"), workers(env, name="second")]
     (variant,) = variants(1, points=101)
+    (want,) = engine_verdicts([variant.request], env)
     (check_id,) = submit(store, env, [("slow", variant.request)])
     victim = wait_until(lambda: _holder(pool, check_id, store), 30, "a worker to start the check")
     victim.kill9()  # mid-check: the message is unacknowledged and the lease still runs
@@ -127,7 +124,7 @@ def test_killed_worker_check_completes_on_another(layout, redis_server, workers,
     store.close()
     assert record.status == "done", record.error
     assert record.attempts == 2
-    assert differences(record.verdict, engine_verdict(variant.request)) == []
+    assert differences(record.verdict, want) == []
     assert survivor.alive() and "succeeded" in survivor.log_text()
 
 
@@ -138,29 +135,34 @@ def test_stored_but_unpublished_checks_are_delivered_by_the_reconciler(
     env = worker_env(redis_server.url, tmp_path)
     workers(env)
     batch = variants(3, points=101)
+    expected = engine_verdicts([v.request for v in batch], env)
     _, ids = store.create_checks("t", [NewCheck(v.request, label=v.label) for v in batch],
                                  as_batch=True)  # stored, never published
     wait_until(lambda: all_final(store, ids), 60, "the reconciler to deliver them")
-    for check_id, variant in zip(ids, batch, strict=True):
+    for check_id, want in zip(ids, expected, strict=True):
         record = store.get_check_any(check_id)
         assert record.status == "done" and record.attempts == 1
-        assert differences(record.verdict, engine_verdict(variant.request)) == []
+        assert differences(record.verdict, want) == []
 
 
 def test_check_that_kills_its_worker_every_time_fails_after_max_attempts(
         redis_server, store, workers, tmp_path):
-    env = worker_env(redis_server.url, tmp_path, **SHORT_LIMITS, BALLAST_MAX_ATTEMPTS="2",
+    # Hard limit 10 s: the pool notices a dead process within a few seconds, and a hard limit
+    # shorter than that would report the crash as a time-out (seen with 3 s on a loaded host).
+    env = worker_env(redis_server.url, tmp_path, BALLAST_SOFT_TIME_LIMIT_S="8",
+                     BALLAST_HARD_TIME_LIMIT_S="10", BALLAST_MAX_ATTEMPTS="2",
                      BALLAST_TEST_CRASH_LABEL="poison")
     worker = workers(env)
     good, bad = variants(2, points=101)
+    (want,) = engine_verdicts([good.request], env)
     ids = submit(store, env, [("poison", bad.request), ("fine", good.request)])
-    wait_until(lambda: all_final(store, ids), 90, "both checks to end")
+    wait_until(lambda: all_final(store, ids), 120, "both checks to end")
     poison, fine = (store.get_check_any(i) for i in ids)
     assert poison.status == "failed"
     assert poison.attempts == 2
     assert poison.error
     assert fine.status == "done"
-    assert differences(fine.verdict, engine_verdict(good.request)) == []
+    assert differences(fine.verdict, want) == []
     assert worker.alive()  # Celery replaced the pool process each time
     assert worker.log_text().count("WorkerLostError") >= 2
 
@@ -215,6 +217,7 @@ def test_redis_restart_loses_no_accepted_check(redis_server, store, workers, tmp
     env = worker_env(redis_server.url, tmp_path)
     worker = workers(env, concurrency=2)
     batch = variants(80, points=201)
+    expected = engine_verdicts([v.request for v in batch], env)
     ids = submit(store, env, [(v.label, v.request) for v in batch])
     wait_until(lambda: sum(statuses(store, ids).get(s, 0) for s in ("done", "failed")) >= 5, 120,
                "the first checks")
@@ -222,9 +225,9 @@ def test_redis_restart_loses_no_accepted_check(redis_server, store, workers, tmp
     wait_until(lambda: all_final(store, ids), 240, "the batch to finish after the restart",
                every_s=0.5)
     assert statuses(store, ids) == {"done": 80}
-    for check_id, variant in zip(ids, batch, strict=True):
+    for check_id, variant, want in zip(ids, batch, expected, strict=True):
         got = store.get_check_any(check_id).verdict
-        assert differences(got, engine_verdict(variant.request)) == [], variant.label
+        assert differences(got, want) == [], variant.label
     assert worker.alive(), worker.log_tail()
     assert "Unrecoverable error" not in worker.log_text()
 

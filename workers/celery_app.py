@@ -46,6 +46,10 @@ def celery_settings(config: RuntimeConfig) -> dict[str, Any]:
         "worker_prefetch_multiplier": 1,
         "task_soft_time_limit": config.soft_time_limit_s,
         "task_time_limit": config.hard_time_limit_s,
+        # How long the pool waits for a dead process's result before raising WorkerLostError
+        # (Celery's default 10 s). It must stay well below the hard limit, or a crash would be
+        # reported as a time-out when the hard-limit timer fires first.
+        "worker_lost_wait": min(10.0, config.hard_time_limit_s / 4),
         "task_default_queue": CHECK_QUEUE,
         "task_create_missing_queues": True,
         "broker_connection_retry_on_startup": True,
