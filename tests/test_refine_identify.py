@@ -154,3 +154,16 @@ def test_coarse_with_refinement_matches_dense_grid_on_generated_set():
         for a, b, s in zip(coarse.modes, dense.modes, truth, strict=True):
             assert a.frequency_hz == pytest.approx(b.frequency_hz, rel=5e-3), case.name
             assert a.frequency_hz == pytest.approx(s.imag / (2 * np.pi), rel=5e-3), case.name
+
+
+def test_kurokawa_point_is_relocated_by_root_finding():
+    # Closed form (parallel RLC, common practice): Y = 1/R + gm + jωC + 1/(jωL), so Im Y = 0 at
+    # ω₀ = 1/√(LC) exactly, rising, with Re Y = 1/R + gm < 0 there: Kurokawa's point.
+    case = tank(1.3e9, 0.003)
+    verdict = run_check(case.request(COARSE_HZ))
+    points = verdict.refinement["kurokawa_refined"]
+    assert len(points) == 1 and points[0]["node"] == "tank"
+    r = case.circuit.element("R").ohms
+    gm = case.circuit.element("Q1").gm_s
+    assert points[0]["frequency_hz"] == pytest.approx(1.3e9, rel=1e-9)
+    assert points[0]["re_admittance_s"] == pytest.approx(1 / r + gm, rel=1e-6)

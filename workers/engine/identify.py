@@ -86,6 +86,14 @@ class NodeFit:
                 + x * self.slope[None, :])
 
 
+    def impedance_at(self, frequency_hz: float, node: int) -> complex:
+        """Z_kk of one node at one frequency on the jω axis (scalar path for root finding)."""
+        x = 2j * np.pi * frequency_hz / self.scale_rad_s
+        with np.errstate(all="ignore"):
+            terms = self.residues[:, node] / (x * self.scale_rad_s - self.poles_rad_s)
+            return complex(terms.sum() + self.constant[node] + x * self.slope[node])
+
+
 def fit_nodes(frequency_hz: np.ndarray, impedance: np.ndarray, poles_rad_s: np.ndarray,
               scale_rad_s: float) -> NodeFit:
     """All nodes' partial-fraction fits in one least-squares solve (module docstring)."""

@@ -158,6 +158,22 @@ class RationalModel:
             return _evaluate(self.even.fit, x)
         return 0.5 * (_evaluate(self.even.fit, x) + _evaluate(self.odd.fit, x))
 
+    def im_on_axis(self, frequency_hz: float) -> float:
+        """Im of the model at one frequency (Hz): the cheap scalar path for root finding."""
+        x = 1j * frequency_hz * (2 * np.pi / self.scale_rad_s)
+        total = 0.0
+        for half in self.halves:
+            nodes = half.fit.support_points
+            if np.any(nodes == x):
+                total += float(_evaluate(half.fit, np.array([x]))[0].imag)
+                continue
+            cauchy = 1.0 / (x - nodes)
+            weights = half.fit.weights
+            with np.errstate(all="ignore"):
+                total += float(((cauchy @ (weights * half.fit.support_values))
+                                / (cauchy @ weights)).imag)
+        return total / len(self.halves)
+
     def __call__(self, frequency_hz: np.ndarray) -> np.ndarray:
         """The model on the jω axis at ``frequency_hz``."""
         return self.at_s(2j * np.pi * np.asarray(frequency_hz, dtype=float))

@@ -24,6 +24,7 @@ from workers.engine.check import Analysis, count_trusted
 from workers.engine.encirclement import Encirclements, count_encirclements
 from workers.engine.identify import (
     NODE_FIT_LIMIT,
+    NodeFit,
     band_rhp_zeros,
     carrying_devices,
     fit_nodes,
@@ -177,23 +178,23 @@ def _real_axis_crossings(model: RationalModel, f: np.ndarray, h: np.ndarray
     change = np.nonzero(np.sign(h.imag[:-1]) * np.sign(h.imag[1:]) < 0)[0]
     for i in change:
         low, high = float(f[i]), float(f[i + 1])
-        ends = model(np.array([low, high])).imag
-        if not np.all(np.isfinite(ends)) or ends[0] * ends[1] >= 0:
+        ends = np.array([model.im_on_axis(low), model.im_on_axis(high)])
+        if not np.all(np.isfinite(ends)) or ends[0] * ends[1] > 0:
             continue
-        root = brentq(lambda x: float(model(np.array([x]))[0].imag), low, high,
-                      xtol=1e-12 * high, rtol=1e-12)
+        root = low if ends[0] == 0 else high if ends[1] == 0 else \
+            brentq(model.im_on_axis, low, high, xtol=1e-12 * high, rtol=1e-12)
         found.append(AxisCrossing(float(root), float(model(np.array([root]))[0].real),
                                   bool(ends[0] < 0)))
     return found
 
 
 def refine_contour(frequency_hz: np.ndarray, ndf: np.ndarray, model: RationalModel,
-                   intervals: list[SuspectInterval], phase_step_limit_deg: float
-                   ) -> Refinement:
+                   intervals: list[SuspectInterval], phase_step_limit_deg: float,
+                   count_before: int | None = None) -> Refinement:
     """Merge model points into the sampled contour and recount (module docstring)."""
     f = np.asarray(frequency_hz, dtype=float)
     h = np.asarray(ndf, dtype=complex)
-    before = count_encirclements(f, h).clockwise
+    before = count_encirclements(f, h).clockwise if count_before is None else count_before
     new = np.concatenate([_interior(i.low_hz, i.high_hz, DENSE_POINTS) for i in intervals]) \
         if intervals else np.zeros(0)
     counts: list[int] = []
@@ -301,7 +302,9 @@ def refine_analysis(analysis: Analysis, factors: tuple[np.ndarray, Any] | None =
     intervals = suspect_intervals(
         f, h, request.options.phase_step_limit_deg, request.frequency_hz,
         analysis.nodes.admittance, two_port_f, k, mu)
-    refinement = refine_contour(f, h, model, intervals, request.options.phase_step_limit_deg)
+    refinement = refine_contour(
+        f, h, model, intervals, request.options.phase_step_limit_deg,
+        None if analysis.ndf_count is None else analysis.ndf_count.clockwise)
     report = refinement.report(model)
     if refinement.points_added:
         diagnostics.append(Diagnostic(
@@ -338,8 +341,14 @@ def refine_analysis(analysis: Analysis, factors: tuple[np.ndarray, Any] | None =
     report["rhp_zeros"] = [{"growth_rate_per_s": float(z.real),
                             "frequency_hz": float(abs(z.imag) / (2 * np.pi))} for z in zeros]
     modes: list[Mode] = []
-    if zeros.size:
-        modes, node_error = _modes(analysis, model, zeros)
+    node_fit = None
+    if zeros.size or analysis.nodes.crossings:
+        poles = model.zeros_rad_s[np.abs(model.zeros_rad_s) <= 4 * model.scale_rad_s]
+        node_fit = fit_nodes(request.frequency_hz, analysis.nodes.impedance, poles,
+                             model.scale_rad_s)
+        report["kurokawa_refined"] = refined_kurokawa(analysis, node_fit)
+    if zeros.size and node_fit is not None:
+        modes, node_error = _modes(analysis, model, zeros, node_fit)
         report["node_fit_error"] = node_error
         weak = {name: e for name, e in node_error.items() if not e <= NODE_FIT_LIMIT}
         if weak:
@@ -352,13 +361,10 @@ def refine_analysis(analysis: Analysis, factors: tuple[np.ndarray, Any] | None =
                         MethodReport("rational_model", count, None, note), report)
 
 
-def _modes(analysis: Analysis, model: RationalModel, zeros: np.ndarray
+def _modes(analysis: Analysis, model: RationalModel, zeros: np.ndarray, node_fit: NodeFit
            ) -> tuple[list[Mode], dict[str, float]]:
     request = analysis.request
     names = [p.name for p in request.ports]
-    poles = model.zeros_rad_s[np.abs(model.zeros_rad_s) <= 4 * model.scale_rad_s]
-    node_fit = fit_nodes(request.frequency_hz, analysis.nodes.impedance, poles,
-                         model.scale_rad_s)
     valid = analysis.valid
     carriers = _single_carrier(analysis, zero_count(zeros), zeros.size)
     if carriers is None:
@@ -380,3 +386,32 @@ def _single_carrier(analysis: Analysis, count: int, n_modes: int) -> list[list[i
     if sum(clockwise) != count or len(positive) != 1:
         return None
     return [[positive[0]] for _ in range(n_modes)]
+
+
+def refined_kurokawa(analysis: Analysis, node_fit: NodeFit) -> list[dict[str, Any]]:
+    """Each sampled Kurokawa point located again by Brent's method on Im Y_k = Im 1/Z_kk of the
+    node's partial-fraction model, between the two samples that bracket it (nodes whose model
+    fits within NODE_FIT_LIMIT only)."""
+    f = analysis.request.frequency_hz
+    found = []
+    for c in analysis.nodes.crossings:
+        if not node_fit.error[c.node] <= NODE_FIT_LIMIT:
+            continue
+        i = int(np.clip(np.searchsorted(f, c.frequency_hz) - 1, 0, f.size - 2))
+
+        def im_admittance(x: float, node: int = c.node) -> float:
+            z = node_fit.impedance_at(x, node)
+            return float((1.0 / z).imag) if z != 0 else float("nan")
+
+        low, high = float(f[i]), float(f[i + 1])
+        ends = im_admittance(low), im_admittance(high)
+        if not (np.isfinite(ends).all() and ends[0] < 0 <= ends[1]):
+            continue
+        root = brentq(im_admittance, low, high, xtol=1e-12 * high, rtol=1e-12)
+        with np.errstate(divide="ignore", invalid="ignore"):
+            y = 1.0 / node_fit.impedance(np.array([2j * np.pi * root]))[0, c.node]
+        found.append({"node": analysis.request.ports[c.node].name, "frequency_hz": float(root),
+                      "re_admittance_s": float(y.real),
+                      "sampled_frequency_hz": c.frequency_hz,
+                      "sampled_re_admittance_s": c.re_admittance_s})
+    return found
