@@ -20,7 +20,8 @@ def run_check(request: CheckRequest) -> CheckVerdict:
     """Every indicator of one check, the model refinement (``options.refine``), and the verdict."""
     analysis = analyse(request)
     diagnostics: list[Diagnostic] = []
-    two_port, factors = two_port_report(request, analysis.state.y_data, diagnostics)
+    two_port, factors = two_port_report(request, analysis.state.y_data, diagnostics,
+                                         analysis.z_on)
     if not request.options.refine:
         return decide(analysis, two_port, extra=diagnostics)
     refined = refine_analysis(analysis, None if factors is None else (factors[0], factors[2]))

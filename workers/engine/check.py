@@ -44,6 +44,7 @@ class Analysis:
     device_counts: list[Encirclements | None]
     nodes: nodes.NodeResult
     diagnostics: list[Diagnostic]
+    z_on: np.ndarray                        # (F, N, N) inverse of the terminated Y_on
 
 
 def circuit_state(request: CheckRequest, diagnostics: list[Diagnostic]) -> CircuitState:
@@ -86,7 +87,8 @@ def _check_gain_off(request: CheckRequest, y_on: np.ndarray, y_off: np.ndarray,
         diagnostics.append(Diagnostic(
             "gain_off_mismatch", "warning",
             "gain_off data minus the devices' transconductance stamps does not match the network "
-            f"data (largest relative mismatch {relative:.3g} at {request.frequency_hz[worst]:.6g} Hz);"
+            f"data (largest relative mismatch {relative:.3g} at "
+            f"{request.frequency_hz[worst]:.6g} Hz);"
             " the NDF uses the two data sets, the per-device return differences the stamps",
             {"relative_mismatch": float(relative),
              "at_hz": float(request.frequency_hz[worst])},
@@ -146,7 +148,14 @@ def analyse(request: CheckRequest) -> Analysis:
     """Compute every indicator on the given samples (no refinement, no verdict yet)."""
     diagnostics: list[Diagnostic] = []
     state = circuit_state(request, diagnostics)
-    loop = loops.loop_analysis(state.y_on, state.y_off, state.gains, state.u, state.v)
+    z_on = conversions.batched_inv(state.y_on)
+    if request.gain_off is None:
+        # devices only: NDF and F_k follow from Z_on (the determinant lemma, ``loops``)
+        loop = loops.loops_from_impedance(z_on.values, z_on.singular, state.gains, state.u,
+                                          state.v)
+    else:
+        # two measured states: NDF from their log-determinants
+        loop = loops.loop_analysis(state.y_on, state.y_off, state.gains, state.u, state.v)
     valid = (np.isfinite(loop.ndf) & ~loop.singular_off & ~state.singular_data
              & (np.abs(loop.ndf) > 0))
     f = request.frequency_hz
@@ -168,6 +177,6 @@ def analyse(request: CheckRequest) -> Analysis:
                                  if ok.sum() >= 3 else None)
     else:
         device_counts = [None] * len(request.devices)
-    node_result = nodes.node_analysis(f, state.y_on)
+    node_result = nodes.node_analysis(f, z_on)
     return Analysis(request, state, loop, valid, ndf_count, device_counts, node_result,
-                    diagnostics)
+                    diagnostics, z_on.values)

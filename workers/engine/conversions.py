@@ -2,7 +2,8 @@
 
 S to Y for a real reference z0 per port (Pozar, *Microwave Engineering*, 4th ed., sec. 4.3):
     Y = Z0^(-1/2) (I − S)(I + S)^(-1) Z0^(-1/2),  Z0 = diag(z0).
-Solved exactly with LU per frequency; a frequency where (I + S) is singular is reported, never nudged.
+Solved exactly with LU per frequency; a frequency where (I + S) is singular is reported, never
+nudged.
 """
 
 from __future__ import annotations
@@ -106,5 +107,10 @@ def device_gains(devices: tuple[Device, ...], frequency_hz: np.ndarray) -> np.nd
 
 
 def device_stamp(gains: np.ndarray, u: np.ndarray, v: np.ndarray) -> np.ndarray:
-    """Σ_d gm_d(f) u_d v_dᵀ as a (F, N, N) stack."""
-    return np.einsum("fd,nd,md->fnm", gains, u, v)
+    """Σ_d gm_d(f) u_d v_dᵀ as a (F, N, N) stack (each device touches at most four entries)."""
+    stamp = np.zeros((gains.shape[0], u.shape[0], u.shape[0]), dtype=complex)
+    for d in range(gains.shape[1]):
+        for row in np.flatnonzero(u[:, d]):
+            for col in np.flatnonzero(v[:, d]):
+                stamp[:, row, col] += (u[row, d] * v[col, d]) * gains[:, d]
+    return stamp

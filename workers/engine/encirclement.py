@@ -27,7 +27,6 @@ from dataclasses import dataclass
 
 import numpy as np
 
-
 NEGLIGIBLE_ADDED = 1e-8  # |H − 1| below this: the devices no longer change H at this edge
 
 

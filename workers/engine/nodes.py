@@ -14,7 +14,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from workers.engine.conversions import batched_inv
+from workers.engine.conversions import Solved, batched_inv
 
 
 @dataclass(frozen=True)
@@ -74,9 +74,11 @@ def kurokawa_crossings(frequency_hz: np.ndarray, admittance: np.ndarray,
     return found
 
 
-def node_analysis(frequency_hz: np.ndarray, y: np.ndarray) -> NodeResult:
-    """Driving-point admittances of all nodes of the terminated circuit, and Kurokawa points."""
-    impedance, singular = driving_point_impedances(y)
+def node_analysis(frequency_hz: np.ndarray, z: Solved) -> NodeResult:
+    """Driving-point admittances of all nodes from Z = Y⁻¹ of the terminated circuit, and
+    Kurokawa points."""
+    impedance = np.diagonal(z.values, axis1=-2, axis2=-1).copy()
+    singular = z.singular
     with np.errstate(divide="ignore", invalid="ignore"):
         admittance = 1.0 / impedance
     crossings = kurokawa_crossings(frequency_hz, admittance, impedance)

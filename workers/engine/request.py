@@ -51,7 +51,7 @@ class Device:
 
 @dataclass(frozen=True)
 class Network:
-    """Sampled multi-port data: ``values`` (F, N, N) of ``parameter`` with reference ``z0_ohm`` (N,)."""
+    """Sampled multi-port data: ``values`` (F, N, N) of ``parameter``, reference ``z0_ohm`` (N,)."""
 
     parameter: Parameter
     values: np.ndarray
