@@ -12,6 +12,7 @@ import pytest
 from tests.test_refine_circuits import (
     COARSE_HZ,
     DENSE_HZ,
+    benchmark_set,
     generated_set,
     mode_shape,
     odd_mode_pair,
@@ -144,8 +145,9 @@ def test_noise_makes_no_phantom_modes(seed, ratio):
 
 def test_coarse_with_refinement_matches_dense_grid_on_generated_set():
     # The 10× denser input grid (2001 vs 201 points) gives the reference answer; both are also
-    # checked against eig of every generated circuit's MNA pencil.
-    for case in generated_set():
+    # checked against eig of every generated circuit's MNA pencil. The set mixes 1- and 3-port
+    # circuits with ladder-embedded ones (4–10 ports).
+    for case in generated_set() + benchmark_set(size=10):
         coarse = run_check(case.request(COARSE_HZ))
         dense = run_check(case.request(DENSE_HZ))
         truth = case.unstable()
