@@ -90,7 +90,8 @@ def test_touchstone_with_map(tmp_path: Path) -> None:
 
 
 def test_touchstone_syntax_error_names_line(tmp_path: Path) -> None:
-    (tmp_path / "broken.s1p").write_text("# GHz S RI R 50\n1.0 0.5 0.1\n2.0 0.5 oops\n3.0 0.1 0.1\n")
+    (tmp_path / "broken.s1p").write_text(
+        "# GHz S RI R 50\n1.0 0.5 0.1\n2.0 0.5 oops\n3.0 0.1 0.1\n")
     (tmp_path / "map.json").write_text(json.dumps({
         "ports": [{"name": "a", "role": "probe"}],
         "devices": [{"name": "Q", "gm_s": 0.01, "control": ["a", None], "output": [None, "a"]}]}))

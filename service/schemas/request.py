@@ -147,7 +147,8 @@ class NetworkSchema(Schema):
             extra = {"parameters", "data", "z0_ohm"} & set(data)
             if extra:
                 raise ValidationError(
-                    f"give either touchstone or parameters/data, not both ({', '.join(sorted(extra))})",
+                    "give either touchstone or parameters/data, not both "
+                    f"({', '.join(sorted(extra))})",
                     "touchstone")
             return
         for name in ("parameters", "data"):

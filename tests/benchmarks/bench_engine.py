@@ -105,22 +105,19 @@ def breakdown(request: CheckRequest, repeats: int) -> list[tuple[str, float]]:
 
     state = check.circuit_state(request, [])
     analysis = check.analyse(request)
-    two_port, _ = external.two_port_report(request, state.y_data, [])
+    z_on = conversions.batched_inv(state.y_on)
+    two_port, _ = external.two_port_report(request, state.y_data, [], analysis.z_on)
     stack = np.ascontiguousarray(request.network.values)
     stages: list[tuple[str, Callable[[], object]]] = [
         ("numpy floor: inv + slogdet", lambda: numpy_floor(stack)),
         ("circuit_state (Y_on, Y_off, stamps)", lambda: check.circuit_state(request, [])),
-        ("  device_stamp (einsum)", lambda: conversions.device_stamp(state.gains, state.u,
-                                                                     state.v)),
-        ("loops.determinant_ratio (2 slogdet)", lambda: loops.determinant_ratio(state.y_on,
-                                                                                state.y_off)),
-        ("loops.successive_return_differences", lambda: loops.successive_return_differences(
-            state.y_off, state.gains, state.u, state.v)),
-        ("nodes.node_analysis (inv of Y_on)", lambda: nodes.node_analysis(request.frequency_hz,
-                                                                          state.y_on)),
-        ("external.two_port_report (inv of Y_data)", lambda: external.two_port_report(
-            request, state.y_data, [])),
-        ("  external.external_s", lambda: external.external_s(request, state.y_data)),
+        ("  device_stamp", lambda: conversions.device_stamp(state.gains, state.u, state.v)),
+        ("inverse of Y_on", lambda: conversions.batched_inv(state.y_on)),
+        ("loops.loops_from_impedance", lambda: loops.loops_from_impedance(
+            z_on.values, z_on.singular, state.gains, state.u, state.v)),
+        ("nodes.node_analysis", lambda: nodes.node_analysis(request.frequency_hz, z_on)),
+        ("external.two_port_report (Woodbury)", lambda: external.two_port_report(
+            request, state.y_data, [], analysis.z_on)),
         ("check.analyse (total)", lambda: check.analyse(request)),
         ("decide", lambda: decide(analysis, two_port, extra=[])),
         ("run_check (refine=False)", lambda: run_check(request)),

@@ -97,7 +97,7 @@ def loops_from_impedance(z_on: np.ndarray, singular_on: np.ndarray, gains: np.nd
                          u: np.ndarray, v: np.ndarray) -> LoopResult:
     """NDF and F_k from Z_on = Y_on⁻¹ alone (module docstring: trailing minors of I − G·P)."""
     n_freq, n_dev = gains.shape
-    p = np.einsum("nd,fnm,me->fde", v, z_on, u)
+    p = v.T.astype(complex) @ (z_on @ u.astype(complex))
     a = np.eye(n_dev) - gains[:, :, None] * p
     # trailing minors of a = leading minors of a with the device order reversed
     pivots = _leading_pivots(a[:, ::-1, ::-1].copy())
