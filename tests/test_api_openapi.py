@@ -2,7 +2,8 @@
 
 Sources: the OpenAPI Specification 3.1.0 (validated by openapi-spec-validator), and property-based
 fuzzing of every documented operation with schemathesis 4 through the WSGI app: no server error,
-and every response's status code, content type, headers and body conform to the document.
+every response's status code, content type, headers and body conform to the document, data that
+breaks the document is refused, and no operation answers without the token.
 """
 
 from __future__ import annotations
@@ -18,10 +19,14 @@ from hypothesis import HealthCheck, settings
 from openapi_spec_validator import validate
 from schemathesis.checks import (
     content_type_conformance,
+    ignored_auth,
+    negative_data_rejection,
     not_a_server_error,
     response_headers_conformance,
     response_schema_conformance,
     status_code_conformance,
+    unsupported_method,
+    use_after_free,
 )
 
 from service.app import create_app
@@ -65,8 +70,11 @@ _FUZZ_APP = create_app(api_config(_FUZZ_STORE, FakeQueue(), BALLAST_RATE_LIMIT=1
                                   BALLAST_MAX_BODY_BYTES=1 << 20))
 schema = schemathesis.openapi.from_wsgi("/openapi.json", _FUZZ_APP)
 
+# no server error; responses as documented; data outside the schema refused; no access without
+# the token; undocumented methods answer 405; a deleted resource is not served again
 FUZZ_CHECKS = [not_a_server_error, status_code_conformance, content_type_conformance,
-               response_headers_conformance, response_schema_conformance]
+               response_headers_conformance, response_schema_conformance,
+               negative_data_rejection, ignored_auth, unsupported_method, use_after_free]
 
 
 @pytest.fixture(scope="module", autouse=True)
