@@ -158,3 +158,15 @@ def test_settings_from_the_environment():
     assert tenant_limit(config, "small", "rate_limit") == 7
     assert tenant_limit(config, "big", "rate_limit") == 70
     assert tenant_limit(config, "big", "max_unfinished") == config["BALLAST_MAX_UNFINISHED"]
+
+
+def test_an_unexpected_error_is_a_500_problem_without_details(api_store, fake_queue):
+    app = create_app(api_config(api_store, fake_queue))
+
+    @app.get("/boom")
+    def boom():
+        raise RuntimeError("secret internals")
+
+    response = app.test_client().get("/boom")
+    body = _is_problem(response, 500)
+    assert "secret" not in response.get_data(as_text=True) and body["type"] == "about:blank"

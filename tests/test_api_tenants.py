@@ -73,7 +73,7 @@ def test_admin_command_creates_lists_and_revokes(tmp_path, capsys):
     assert ballast(["token", "--store", url, "create", "--tenant", "bad name!"]) == 3
 
 
-def test_api_on_both_stores_keeps_tenants_apart(store):
+def test_api_on_both_stores_keeps_tenants_apart(store, clock):
     """The same flow on both back ends (the ``store`` fixture runs SQLite and a real Redis)."""
     queue = FakeQueue()
     client = create_app(api_config(store, queue)).test_client()
@@ -88,6 +88,20 @@ def test_api_on_both_stores_keeps_tenants_apart(store):
     assert client.get(f"/v1/batches/{accepted['id']}", headers=rival).status_code == 404
     counts = client.get(f"/v1/batches/{accepted['id']}", headers=acme).get_json()
     assert counts["counts_by_status"]["done"] == 2
+    # a second batch: paged listing (Link rel="next"), idempotent retry, cancellation
+    batch = {"map": tiny_request(), "variants": [{"label": f"v{i}"} for i in range(5)]}
+    keyed = {**acme, "Idempotency-Key": "k"}
+    clock.now += 1  # the store's clock: the second batch is the more recent
+    second = client.post("/v1/batches", json=batch, headers=keyed).get_json()
+    assert client.post("/v1/batches", json=batch, headers=keyed).get_json() == second
+    page = client.get(f"/v1/batches/{second['id']}/checks?limit=3", headers=acme)
+    assert [i["label"] for i in page.get_json()["items"]] == ["v0", "v1", "v2"]
+    rest = client.get(page.headers["Link"].split(">")[0].lstrip("<"), headers=acme).get_json()
+    assert [i["label"] for i in rest["items"]] == ["v3", "v4"] and rest["next_cursor"] is None
+    cancelled = client.delete(f"/v1/batches/{second['id']}", headers=acme).get_json()
+    assert cancelled["counts_by_status"]["cancelled"] == 5 and cancelled["finished"] is True
+    assert [b["id"] for b in client.get("/v1/batches", headers=acme).get_json()["items"]] == [
+        second["id"], accepted["id"]]
 
 
 def test_accepted_checks_survive_a_restart_of_the_sqlite_store(tmp_path):
