@@ -30,8 +30,10 @@ def test_submit_answers_202_with_location_and_retry_after(client, auth, fake_que
 
 def test_queued_check_reads_back(client, auth):
     check_id = client.post("/v1/checks", json=tiny_request(), headers=auth).get_json()["id"]
-    body = client.get(f"/v1/checks/{check_id}", headers=auth).get_json()
+    response = client.get(f"/v1/checks/{check_id}", headers=auth)
+    body = response.get_json()
     assert body["status"] == "queued" and body["attempts"] == 0
+    assert int(response.headers["Retry-After"]) >= 1  # a polling hint while unfinished
     assert body["verdict"] is None and body["reason"] is None and body["batch_id"] is None
     assert RFC3339.match(body["created_at"]) and body["started_at"] is None
 
@@ -44,6 +46,7 @@ def test_done_check_returns_the_engine_verdict_unchanged(client, auth, api_store
     response = client.get(f"/v1/checks/{check_id}", headers=auth)
     body = response.get_json()
     assert body["status"] == "done" and body["attempts"] == 1
+    assert "Retry-After" not in response.headers
     assert body["verdict"] == verdict
     # same member order as the engine wrote it (the API must not re-sort the document)
     served = json.loads(response.get_data(as_text=True))["verdict"]

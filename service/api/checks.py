@@ -22,7 +22,7 @@ from service.api.tenancy import authenticate, store, tenant
 from service.problems import abort_problem
 from service.schemas.api import CheckAcceptedSchema, CheckSchema
 from service.schemas.request import CheckRequestSchema
-from service.store.base import NewCheck
+from service.store.base import UNFINISHED_STATUSES, NewCheck
 
 blp = Blueprint("checks", __name__, url_prefix="/v1/checks",
                 description="Single stability checks")
@@ -88,11 +88,16 @@ def _found(check_id: str):
 
 @blp.route("/<string:check_id>", methods=["GET"])
 @blp.doc(operationId="getCheck")
-@blp.response(200, CheckSchema)
+@blp.response(200, CheckSchema, headers={"Retry-After": {
+    "schema": {"type": "integer"}, "description": "while unfinished: seconds before polling"}})
 @document_errors(blp, 401, 404, 429)
 def get_check(check_id: str):
     """A check's status, timestamps, attempts, and its verdict when done."""
-    return check_view(_found(check_id))
+    record = _found(check_id)
+    if record.status in UNFINISHED_STATUSES:
+        return check_view(record), 200, {
+            "Retry-After": str(current_app.config["BALLAST_RETRY_AFTER_S"])}
+    return check_view(record)
 
 
 @blp.route("/<string:check_id>", methods=["DELETE"])
