@@ -27,9 +27,12 @@ for _var in ("OPENBLAS_NUM_THREADS", "OMP_NUM_THREADS", "MKL_NUM_THREADS"):
 
 import argparse
 import json
+import re
 import shutil
+import statistics
 import tempfile
 import time
+from datetime import datetime
 from pathlib import Path
 
 import requests
@@ -70,7 +73,9 @@ def main() -> None:
           f"{args.workers} worker processes, {args.api_processes} API processes, "
           f"layout {args.layout}; load average {os.getloadavg()[0]:.1f} at start")
     batch = variants(args.variants, points=args.points)
+    cpu_start = time.process_time()
     engine_s, expected = engine_seconds([v.request for v in batch])
+    engine_cpu_s = time.process_time() - cpu_start
     print(f"engine alone (serial, this process): {engine_s:.2f} s, "
           f"{1e3 * engine_s / len(batch):.1f} ms per check")
 
@@ -103,6 +108,10 @@ def main() -> None:
                        "the service to be ready", every_s=0.2)
             body = json.dumps(batch_body(batch))
             print(f"request body: {len(body) / 1e6:.0f} MB")
+            roots = [c.process.pid for c in supervisor.children if c.process is not None]
+            if redis_server is not None and redis_server.process is not None:
+                roots.append(redis_server.process.pid)
+            service_cpu_before = tree_cpu_seconds(roots)
 
             start = time.perf_counter()
             response = session.post(base + "/v1/batches", data=body,
@@ -112,11 +121,13 @@ def main() -> None:
             accepted = response.json()
             wait_until(lambda: session.get(f"{base}/v1/batches/{accepted['id']}",
                                            timeout=30).json()["finished"],
-                       3600, "the batch to finish", every_s=0.1)
+                       3600, "the batch to finish", every_s=0.5)
             finished_at = time.perf_counter()
             got = [session.get(f"{base}/v1/checks/{cid}", timeout=30).json()
                    for cid in accepted["check_ids"]]
             fetched_at = time.perf_counter()
+            service_cpu_s = tree_cpu_seconds(roots) - service_cpu_before
+            task_s, span_s = worker_log_times(config.data_dir / "logs" / "worker.log")
         finally:
             supervisor.stopping = True
             supervisor.stop()
@@ -132,9 +143,57 @@ def main() -> None:
         print(f"{name:<32} {wall:7.2f} s  {len(batch) / wall:6.1f} checks/s  "
               f"wall/engine serial {wall / engine_s:5.2f}  "
               f"wall/(engine/{args.workers}) {wall / ideal_s:5.2f}")
+    print(f"CPU used by the service (API, workers, store, broker) for the batch: "
+          f"{service_cpu_s:.1f} s = {service_cpu_s / engine_cpu_s:.2f} x the engine's own CPU "
+          f"({engine_cpu_s:.1f} s)")
+    if task_s:
+        print(f"in the worker: {1e3 * statistics.mean(task_s):.1f} ms per task on average "
+              f"(engine alone {1e3 * engine_s / len(batch):.1f} ms); first task received to last "
+              f"finished {span_s:.2f} s")
     print(f"POST /v1/batches took {accepted_at - start:.2f} s; "
           f"{done}/{len(batch)} done, {same}/{len(batch)} verdicts identical to the engine's; "
           f"load average {os.getloadavg()[0]:.1f} at end")
+
+
+def tree_cpu_seconds(roots: list[int]) -> float:
+    """CPU seconds (user + system) used so far by ``roots`` and all their descendants, read from
+    /proc (Linux): live processes' own time plus the time of the children they have reaped."""
+    tick = os.sysconf("SC_CLK_TCK")
+    parent: dict[int, int] = {}
+    cpu: dict[int, int] = {}
+    for entry in os.listdir("/proc"):
+        if not entry.isdigit():
+            continue
+        try:
+            stat = Path(f"/proc/{entry}/stat").read_text()
+        except OSError:
+            continue
+        fields = stat[stat.rindex(")") + 2:].split()
+        parent[int(entry)] = int(fields[1])
+        cpu[int(entry)] = sum(int(x) for x in fields[11:15])  # utime stime cutime cstime
+    inside = set(roots)
+    changed = True
+    while changed:
+        changed = False
+        for pid, ppid in parent.items():
+            if ppid in inside and pid not in inside:
+                inside.add(pid)
+                changed = True
+    return sum(cpu.get(pid, 0) for pid in inside) / tick
+
+
+def worker_log_times(path: Path) -> tuple[list[float], float]:
+    """Task run times ("succeeded in X s") and the span from the first "received" to the last
+    "succeeded" line of the worker's log."""
+    text = path.read_text(errors="replace") if path.exists() else ""
+    times = [float(m) for m in re.findall(r"succeeded in ([0-9.]+)s", text)]
+    stamps = re.findall(r"^\[(\d{4}-\d\d-\d\d \d\d:\d\d:\d\d,\d{3}): INFO/\S+\] Task "
+                        r"\S+ (received|succeeded)", text, flags=re.MULTILINE)
+    parse = [(datetime.strptime(t, "%Y-%m-%d %H:%M:%S,%f").timestamp(), kind)
+             for t, kind in stamps]
+    first = min((t for t, k in parse if k == "received"), default=0.0)
+    last = max((t for t, k in parse if k == "succeeded"), default=0.0)
+    return times, max(0.0, last - first)
 
 
 def _status(session: requests.Session, url: str) -> int:
