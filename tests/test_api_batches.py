@@ -54,6 +54,10 @@ def test_json_batch_runs_and_counts_by_status_and_verdict(client, auth, api_stor
     for variant, check_id in zip(batch["variants"], body["check_ids"], strict=True):
         member = {k: v for k, v in variant.items() if k != "label"}
         assert api_store.get_request(check_id) == {**batch["map"], **member}
+    # the variant's own text is kept as sent (with its label), not serialised again
+    stored = api_store._conn().execute(
+        "SELECT request FROM checks WHERE id = ?", (body["check_ids"][0],)).fetchone()[0]
+    assert json.loads(stored)["label"] == "R=200"
     blobs = api_store._conn().execute("SELECT hash FROM blobs").fetchall()
     assert [b[0] for b in blobs] == [content_hash(batch["map"])]
 

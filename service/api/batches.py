@@ -208,6 +208,7 @@ def submit_batch():
     if request.mimetype == "multipart/form-data":
         label, shared, variants = _parse_multipart_batch()
         where = "files"
+        texts = None
         fingerprint = content_hash({"label": label, "map": shared,
                                     "variants": [[n, m] for n, m in variants]})
     else:
@@ -215,6 +216,7 @@ def submit_batch():
         label, shared, variants = _parse_json_batch(body)
         where = "variants"
         fingerprint = g.body_digest
+        texts = g.variant_texts
     limit = int(current_app.config["BALLAST_MAX_VARIANTS"])
     if len(variants) > limit:
         abort_problem(422, f"{len(variants)} variants; the limit is {limit} per batch",
@@ -224,7 +226,8 @@ def submit_batch():
 
     def create() -> str:
         batch_id, _ = store_checks(
-            [NewCheck(member, label=name) for name, member in variants],
+            [NewCheck(member, label=name, request_json=texts[i] if texts else None)
+             for i, (name, member) in enumerate(variants)],
             as_batch=True, batch_label=label, shared=shared,
         )
         assert batch_id is not None

@@ -72,7 +72,7 @@ def submit_check():
     validate_request(body)
 
     def create() -> str:
-        _, (check_id,) = store_checks([NewCheck(body)])
+        _, (check_id,) = store_checks([NewCheck(body, request_json=g.body_text)])
         return check_id
 
     check_id = accept_once(idempotency_key(), g.body_digest, create, replay=lambda found: found)

@@ -12,6 +12,7 @@ from flask import current_app, g, request
 from flask_smorest import Blueprint
 from marshmallow import ValidationError
 
+from service.api.jsonbody import parse_with_variant_texts, reject_constant
 from service.api.tenancy import retry_after, store, tenant
 from service.config import tenant_limit
 from service.problems import PROBLEM_CONTENT_TYPE, ProblemSchema, abort_problem, field_errors
@@ -63,32 +64,34 @@ def iso(ts: float | None) -> str | None:
     return text.replace("+00:00", "Z")
 
 
-def _reject_constant(name: str) -> Any:
-    raise ValueError(f"{name} is not a JSON number")
-
-
 def parse_json(data: bytes | str, what: str = "the request body") -> Any:
     try:
-        return json.loads(data, parse_constant=_reject_constant)
+        return json.loads(data, parse_constant=reject_constant)
     except (ValueError, RecursionError) as exc:  # JSONDecodeError and UnicodeDecodeError too
         abort_problem(400, f"{what} is not valid JSON: {exc}", kind="malformed-json")
 
 
 def json_object_body() -> dict[str, Any]:
     """The request's JSON object, or a problem: 415 (not JSON), 400 (malformed), 422 (not an
-    object)."""
+    object). Also sets ``g.body_digest`` (SHA-256 of the bytes, the idempotency fingerprint),
+    ``g.body_text`` and ``g.variant_texts`` (source texts the store can keep as they are)."""
     if not request.mimetype or not (
         request.mimetype == "application/json" or request.mimetype.endswith("+json")
     ):
         abort_problem(415, "send the body as application/json", kind="unsupported-media-type")
     raw = request.get_data(cache=False)
-    g.body_digest = hashlib.sha256(raw).hexdigest()  # the idempotency fingerprint
-    body = parse_json(raw)
+    g.body_digest = hashlib.sha256(raw).hexdigest()
+    try:
+        parsed = parse_with_variant_texts(raw)
+    except (ValueError, RecursionError) as exc:
+        abort_problem(400, f"the request body is not valid JSON: {exc}", kind="malformed-json")
     del raw
-    if not isinstance(body, dict):
+    if not isinstance(parsed.value, dict):
         abort_problem(422, "the request body must be a JSON object", kind="invalid-request",
                       errors=field_errors([("body", "must be a JSON object")]))
-    return body
+    g.body_text = parsed.text
+    g.variant_texts = parsed.variant_texts
+    return parsed.value
 
 
 def validation_problem(exc: ValidationError, prefix: str = "", detail: str | None = None

@@ -91,10 +91,17 @@ class NewCheck:
     """A check to store: its JSON request (validated already) and an optional batch label.
 
     In a batch stored with a ``shared`` map, ``request`` holds only the variant's own members.
+    ``request_json``, when given, is JSON text that decodes to ``request`` (a batch variant's
+    text may also hold its ``label`` member); the store keeps it as it is instead of
+    serialising ``request`` again, which for large numeric arrays costs as much as parsing them.
     """
 
     request: dict[str, Any]
     label: str | None = None
+    request_json: str | None = None
+
+    def stored_text(self) -> str:
+        return self.request_json if self.request_json is not None else canonical_json(self.request)
 
 
 @dataclass(frozen=True)
@@ -116,9 +123,16 @@ def content_hash(value: Any) -> str:
     return hashlib.sha256(canonical_json(value).encode()).hexdigest()
 
 
+VARIANT_ONLY_MEMBERS: tuple[str, ...] = ("label",)
+
+
 def merge_request(shared: dict[str, Any] | None, variant: dict[str, Any]) -> dict[str, Any]:
-    """The check request of one batch variant: the shared map's members, then the variant's."""
-    return {**(shared or {}), **variant}
+    """The check request of one batch variant: the shared map's members, then the variant's
+    (its ``label``, which names the variant and is no check request member, left out)."""
+    merged = {**(shared or {}), **variant}
+    for name in VARIANT_ONLY_MEMBERS:
+        merged.pop(name, None)
+    return merged
 
 
 def summarize_verdict(verdict: dict[str, Any] | None) -> VerdictSummary | None:

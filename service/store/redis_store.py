@@ -247,7 +247,7 @@ class RedisStore:
         shared_hash = content_hash(shared) if shared is not None else None
         ids = [new_check_id() for _ in checks]
         open_key = f"{self.p}t:{tenant}:open"
-        payloads = [canonical_json(c.request) for c in checks]
+        payloads = [c.stored_text() for c in checks]
         # reserve the tenant's quota atomically (Lua), then write everything in one MULTI/EXEC;
         # a failed write gives the reservation back
         accepted, unfinished = self._reserve(

@@ -192,8 +192,7 @@ class SqliteStore:
         shared_hash = content_hash(shared) if shared is not None else None
         ids = [new_check_id() for _ in checks]
         rows = [
-            (cid, tenant, now, now, now, batch_id, seq, c.label, canonical_json(c.request),
-             shared_hash)
+            (cid, tenant, now, now, now, batch_id, seq, c.label, c.stored_text(), shared_hash)
             for seq, (cid, c) in enumerate(zip(ids, checks, strict=True))
         ]
         with self._write() as db:
