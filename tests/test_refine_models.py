@@ -103,3 +103,18 @@ def test_zero_and_count_disagreement_is_indeterminate_with_both_numbers():
     found = [d for d in verdict.diagnostics if d.code == "model_count_disagrees"]
     assert len(found) == 1
     assert found[0].details == {"encirclement_count": 0, "model_count": 2}
+
+
+def test_data_that_is_not_rational_fails_validation_and_blocks():
+    # e^(−sτ) is transcendental (common practice): over a band holding 200 of its turns no
+    # rational function of order <= 50 follows it, so the model must fail its leave-out check,
+    # say so, and the verdict must not rest on the sampled count alone (issue 3).
+    f = np.linspace(1e6, 10e9, 401)
+    h = 1 + 0.5 * np.exp(-2j * np.pi * f * 20e-9)
+    verdict = run_check(ndf_request(h, f))
+    assert verdict.verdict == "indeterminate"
+    codes = {d.code: d for d in verdict.diagnostics}
+    assert codes["model_not_validated"].severity == "blocking"
+    assert "encirclement_count" in codes["model_not_validated"].details
+    assert "not_rational" in codes
+    assert verdict.refinement["model"]["validated"] is False

@@ -217,7 +217,7 @@ def fit_response(frequency_hz: np.ndarray, h: np.ndarray) -> RationalModel:
     noise = float(even.fit.errors[-1]) / level
     if not even.converged:
         history = np.asarray(even.fit.errors, dtype=float) / level
-        plateau = float(np.median(history[history.size // 2:]))
+        plateau = float(np.median(history[-max(3, history.size // 4):]))
         rtol, noise = PLATEAU_MARGIN * plateau, plateau / 3.0
         even = aaa_fit(s[train[0]], h[train[0]], rtol)
     missed = np.abs(_evaluate(even.fit, s[unseen[0]]) - h[unseen[0]])

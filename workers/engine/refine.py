@@ -280,20 +280,20 @@ def refine_analysis(analysis: Analysis, factors: tuple[np.ndarray, Any] | None =
         return _not_used(diagnostics, "model fit failed")
     delayed = [d.name for d in request.devices if d.delay_s > 0]
     if not model.validated:
+        sampled = None if analysis.ndf_count is None else analysis.ndf_count.clockwise
         diagnostics.append(Diagnostic(
-            "model_not_validated", "warning",
+            "model_not_validated", "blocking",
             "the rational model of NDF failed its leave-out check (error "
             f"{model.leave_out_error:.3g} of max|NDF|, {model.local_error:.3g} of |NDF| at worst; "
-            "limits "
-            f"{VALIDATION_LIMIT:g} and {LOCAL_LIMIT:g}); nothing was added between samples and "
-            "the count rests on the samples alone", model.summary()))
-        if delayed or model.terms >= MAX_TERMS:
-            diagnostics.append(Diagnostic(
-                "not_rational", "warning",
-                "NDF is not rational over the band to the model's order"
-                + (f" (devices with delay: {', '.join(delayed)})" if delayed else "")
-                + "; the model is not trusted", {"terms": model.terms,
-                                                 "delayed_devices": delayed}))
+            f"limits {VALIDATION_LIMIT:g} and {LOCAL_LIMIT:g}), so the sampled count "
+            f"({sampled}) has no second method to agree with it",
+            {**model.summary(), "encirclement_count": sampled, "model_count": None}))
+        diagnostics.append(Diagnostic(
+            "not_rational", "warning",
+            f"NDF does not follow a rational function of order <= {MAX_TERMS} over the band "
+            "(a delay in gm, noise or too few samples per feature)"
+            + (f"; devices with delay: {', '.join(delayed)}" if delayed else "")
+            + "; the model is not trusted", {"terms": model.terms, "delayed_devices": delayed}))
         return _not_used(diagnostics, "model did not validate", model)
     two_port_f, k, mu = None, None, None
     if factors is not None:
