@@ -85,6 +85,28 @@ class ComplexArray(fields.Field):
         return re + 1j * im
 
 
+class FloatArray(fields.Field):
+    """A list of finite numbers → float ndarray, read by numpy in one step."""
+
+    def __init__(self, **kwargs: Any) -> None:
+        kwargs.setdefault("metadata", {}).update({"type": "array", "items": {"type": "number"}})
+        super().__init__(**kwargs)
+
+    def _deserialize(self, value: Any, attr: str | None, data: Any, **kwargs: Any) -> np.ndarray:
+        if not isinstance(value, list) or any(isinstance(v, bool | str) for v in value):
+            raise ValidationError("must be an array of numbers")
+        try:
+            values = np.asarray(value, dtype=float)
+        except (TypeError, ValueError) as exc:
+            raise ValidationError("must be an array of numbers") from exc
+        if values.ndim != 1:
+            raise ValidationError("must be a flat array of numbers")
+        if not np.isfinite(values).all():
+            bad = int(np.flatnonzero(~np.isfinite(values))[0])
+            raise ValidationError(f"must contain only finite numbers (point {bad} is not)")
+        return values
+
+
 class ComplexNumber(fields.Field):
     """A real number or ``{"re": x, "im": y}``."""
 
@@ -198,7 +220,7 @@ class OptionsSchema(Schema):
 class CheckRequestSchema(NetworkSchema):
     """One check request (see DEVELOPERS.md, "Check request")."""
 
-    frequency_hz = fields.List(fields.Float(allow_nan=False), metadata={
+    frequency_hz = FloatArray(metadata={
         "description": "strictly increasing, >= 0; optional with touchstone"})
     ports = fields.List(fields.Nested(PortSchema), required=True,
                         validate=validate.Length(min=1, max=MAX_PORTS))
@@ -246,7 +268,7 @@ def _numeric(value: Any) -> bool:
                                for v in items)
 
 
-def _frequencies(given: list[float] | None, from_file: np.ndarray | None, n_data: int
+def _frequencies(given: np.ndarray | None, from_file: np.ndarray | None, n_data: int
                  ) -> np.ndarray:
     if given is None and from_file is None:
         raise InputError("frequency_hz", "is required with array data")
