@@ -3,8 +3,8 @@
 Sources, cited beside each check:
 - TS2: Touchstone(R) File Format Specification Version 2.0, IBIS Open Forum, 24 April 2009 (the
   sections named are that document's own headings). The Version 2.0 Y/Z rule is quoted from TS2
-  page 7 ("Option Line") as reproduced verbatim in a nanovna-users list post (message 29033); the
-  PDF itself was not available to us.
+  page 7 ("Option Line") as reproduced verbatim in a public users' mailing-list post; the PDF
+  itself was not available to us.
 - scikit-rf 2.2 (``skrf``) as the reference reader/writer for S data, where it follows TS2.
 - Closed-form arithmetic (dB = 20*log10|s|, angles in degrees: TS2 "Option Line").
 """

@@ -14,8 +14,8 @@ Source: Touchstone(R) File Format Specification Version 2.0, IBIS Open Forum, ra
   in Version 2.0 files is not normalized. Therefore, the reference resistance and [Reference]
   keyword have no impact on G-, H-, Y-, or Z-parameter data in Version 2.0 files." So Version 2.0
   Y and Z are taken as siemens and ohms. Where this was read: the specification PDF itself was not
-  in the searchable store; the sentence is quoted verbatim from it in a nanovna-users list post
-  (groups.io message 29033), and the IBIS draft announcement on si-list says the same
+  in the searchable store; the sentence is quoted verbatim from it in a public users' mailing-list
+  post, and the IBIS Open Forum's draft announcement says the same
   ("normalization is removed for G-, H-, Y- and Z-parameters").
 - "[Network Data]", 1-port and 2-port networks: Version 1.0 two-port order is N11 N21 N12 N22;
   "[Two-Port Data Order]" 21_12 keeps that order, 12_21 is N11 N12 N21 N22 (read from a parser
