@@ -1,8 +1,10 @@
-"""The body parser that keeps each batch variant's source text, against the standard library.
+"""The request body parser (orjson, with ``json.loads`` as fallback) against the standard library.
 
 Reference: Python's ``json.loads`` (RFC 8259). For any JSON document, with any legal whitespace,
-the parser must give exactly ``json.loads``'s value, refuse exactly what it refuses, and each kept
-variant text must read back (``json.loads``) to that variant.
+the parser must give ``json.loads``'s value, refuse exactly what it refuses with ``json.loads``'s
+message, and each variant text must read back (``json.loads``) to that variant. The one documented
+difference: an integer outside [-2**63, 2**64) reads as ``float(n)``, Python's correctly rounded
+conversion (the check request schema reads every number as a float anyway).
 """
 
 from __future__ import annotations
@@ -13,9 +15,12 @@ import pytest
 from hypothesis import given, settings
 from hypothesis import strategies as st
 
-from service.api.jsonbody import parse_with_variant_texts
+from service.api.jsonbody import parse_with_variant_texts, reject_constant
+from service.store.jsontext import loads_json
 
 scalars = (st.none() | st.booleans() | st.integers(-10**20, 10**20)
+           | st.sampled_from([2**63 - 1, -(2**63), 2**64 - 1, 2**64 + 1, -(2**63) - 1,
+                              10**20 + 1, 3**40])
            | st.floats(allow_nan=False, allow_infinity=False) | st.text(max_size=8))
 values = st.recursive(
     scalars,
@@ -24,6 +29,27 @@ values = st.recursive(
     max_leaves=20,
 )
 whitespace = st.sampled_from(["", " ", "\n", "\t", "\r\n  "])
+
+
+def _int_as_parsed(digits: str) -> int | float:
+    """The documented rule: 64-bit integers stay exact, wider ones become ``float(n)``."""
+    n = int(digits)
+    return n if -(2**63) <= n < 2**64 else float(n)
+
+
+def _reference(raw: bytes | str):
+    return json.loads(raw, parse_int=_int_as_parsed)
+
+
+def _same(a, b) -> bool:
+    """Equal values of equal JSON types (``1 == 1.0`` in Python, so compare types too)."""
+    if type(a) is not type(b):
+        return False
+    if isinstance(a, dict):
+        return a.keys() == b.keys() and all(_same(a[k], b[k]) for k in a)
+    if isinstance(a, list):
+        return len(a) == len(b) and all(_same(x, y) for x, y in zip(a, b, strict=True))
+    return a == b
 
 
 def _dump(value, indent: int | None, ascii_only: bool) -> str:
@@ -43,10 +69,10 @@ def test_same_value_as_json_loads_and_texts_read_back(top, variants, indent, asc
     document = {**top, "variants": variants}
     raw = (pad + _dump(document, indent, ascii_only) + pad).encode()
     parsed = parse_with_variant_texts(raw)
-    assert parsed.value == json.loads(raw)
+    assert _same(parsed.value, _reference(raw))
     assert parsed.variant_texts is not None
-    assert [json.loads(t) for t in parsed.variant_texts] == variants
-    assert json.loads(parsed.text) == parsed.value
+    assert _same([json.loads(t) for t in parsed.variant_texts], _reference(json.dumps(variants)))
+    assert _same(_reference(parsed.text), parsed.value)
 
 
 @settings(max_examples=200, deadline=None, derandomize=True)
@@ -54,18 +80,29 @@ def test_same_value_as_json_loads_and_texts_read_back(top, variants, indent, asc
 def test_any_document_parses_like_json_loads(value):
     raw = json.dumps(value).encode()
     parsed = parse_with_variant_texts(raw)
-    assert parsed.value == json.loads(raw)
+    assert _same(parsed.value, _reference(raw))
+    assert _same(loads_json(raw), _reference(raw))
+    assert _same(loads_json(raw.decode()), _reference(raw))
     if not (isinstance(value, dict) and isinstance(value.get("variants"), list)):
         assert parsed.variant_texts is None
 
 
 @pytest.mark.parametrize("raw", [
     b"", b"{", b'{"variants": [1, 2,]}', b'{"variants": [1] ', b'{"a": 1} x', b"{'a': 1}",
-    b'{"variants": [NaN]}', b'{"a": Infinity}', b'{"a": 1,}', b"\xff\xfe",
+    b'{"variants": [NaN]}', b'{"a": Infinity}', b'{"a": -Infinity}', b'{"a": 1,}', b"\xff\xfe",
 ])
-def test_refuses_what_json_loads_refuses(raw):
-    with pytest.raises(ValueError):
+def test_refuses_what_json_loads_refuses_with_its_message(raw):
+    with pytest.raises(ValueError) as expected:
+        json.loads(raw, parse_constant=reject_constant)
+    with pytest.raises(ValueError) as got:
         parse_with_variant_texts(raw)
+    assert str(got.value) == str(expected.value)
+
+
+def test_nan_is_named_in_the_error():
+    # RFC 8259 §6: NaN and Infinity are not permitted as numeric values.
+    with pytest.raises(ValueError, match="NaN is not a JSON number"):
+        parse_with_variant_texts(b'{"frequency_hz": [1.0, NaN]}')
 
 
 def test_duplicate_members_keep_the_last_like_json_loads():
@@ -78,7 +115,21 @@ def test_duplicate_members_keep_the_last_like_json_loads():
     assert parsed.value == {"variants": 4} and parsed.variant_texts is None
 
 
-def test_byte_order_mark_falls_back_to_json_loads():
-    raw = "\ufeff".encode() + b'{"variants": [1]}'
+@pytest.mark.parametrize("raw", [
+    "\ufeff".encode() + b'{"variants": [1]}',  # byte order mark: json.loads accepts bytes with it
+    b'{"variants": [{"x": "\\ud800"}]}',  # lone surrogate escape: json.loads keeps it
+    b'{"variants": [{"frequency_hz": [1e400]}]}',  # json.loads reads infinity (schema refuses)
+])
+def test_what_orjson_refuses_falls_back_to_json_loads(raw):
     parsed = parse_with_variant_texts(raw)
     assert parsed.value == json.loads(raw) and parsed.text is None
+    assert parsed.variant_texts is not None
+    assert [json.loads(t) for t in parsed.variant_texts] == json.loads(raw)["variants"]
+    assert loads_json(raw) == json.loads(raw)
+
+
+def test_stored_text_with_infinity_reads_like_json_loads():
+    # json.dumps writes a non-finite float as Infinity, which json.loads reads back; orjson
+    # refuses the literal, so loads_json must fall back.
+    text = json.dumps({"a": [float("inf"), 1.5]})
+    assert loads_json(text) == json.loads(text) == {"a": [float("inf"), 1.5]}

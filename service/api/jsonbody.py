@@ -1,26 +1,27 @@
-"""Parse a JSON request body and keep the exact source text of each batch variant.
+"""Parse a JSON request body with orjson and give each batch variant as JSON text for the store.
 
-Storing a variant re-serialised with ``json.dumps`` costs about as much as parsing it (float
-formatting dominates); keeping the text the client sent costs a slice. ``parse_with_variant_texts``
-walks the top-level object itself and decodes every member with the standard library's decoder
-(``JSONDecoder.raw_decode``), so each value is exactly what ``json.loads`` gives; for a
-``"variants"`` array it also returns each element's source text. Anything unusual (not an object,
-a syntax error, NaN) falls back to ``json.loads`` for the result or the error message.
+orjson reads the body (RFC 8259) and writes each element of a top-level ``"variants"`` array back
+as compact JSON text (shortest round-trip floats), so that neither the parse nor the store runs the
+standard library's decoder or encoder over large numeric arrays.
+
+A body orjson refuses goes to ``json.loads``, which either refuses it too (NaN and Infinity
+included), with its message naming the line, column and what is wrong, or reads what orjson does
+not (a UTF-8 byte order mark, lone surrogate escapes, ``1e400`` read as infinity for the schema
+to refuse). The garbage collector is paused while orjson builds the value (see
+``service.store.jsontext``). One difference remains: an integer outside [-2**63, 2**64) is read
+as the nearest float, as the check request schema reads every number anyway.
 """
 
 from __future__ import annotations
 
 import json
-import re
+from collections.abc import Callable
 from dataclasses import dataclass
-from json.decoder import scanstring
 from typing import Any
 
-_WS = re.compile(r"[ \t\n\r]*")  # JSON whitespace (RFC 8259 §2)
+import orjson
 
-
-class _UnusualError(Exception):
-    """The fast walk gives up; ``json.loads`` decides."""
+from service.store.jsontext import orjson_loads
 
 
 def reject_constant(name: str) -> Any:
@@ -28,84 +29,38 @@ def reject_constant(name: str) -> Any:
     raise ValueError(f"{name} is not a JSON number")
 
 
-_DECODER = json.JSONDecoder(parse_constant=reject_constant)
-
-
-def _skip(text: str, i: int) -> int:
-    return _WS.match(text, i).end()  # type: ignore[union-attr]
-
-
-def _expect(text: str, i: int, chars: str) -> str:
-    if i >= len(text) or text[i] not in chars:
-        raise _UnusualError
-    return text[i]
-
-
-def _array_with_texts(text: str, i: int) -> tuple[list[Any], list[str], int]:
-    items: list[Any] = []
-    texts: list[str] = []
-    i = _skip(text, i + 1)
-    if text.startswith("]", i):
-        return items, texts, i + 1
-    while True:
-        start = i
-        value, i = _DECODER.raw_decode(text, i)
-        items.append(value)
-        texts.append(text[start:i])
-        i = _skip(text, i)
-        if _expect(text, i, ",]") == "]":
-            return items, texts, i + 1
-        i = _skip(text, i + 1)
-
-
-def _walk(text: str) -> tuple[Any, list[str] | None]:
-    i = _skip(text, 0)
-    _expect(text, i, "{")
-    body: dict[str, Any] = {}
-    texts: list[str] | None = None
-    i = _skip(text, i + 1)
-    if text.startswith("}", i):
-        i += 1
-    else:
-        while True:
-            _expect(text, i, '"')
-            key, i = scanstring(text, i + 1)
-            i = _skip(text, i)
-            _expect(text, i, ":")
-            i = _skip(text, i + 1)
-            if key == "variants" and text.startswith("[", i):
-                body[key], texts, i = _array_with_texts(text, i)
-            else:
-                body[key], i = _DECODER.raw_decode(text, i)
-                if key == "variants":
-                    texts = None
-            i = _skip(text, i)
-            if _expect(text, i, ",}") == "}":
-                i += 1
-                break
-            i = _skip(text, i + 1)
-    if _skip(text, i) != len(text):
-        raise _UnusualError
-    return body, texts
-
-
 @dataclass(frozen=True)
 class ParsedBody:
-    """``value`` as ``json.loads`` gives it; ``text``: the body as a str that ``json.loads``
-    reads back to ``value`` (None after a fallback); ``variant_texts``: the source text of each
-    element of a top-level ``"variants"`` array (None when there is none or after a fallback)."""
+    """``value``: the parsed body; ``text``: the body as a str that reads back to ``value``
+    (None after a fallback to ``json.loads``); ``variant_texts``: one JSON text per element of a
+    top-level ``"variants"`` array, reading back to that element (None when there is none)."""
 
     value: Any
     text: str | None
     variant_texts: list[str] | None
 
 
+def _orjson_text(value: Any) -> str:
+    return orjson.dumps(value).decode()
+
+
+def _stdlib_text(value: Any) -> str:
+    return json.dumps(value, separators=(",", ":"))
+
+
+def _variant_texts(value: Any, dump: Callable[[Any], str]) -> list[str] | None:
+    if not isinstance(value, dict) or not isinstance(value.get("variants"), list):
+        return None
+    return [dump(v) for v in value["variants"]]
+
+
 def parse_with_variant_texts(raw: bytes) -> ParsedBody:
-    """Parse a request body; raises ValueError (as ``json.loads`` does) when it is not JSON."""
+    """Parse a request body; raises ValueError (``json.loads``'s message) when it is not JSON."""
     try:
-        text = raw.decode("utf-8")
-        value, variant_texts = _walk(text)
-        return ParsedBody(value, text, variant_texts)
-    except (_UnusualError, ValueError, IndexError, RecursionError):
-        pass
-    return ParsedBody(json.loads(raw, parse_constant=reject_constant), None, None)
+        value = orjson_loads(raw)
+    except orjson.JSONDecodeError:
+        value = json.loads(raw, parse_constant=reject_constant)
+        # What orjson refuses may read as infinity here (``1e400``): only json.dumps writes it back.
+        return ParsedBody(value, None, _variant_texts(value, _stdlib_text))
+    # orjson gives finite floats and 64-bit integers only, all of which it writes back as read.
+    return ParsedBody(value, raw.decode("utf-8"), _variant_texts(value, _orjson_text))

@@ -36,6 +36,7 @@ from service.store.base import (
     summarize_verdict,
 )
 from service.store.ids import new_batch_id, new_check_id
+from service.store.jsontext import loads_json
 
 # Shared Lua helper: move a check from its current status to ``to`` and keep every index in step.
 _LUA_MOVE = """
@@ -335,8 +336,8 @@ class RedisStore:
             body = self.r.get(f"{self.p}blob:{shared_hash}")
             if body is None:
                 return None
-            shared = json.loads(body)
-        return merge_request(shared, json.loads(text))
+            shared = loads_json(body)
+        return merge_request(shared, loads_json(text))
 
     @staticmethod
     def _split_counts(raw: dict[str, str]) -> tuple[dict[str, int], dict[str, int]]:

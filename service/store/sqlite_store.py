@@ -32,6 +32,7 @@ from service.store.base import (
     summarize_verdict,
 )
 from service.store.ids import new_batch_id, new_check_id
+from service.store.jsontext import loads_json
 
 _SCHEMA = """
 CREATE TABLE IF NOT EXISTS checks (
@@ -238,8 +239,8 @@ class SqliteStore:
         ).fetchone()
         if row is None:
             return None
-        shared = json.loads(row["body"]) if row["body"] is not None else None
-        return merge_request(shared, json.loads(row["request"]))
+        shared = loads_json(row["body"]) if row["body"] is not None else None
+        return merge_request(shared, loads_json(row["request"]))
 
     def _counts(
         self, db: sqlite3.Connection, batch_id: str,

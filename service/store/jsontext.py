@@ -1,0 +1,53 @@
+"""Read stored JSON text with orjson, falling back to the standard library where orjson refuses.
+
+orjson (RFC 8259) reads a ~450 KB stored check request two to three times as fast as
+``json.loads`` and gives the same value, except that
+
+- it refuses NaN/Infinity literals, numbers such as ``1e400`` (``json.loads``: infinity), lone
+  surrogate escapes and a UTF-8 byte order mark: :func:`loads_json` then asks ``json.loads``;
+- it reads an integer outside [-2**63, 2**64) as the nearest float, ``float(n)``. Every number of
+  a check request is read as a float or a complex number by ``CheckRequestSchema``, so the
+  request it validates is the same.
+
+The cyclic garbage collector is paused while orjson builds the value: a request is some ten
+thousand small lists of numbers, whose allocation would otherwise trigger collections that scan
+every tracked object (measured: three quarters of the parse time of a 50-variant batch body).
+Parsed JSON holds no reference cycles, so nothing is left for the collector to find.
+"""
+
+from __future__ import annotations
+
+import gc
+import json
+from collections.abc import Iterator
+from contextlib import contextmanager
+from typing import Any
+
+import orjson
+
+
+@contextmanager
+def collector_paused() -> Iterator[None]:
+    """Pause the cyclic garbage collector, and resume it if it was running before."""
+    was_enabled = gc.isenabled()
+    gc.disable()
+    try:
+        yield
+    finally:
+        if was_enabled:
+            gc.enable()
+
+
+def orjson_loads(data: bytes | str) -> Any:
+    """``orjson.loads`` with the collector paused; raises ``orjson.JSONDecodeError``."""
+    with collector_paused():
+        return orjson.loads(data)
+
+
+def loads_json(data: bytes | str) -> Any:
+    """``data`` read by orjson, or by ``json.loads`` when orjson refuses it (see module doc)."""
+    try:
+        return orjson_loads(data)
+    except orjson.JSONDecodeError:
+        return json.loads(data)
+
