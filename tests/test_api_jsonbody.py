@@ -133,3 +133,28 @@ def test_stored_text_with_infinity_reads_like_json_loads():
     # refuses the literal, so loads_json must fall back.
     text = json.dumps({"a": [float("inf"), 1.5]})
     assert loads_json(text) == json.loads(text) == {"a": [float("inf"), 1.5]}
+
+
+def test_collector_pause_nests_and_restores_the_previous_state():
+    # Reference: the standard library's gc.isenabled/gc.disable (Python 3.11 documentation).
+    import gc
+
+    from service.store.jsontext import collector_paused
+
+    assert gc.isenabled()
+    with collector_paused():
+        assert not gc.isenabled()
+        with collector_paused():
+            assert not gc.isenabled()
+        assert not gc.isenabled()  # the outer block still holds the pause
+    assert gc.isenabled()
+    with pytest.raises(RuntimeError), collector_paused():
+        raise RuntimeError("boom")
+    assert gc.isenabled()
+    gc.disable()
+    try:
+        with collector_paused():
+            pass
+        assert not gc.isenabled()  # it was not running before: it is not started
+    finally:
+        gc.enable()

@@ -22,6 +22,7 @@ from marshmallow import ValidationError
 
 from service.runner import run_check_json  # loaded by the worker before it forks its pool
 from service.runtime_config import RUN_CHECK_TASK
+from service.store.jsontext import collector_paused
 from workers.celery_app import app, config
 from workers.store_access import process_store
 
@@ -114,7 +115,17 @@ class CheckRequest(Request):
     time_limit=config.hard_time_limit_s,
 )
 def run_check(self: Any, check_id: str) -> str:
-    """Run one stored check; returns what happened (for the worker log): done/failed/skipped."""
+    """Run one stored check; returns what happened (for the worker log): done/failed/skipped.
+
+    The cyclic garbage collector is paused for the task: the loaded request (some ten thousand
+    small lists) is freed by reference counting when the task ends, unscanned
+    (``service.store.jsontext.collector_paused``).
+    """
+    with collector_paused():
+        return _run_check(check_id)
+
+
+def _run_check(check_id: str) -> str:
     store = process_store()
     record = _with_store_retry(
         lambda: store.claim(check_id, config.lease_s, config.max_attempts), "claim " + check_id

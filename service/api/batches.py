@@ -54,6 +54,7 @@ from service.store.base import (
     content_hash,
     merge_request,
 )
+from service.store.jsontext import collector_paused
 
 blp = Blueprint("batches", __name__, url_prefix="/v1/batches",
                 description="Batches of variants sharing one port/device map")
@@ -205,6 +206,13 @@ def _accepted(batch_id: str) -> tuple[dict[str, Any], int, dict[str, str]]:
 @document_errors(blp, 400, 401, 409, 413, 415, 422, 429)
 def submit_batch():
     """Queue many variants sharing one port/device map (JSON, or multipart Touchstone files)."""
+    # The parsed batch (millions of small lists) is freed by reference counting when
+    # _submit_batch returns; the paused collector never scans it.
+    with collector_paused():
+        return _submit_batch()
+
+
+def _submit_batch() -> tuple[dict[str, Any], int, dict[str, str]]:
     if request.mimetype == "multipart/form-data":
         label, shared, variants = _parse_multipart_batch()
         where = "files"

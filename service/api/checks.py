@@ -23,6 +23,7 @@ from service.problems import abort_problem
 from service.schemas.api import CheckAcceptedSchema, CheckSchema
 from service.schemas.request import CheckRequestSchema
 from service.store.base import UNFINISHED_STATUSES, NewCheck
+from service.store.jsontext import collector_paused
 
 blp = Blueprint("checks", __name__, url_prefix="/v1/checks",
                 description="Single stability checks")
@@ -68,6 +69,11 @@ def validate_request(body: dict[str, Any]) -> None:
 @document_errors(blp, 400, 401, 409, 413, 415, 422, 429)
 def submit_check():
     """Queue one check request."""
+    with collector_paused():  # see submit_batch
+        return _submit_check()
+
+
+def _submit_check() -> tuple[dict[str, Any], int, dict[str, str]]:
     body = json_object_body()
     validate_request(body)
 
