@@ -109,7 +109,7 @@ def test_duplicate_members_keep_the_last_like_json_loads():
     raw = b'{"variants": [1], "variants": [2, 3]}'
     parsed = parse_with_variant_texts(raw)
     assert parsed.value == json.loads(raw) == {"variants": [2, 3]}
-    assert parsed.variant_texts == ["2", "3"]
+    assert parsed.variant_texts == [b"2", b"3"]
     raw = b'{"variants": [1], "variants": 4}'
     parsed = parse_with_variant_texts(raw)
     assert parsed.value == {"variants": 4} and parsed.variant_texts is None

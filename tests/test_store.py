@@ -7,6 +7,7 @@ as in the IETF draft "The Idempotency-Key HTTP Header Field"), not from the impl
 
 from __future__ import annotations
 
+import json
 import subprocess
 import sys
 import threading
@@ -367,3 +368,15 @@ def test_redis_purge_drops_unfinished_entries_without_a_record(clock):
         assert store.count_unfinished("acme") == 1 and store.get_check("acme", cid) is not None
     finally:
         gen.close()
+
+
+def test_request_json_given_as_str_or_utf8_bytes_reads_back_as_the_request(store):
+    # The API hands batch variants over as UTF-8 JSON bytes (orjson.dumps) and single checks as
+    # the body text; RFC 8259 §8.1: JSON text exchanged between systems is UTF-8.
+    request = {"frequency_hz": [1e9, 2e9], "ports": [{"name": "Ω", "role": "external"}]}
+    as_bytes = json.dumps(request, ensure_ascii=False).encode("utf-8")
+    as_text = json.dumps(request)
+    _, ids = store.create_checks("acme", [NewCheck(request, request_json=as_bytes),
+                                          NewCheck(request, request_json=as_text),
+                                          NewCheck(request)])
+    assert [store.get_request(i) for i in ids] == [request, request, request]

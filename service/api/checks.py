@@ -78,7 +78,7 @@ def _submit_check() -> tuple[dict[str, Any], int, dict[str, str]]:
     validate_request(body)
 
     def create() -> str:
-        _, (check_id,) = store_checks([NewCheck(body, request_json=g.body_text)])
+        _, (check_id,) = store_checks([NewCheck(body, request_json=g.parsed_body.raw)])
         return check_id
 
     check_id = accept_once(idempotency_key(), g.body_digest, create, replay=lambda found: found)

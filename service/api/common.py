@@ -74,7 +74,8 @@ def parse_json(data: bytes | str, what: str = "the request body") -> Any:
 def json_object_body() -> dict[str, Any]:
     """The request's JSON object, or a problem: 415 (not JSON), 400 (malformed), 422 (not an
     object). Also sets ``g.body_digest`` (SHA-256 of the bytes, the idempotency fingerprint),
-    ``g.body_text`` and ``g.variant_texts`` (source texts the store can keep as they are)."""
+    ``g.parsed_body`` (its ``text`` is the body as a str) and ``g.variant_texts`` (JSON texts
+    the store can keep as they are)."""
     if not request.mimetype or not (
         request.mimetype == "application/json" or request.mimetype.endswith("+json")
     ):
@@ -85,11 +86,11 @@ def json_object_body() -> dict[str, Any]:
         parsed = parse_with_variant_texts(raw)
     except (ValueError, RecursionError) as exc:
         abort_problem(400, f"the request body is not valid JSON: {exc}", kind="malformed-json")
-    del raw
+    del raw  # ``parsed.raw`` keeps it when orjson read it
     if not isinstance(parsed.value, dict):
         abort_problem(422, "the request body must be a JSON object", kind="invalid-request",
                       errors=field_errors([("body", "must be a JSON object")]))
-    g.body_text = parsed.text
+    g.parsed_body = parsed
     g.variant_texts = parsed.variant_texts
     return parsed.value
 

@@ -31,24 +31,25 @@ def reject_constant(name: str) -> Any:
 
 @dataclass(frozen=True)
 class ParsedBody:
-    """``value``: the parsed body; ``text``: the body as a str that reads back to ``value``
-    (None after a fallback to ``json.loads``); ``variant_texts``: one JSON text per element of a
+    """``value``: the parsed body; ``raw``: the body's bytes when orjson read them (None after a
+    fallback to ``json.loads``); ``variant_texts``: one UTF-8 JSON text per element of a
     top-level ``"variants"`` array, reading back to that element (None when there is none)."""
 
     value: Any
-    text: str | None
-    variant_texts: list[str] | None
+    raw: bytes | None
+    variant_texts: list[bytes] | None
+
+    @property
+    def text(self) -> str | None:
+        """The body as a str that reads back to ``value`` (None after a fallback)."""
+        return self.raw.decode("utf-8") if self.raw is not None else None
 
 
-def _orjson_text(value: Any) -> str:
-    return orjson.dumps(value).decode()
+def _stdlib_text(value: Any) -> bytes:
+    return json.dumps(value, separators=(",", ":")).encode()
 
 
-def _stdlib_text(value: Any) -> str:
-    return json.dumps(value, separators=(",", ":"))
-
-
-def _variant_texts(value: Any, dump: Callable[[Any], str]) -> list[str] | None:
+def _variant_texts(value: Any, dump: Callable[[Any], bytes]) -> list[bytes] | None:
     if not isinstance(value, dict) or not isinstance(value.get("variants"), list):
         return None
     return [dump(v) for v in value["variants"]]
@@ -63,4 +64,4 @@ def parse_with_variant_texts(raw: bytes) -> ParsedBody:
         # What orjson refuses may read as infinity here (``1e400``): only json.dumps writes it back.
         return ParsedBody(value, None, _variant_texts(value, _stdlib_text))
     # orjson gives finite floats and 64-bit integers only, all of which it writes back as read.
-    return ParsedBody(value, raw.decode("utf-8"), _variant_texts(value, _orjson_text))
+    return ParsedBody(value, raw, _variant_texts(value, orjson.dumps))

@@ -98,10 +98,15 @@ class NewCheck:
 
     request: dict[str, Any]
     label: str | None = None
-    request_json: str | None = None
+    request_json: str | bytes | None = None  # bytes: UTF-8
+
+    def stored_json(self) -> str | bytes:
+        """``request_json`` as given (str or UTF-8 bytes), else the canonical JSON text."""
+        return self.request_json if self.request_json is not None else canonical_json(self.request)
 
     def stored_text(self) -> str:
-        return self.request_json if self.request_json is not None else canonical_json(self.request)
+        text = self.stored_json()
+        return text.decode("utf-8") if isinstance(text, bytes) else text
 
 
 @dataclass(frozen=True)

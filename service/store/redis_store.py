@@ -248,7 +248,7 @@ class RedisStore:
         shared_hash = content_hash(shared) if shared is not None else None
         ids = [new_check_id() for _ in checks]
         open_key = f"{self.p}t:{tenant}:open"
-        payloads = [c.stored_text() for c in checks]
+        payloads = [c.stored_json() for c in checks]  # bytes go to Redis as they are
         # reserve the tenant's quota atomically (Lua), then write everything in one MULTI/EXEC;
         # a failed write gives the reservation back
         accepted, unfinished = self._reserve(
