@@ -50,7 +50,7 @@ def verdict_line(item: dict[str, Any]) -> str:
     if item.get("first_unstable_frequency_hz") is not None:
         node = item.get("first_unstable_node") or "?"
         where = f"  first at {_frequency(item['first_unstable_frequency_hz'])} (node {node})"
-    count_text = "" if count is None else f"  unstable modes: {count}"
+    count_text = "" if count is None else f"  right-half-plane natural frequencies: {count}"
     return f"  {item.get('label') or item['id']:<32} {verdict:<14}{count_text}{where}"
 
 
