@@ -118,7 +118,7 @@ def figure_data(payload: dict[str, Any], verdict: dict[str, Any]) -> CheckFigure
     two_port = None
     external = [p.name for p in request.ports if p.role == "external"]
     if len(external) == 2:
-        s, singular, _ = external_s(request, analysis.state.y_data)
+        s, singular, _ = external_s(request, analysis.state.y_data, analysis.z_on)
         keep = ~singular
         if keep.sum() >= 2:
             with np.errstate(all="ignore"):

@@ -14,7 +14,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from workers.engine.conversions import Solved, batched_inv
+from workers.engine.conversions import Solved
 
 
 @dataclass(frozen=True)
@@ -40,12 +40,6 @@ class NodeResult:
     admittance: np.ndarray
     singular: np.ndarray
     crossings: tuple[KurokawaCrossing, ...]
-
-
-def driving_point_impedances(y: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
-    """Z_kk = (Y⁻¹)_kk for every node, (F, N); and the singular-frequency mask."""
-    inverse = batched_inv(y)
-    return np.diagonal(inverse.values, axis1=-2, axis2=-1).copy(), inverse.singular
 
 
 def kurokawa_crossings(frequency_hz: np.ndarray, admittance: np.ndarray,
