@@ -12,10 +12,21 @@ with 3–7 more probe ports), with 201-point inputs:
   in CPU time of this process (``time.process_time``: the benchmark machine is shared, and wall
   time there measures the neighbours). Target (issue 3): every variant matches, cost <= 5.
 
+Runs with one BLAS thread, set before numpy's first import, as the Celery workers run the engine
+(workers/celery_app.py; tests/benchmarks/bench_service.py does the same): the benchmark measures
+the engine as it runs in the workers. With OpenBLAS's default thread pool the small matrices here
+leave its threads spinning, and that spinning counts in the process CPU time of both runs.
+
 Prints one line per variant and a summary of ratios; not a timed test.
 """
 
+# ruff: noqa: E402 (the thread settings must precede numpy's first import)
 from __future__ import annotations
+
+import os
+
+for _var in ("OPENBLAS_NUM_THREADS", "OMP_NUM_THREADS", "MKL_NUM_THREADS"):
+    os.environ.setdefault(_var, "1")
 
 import argparse
 import time
