@@ -1,10 +1,11 @@
 """Rational models of sampled responses: AAA fits on the jω axis, validated by leave-out error.
 
 The fit is the AAA algorithm (Y. Nakatsukasa, O. Sète, L. N. Trefethen, "The AAA algorithm for
-rational approximation", SIAM J. Sci. Comput. 40(3), A1494–A1522, 2018) as implemented by
-``scipy.interpolate.AAA``. A real circuit's response obeys H(−jω) = conj H(jω), so every fit
-sees the samples twice: at s = jω and, mirrored, at s = −jω with conjugated values; its poles and
-zeros then come in conjugate pairs. Frequencies are scaled by the top of the band.
+rational approximation", SIAM J. Sci. Comput. 40(3), A1494–A1522, 2018), run by the lean core in
+``workers.engine.aaa`` (the same steps as ``scipy.interpolate.AAA``, its test oracle). A real
+circuit's response obeys H(−jω) = conj H(jω), so every fit sees the samples twice: at s = jω and,
+mirrored, at s = −jω with conjugated values; its poles and zeros then come in conjugate pairs.
+Frequencies are scaled by the top of the band.
 
 Validation by leave-out: one model is fitted on the even-numbered samples and checked on the odd
 ones. When it converges to rounding level and reproduces the unseen samples to EXACT_LEVEL, the
@@ -18,11 +19,11 @@ when both find it (a zero fitted into noise does not repeat on independent sampl
 
 from __future__ import annotations
 
-import warnings
 from dataclasses import dataclass
 
 import numpy as np
-from scipy.interpolate import AAA
+
+from workers.engine.aaa import AAAFit, aaa
 
 MAX_FIT_SAMPLES = 2001   # larger sets are thinned evenly for fitting (all samples validate)
 MAX_TERMS = 50           # largest barycentric order (bounds the cost of every fit)
@@ -42,7 +43,7 @@ MATCH_GROWTH = 0.25      # ... or within this fraction of |Re z|, whichever is l
 class HalfFit:
     """One AAA fit on every other sample (mirrored), in scaled units s/ω_top."""
 
-    fit: AAA
+    fit: AAAFit
     terms: int
     converged: bool
 
@@ -52,24 +53,22 @@ def _mirror(s: np.ndarray, h: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
 
 
 def aaa_fit(s: np.ndarray, h: np.ndarray, rtol: float, max_terms: int = MAX_TERMS) -> HalfFit:
-    """AAA on the mirrored samples ``s`` (scaled jω), without SciPy's own doublet clean-up.
+    """AAA on the mirrored samples ``s`` (scaled jω), without a doublet clean-up.
 
-    SciPy warns when AAA stops at ``max_terms``; that outcome is returned as ``converged=False``
-    and judged by the leave-out check instead.
+    Stopping at ``max_terms`` is returned as ``converged=False`` and judged by the leave-out
+    check instead.
     """
     z, values = _mirror(s, h)
     terms = int(max(2, min(max_terms, z.size // 3)))
-    with warnings.catch_warnings():
-        warnings.simplefilter("ignore", RuntimeWarning)
-        fit = AAA(z, values, rtol=rtol, max_terms=terms, clean_up=False)
+    fit = aaa(z, values, rtol, terms)
     m = int(fit.weights.size)
     return HalfFit(fit, m, bool(fit.errors[-1] <= rtol * np.max(np.abs(values)) or m < terms))
 
 
-def _evaluate(fit: AAA, s: np.ndarray) -> np.ndarray:
+def _evaluate(fit: AAAFit, s: np.ndarray) -> np.ndarray:
     """The barycentric formula r(s) = Σ w_j f_j/(s − z_j) / Σ w_j/(s − z_j), vectorised.
 
-    (Same value as ``fit(s)``, without its per-call bookkeeping; a point that hits a support
+    (Same value as ``fit(s)``; a point that hits a support
     point exactly takes the support value.)
     """
     s = np.asarray(s, dtype=complex)
@@ -259,7 +258,7 @@ def fit_response(frequency_hz: np.ndarray, h: np.ndarray) -> RationalModel:
 
 
 def fit_single(frequency_hz: np.ndarray, h: np.ndarray, noise_floor: float = 0.0
-               ) -> tuple[AAA, float]:
+               ) -> tuple[AAAFit, float]:
     """One AAA fit on all samples (mirrored), tolerance from a known noise floor.
 
     Returns the fit (scaled units s/(2π·f_top)) and its relative error on the samples. Used for

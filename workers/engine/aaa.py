@@ -1,0 +1,171 @@
+"""A lean AAA core: greedy barycentric rational approximation of sampled data.
+
+The algorithm is AAA (Y. Nakatsukasa, O. Sète, L. N. Trefethen, "The AAA algorithm for rational
+approximation", SIAM J. Sci. Comput. 40(3), A1494–A1522, 2018), step for step as
+``scipy.interpolate.AAA`` (SciPy 1.17) runs it without its clean-up, which is the reference this
+module is tested against (tests/test_aaa.py): at step m the next support point is the sample with
+the largest residual |f − r|, the weights are the right singular vector of the smallest singular
+value of the Loewner matrix A_ij = (f_i − f_j)/(z_i − z_j) over the other samples (columns
+scaled to unit norm once A is ill-conditioned), and the iteration stops when max|f − r| <=
+rtol·max|f| or at ``max_terms``. Poles and zeros are the finite eigenvalues of the arrowhead
+pencil (op. cit., sec. 3.2): det(E − λB) = 0 with E = [[0, wᵀ], [1, diag z_j]] (zeros: w·f in
+place of w) and B = diag(0, 1, …, 1).
+
+Why it exists: the refinement fits a few small problems (about 200 samples, m <= 50) per check,
+where SciPy's general implementation spends ~140 µs per step on wrapper work (LAPACK workspace
+queries, array-API dispatch, boolean-mask copies, error-state contexts); this core does the same
+arithmetic with numpy.linalg.svd on an index list, measured ~3× faster per fit on the refinement
+benchmark's data.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass, field
+
+import numpy as np
+import scipy.linalg
+from scipy.linalg.lapack import zgeqrf, zgesdd
+
+ILL_CONDITIONED = 1.0 / (3 * np.finfo(float).eps)  # SciPy's switch to column-scaled weights
+
+
+@dataclass(frozen=True, eq=False)
+class AAAFit:
+    """A barycentric rational function r(z) = Σ w_j f_j/(z − z_j) / Σ w_j/(z − z_j)."""
+
+    support_points: np.ndarray
+    support_values: np.ndarray
+    weights: np.ndarray
+    errors: np.ndarray  # max|f − r| over the samples after each step
+    _cache: dict[str, np.ndarray] = field(default_factory=dict, repr=False)
+
+    def _pencil(self, top_row: np.ndarray) -> np.ndarray:
+        m = self.weights.size
+        e = np.zeros((m + 1, m + 1), dtype=complex)
+        e[0, 1:] = top_row
+        e[1:, 0] = 1
+        e[np.arange(1, m + 1), np.arange(1, m + 1)] = self.support_points
+        b = np.eye(m + 1, dtype=complex)
+        b[0, 0] = 0
+        values = scipy.linalg.eigvals(e, b, check_finite=False)
+        return values[np.isfinite(values)]
+
+    def poles(self) -> np.ndarray:
+        """Finite poles (eigenvalues of the arrowhead pencil with w in its top row)."""
+        if "poles" not in self._cache:
+            self._cache["poles"] = self._pencil(self.weights)
+        return self._cache["poles"]
+
+    def roots(self) -> np.ndarray:
+        """Finite zeros (the same pencil with w·f in its top row)."""
+        if "roots" not in self._cache:
+            self._cache["roots"] = self._pencil(self.weights * self.support_values)
+        return self._cache["roots"]
+
+    def __call__(self, z: np.ndarray) -> np.ndarray:
+        """r at ``z``; a point equal to a support point takes that point's value."""
+        z = np.asarray(z, dtype=complex)
+        with np.errstate(divide="ignore", invalid="ignore"):
+            cauchy = 1.0 / (z.reshape(-1)[:, None] - self.support_points[None, :])
+            r = (cauchy @ (self.weights * self.support_values)) / (cauchy @ self.weights)
+        hit = np.isinf(cauchy)
+        if hit.any():
+            rows, cols = np.nonzero(hit)
+            r[rows] = self.support_values[cols]
+        return r.reshape(z.shape)
+
+
+_UPPER: dict[int, np.ndarray] = {}
+
+
+def _upper(size: int) -> np.ndarray:
+    """A 0/1 upper-triangular mask (size × size), kept between calls."""
+    if size not in _UPPER:
+        _UPPER[size] = np.triu(np.ones((size, size)))
+    return _UPPER[size]
+
+
+def _singular(block: np.ndarray, upper: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """Singular values and right singular vectors (rows of Vᴴ) of a tall ``block``: the SVD of
+    its triangular QR factor R (A = QR has A's singular values and right vectors; LAPACK's own
+    tall SVD takes the same QR step, then also forms the left vectors, which AAA never uses).
+    ``upper``: a 0/1 upper-triangular mask at least as large as R."""
+    n = block.shape[1]
+    qr, _, _, info = zgeqrf(block)
+    if info == 0:
+        _, s, vh, info = zgesdd(qr[:n] * upper[:n, :n])
+    if info != 0:
+        raise np.linalg.LinAlgError(f"SVD of the Loewner matrix failed (LAPACK info {info})")
+    return s, vh
+
+
+def aaa(z: np.ndarray, f: np.ndarray, rtol: float, max_terms: int) -> AAAFit:
+    """AAA on samples ``f`` at distinct points ``z`` (module docstring).
+
+    Non-finite samples are dropped and the points sorted, as SciPy does, so that ties in the
+    greedy choice fall the same way. Stopping at ``max_terms`` is not an error (SciPy warns):
+    the caller compares ``errors[-1]`` with its tolerance.
+    """
+    z = np.asarray(z, dtype=complex)
+    f = np.asarray(f, dtype=complex)
+    if z.ndim != 1 or z.shape != f.shape or max_terms < 1:
+        raise ValueError("aaa: z and f must be 1-D of equal size, max_terms >= 1")
+    finite = np.isfinite(f)
+    z, unique = np.unique(z[finite], return_index=True)
+    f = f[finite][unique]
+    size = z.size
+    atol = rtol * float(np.max(np.abs(f)))
+    # column-major, as LAPACK wants the Loewner block and as SciPy's column selection leaves the
+    # Cauchy block (so that r is summed in the same order and the error history is the same)
+    cauchy = np.empty((size, max_terms), dtype=complex, order="F")
+    loewner = np.empty((size, max_terms), dtype=complex, order="F")
+    upper = _upper(max_terms)
+    chosen = np.empty(max_terms, dtype=int)
+    values = np.empty(max_terms, dtype=complex)
+    errors = np.empty(max_terms)
+    rest = np.ones(size, dtype=bool)
+    residual = np.abs(f - np.mean(f))
+    ill = False
+    with np.errstate(divide="ignore", invalid="ignore"):
+        for m in range(max_terms):
+            n = m + 1
+            j = int(np.argmax(residual))
+            chosen[m], values[m] = j, f[j]
+            rest[j] = False
+            cauchy[:, m] = 1.0 / (z - z[j])
+            loewner[:, m] = (f - f[j]) * cauchy[:, m]
+            if size - n >= n:
+                block = loewner[rest, :n]
+                if not ill:
+                    s, vh = _singular(block, upper)
+                    ill = bool(s[0] / s[-1] > ILL_CONDITIONED)
+                if ill:
+                    norms = np.linalg.norm(block, axis=0)
+                    s, vh = _singular(block / norms, upper)
+                # the singular values come sorted, largest first: the smallest may repeat
+                k = 1
+                while k < n and s[n - 1 - k] == s[n - 1]:
+                    k += 1
+                weights = vh[n - 1].conj() if k == 1 else \
+                    vh[n - k:].conj().sum(axis=0) / np.sqrt(k)
+                if ill:
+                    weights = weights / norms
+            else:
+                space = scipy.linalg.null_space(loewner[rest, :n], check_finite=False)
+                weights = space.sum(axis=-1) / np.sqrt(space.shape[-1])
+            if weights.all():
+                columns, w, fw = cauchy[:, :n], weights, weights * values[:n]
+            else:
+                used = weights != 0
+                columns, w = cauchy[:, :n][:, used], weights[used]
+                fw = w * values[:n][used]
+            numerator = columns @ fw
+            denominator = columns @ w
+            r = np.where(np.isfinite(denominator), numerator / denominator, f)
+            residual = np.abs(f - r)
+            errors[m] = residual.max()
+            if errors[m] <= atol:
+                break
+            residual[chosen[:n]] = -1.0
+    keep = weights != 0
+    return AAAFit(z[chosen[:n]][keep], values[:n][keep], weights[keep], errors[:n].copy())
