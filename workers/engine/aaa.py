@@ -24,7 +24,7 @@ from dataclasses import dataclass, field
 
 import numpy as np
 import scipy.linalg
-from scipy.linalg.lapack import zgeqrf, zgesdd
+from scipy.linalg.lapack import zgeqrf, zgesdd, zggev
 
 ILL_CONDITIONED = 1.0 / (3 * np.finfo(float).eps)  # SciPy's switch to column-scaled weights
 
@@ -40,14 +40,21 @@ class AAAFit:
     _cache: dict[str, np.ndarray] = field(default_factory=dict, repr=False)
 
     def _pencil(self, top_row: np.ndarray) -> np.ndarray:
-        m = self.weights.size
-        e = np.zeros((m + 1, m + 1), dtype=complex)
+        """Finite eigenvalues of the arrowhead pencil (LAPACK zggev, as scipy.linalg.eigvals
+        calls it, with the workspace size it would query)."""
+        n = self.weights.size + 1
+        e = np.zeros((n, n), dtype=complex, order="F")
         e[0, 1:] = top_row
         e[1:, 0] = 1
-        e[np.arange(1, m + 1), np.arange(1, m + 1)] = self.support_points
-        b = np.eye(m + 1, dtype=complex)
+        e[np.arange(1, n), np.arange(1, n)] = self.support_points
+        b = np.eye(n, dtype=complex, order="F")
         b[0, 0] = 0
-        values = scipy.linalg.eigvals(e, b, check_finite=False)
+        alpha, beta, _, _, _, info = zggev(e, b, 0, 0, _ggev_workspace(n), 1, 1)
+        if info != 0:
+            raise np.linalg.LinAlgError(f"generalized eigenvalues failed (LAPACK info {info})")
+        finite = beta != 0
+        with np.errstate(divide="ignore", invalid="ignore", over="ignore"):
+            values = alpha[finite] / beta[finite]
         return values[np.isfinite(values)]
 
     def poles(self) -> np.ndarray:
@@ -76,6 +83,15 @@ class AAAFit:
 
 
 _UPPER: dict[int, np.ndarray] = {}
+_GGEV_WORK: dict[int, int] = {}
+
+
+def _ggev_workspace(n: int) -> int:
+    """zggev's optimal workspace for order n (queried once per order)."""
+    if n not in _GGEV_WORK:
+        square = np.eye(n, dtype=complex, order="F")
+        _GGEV_WORK[n] = int(zggev(square, square, 0, 0, -1)[4][0].real)
+    return _GGEV_WORK[n]
 
 
 def _upper(size: int) -> np.ndarray:
