@@ -72,7 +72,7 @@ def test_same_steps_and_same_rational_function_as_scipy(name):
     np.testing.assert_array_equal(lean.support_points, reference.support_points)
     np.testing.assert_array_equal(lean.support_values, reference.support_values)
     np.testing.assert_allclose(lean.weights, reference.weights, rtol=1e-10, atol=1e-14)
-    np.testing.assert_allclose(lean.errors, reference.errors, rtol=1e-6,
+    np.testing.assert_allclose(lean.errors, reference.errors, rtol=1e-9,
                                atol=1e-12 * np.max(np.abs(f)))
     assert (lean.errors[-1] > rtol * np.max(np.abs(f))) == stops
     # the same rational function off the data: a grid around the samples

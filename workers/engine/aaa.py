@@ -24,7 +24,7 @@ from dataclasses import dataclass, field
 
 import numpy as np
 import scipy.linalg
-from scipy.linalg.lapack import zgeqrf, zgesdd, zggev
+from scipy.linalg.lapack import zgeqrf, zgesdd, zgesdd_lwork, zggev
 
 ILL_CONDITIONED = 1.0 / (3 * np.finfo(float).eps)  # SciPy's switch to column-scaled weights
 
@@ -84,6 +84,15 @@ class AAAFit:
 
 _UPPER: dict[int, np.ndarray] = {}
 _GGEV_WORK: dict[int, int] = {}
+_GESDD_WORK: dict[int, int] = {}
+
+
+def _gesdd_workspace(n: int) -> int:
+    """zgesdd's optimal workspace for an n × n matrix (queried once per order; a smaller one
+    takes another path through LAPACK and changes the last bits)."""
+    if n not in _GESDD_WORK:
+        _GESDD_WORK[n] = int(zgesdd_lwork(n, n, compute_uv=1, full_matrices=0)[0].real)
+    return _GESDD_WORK[n]
 
 
 def _ggev_workspace(n: int) -> int:
@@ -107,9 +116,9 @@ def _singular(block: np.ndarray, upper: np.ndarray) -> tuple[np.ndarray, np.ndar
     tall SVD takes the same QR step, then also forms the left vectors, which AAA never uses).
     ``upper``: a 0/1 upper-triangular mask at least as large as R."""
     n = block.shape[1]
-    qr, _, _, info = zgeqrf(block)
+    qr, _, _, info = zgeqrf(block, lwork=64 * n)  # >= the blocked optimum, as in LAPACK's SVD
     if info == 0:
-        _, s, vh, info = zgesdd(qr[:n] * upper[:n, :n])
+        _, s, vh, info = zgesdd(qr[:n] * upper[:n, :n], lwork=_gesdd_workspace(n))
     if info != 0:
         raise np.linalg.LinAlgError(f"SVD of the Loewner matrix failed (LAPACK info {info})")
     return s, vh
