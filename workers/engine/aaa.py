@@ -57,6 +57,13 @@ class AAAFit:
             values = alpha[finite] / beta[finite]
         return values[np.isfinite(values)]
 
+    @property
+    def weighted_values(self) -> np.ndarray:
+        """w_j·f_j, the numerator's coefficients (kept after the first use)."""
+        if "weighted_values" not in self._cache:
+            self._cache["weighted_values"] = self.weights * self.support_values
+        return self._cache["weighted_values"]
+
     def poles(self) -> np.ndarray:
         """Finite poles (eigenvalues of the arrowhead pencil with w in its top row)."""
         if "poles" not in self._cache:
@@ -66,7 +73,7 @@ class AAAFit:
     def roots(self) -> np.ndarray:
         """Finite zeros (the same pencil with w·f in its top row)."""
         if "roots" not in self._cache:
-            self._cache["roots"] = self._pencil(self.weights * self.support_values)
+            self._cache["roots"] = self._pencil(self.weighted_values)
         return self._cache["roots"]
 
     def __call__(self, z: np.ndarray) -> np.ndarray:
@@ -74,7 +81,7 @@ class AAAFit:
         z = np.asarray(z, dtype=complex)
         with np.errstate(divide="ignore", invalid="ignore"):
             cauchy = 1.0 / (z.reshape(-1)[:, None] - self.support_points[None, :])
-            r = (cauchy @ (self.weights * self.support_values)) / (cauchy @ self.weights)
+            r = (cauchy @ self.weighted_values) / (cauchy @ self.weights)
         hit = np.isinf(cauchy)
         if hit.any():
             rows, cols = np.nonzero(hit)

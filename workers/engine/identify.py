@@ -23,7 +23,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from workers.engine.models import MAX_FIT_SAMPLES, RationalModel, fit_single
+from workers.engine.models import MAX_FIT_SAMPLES, RationalModel, evenly_spread, fit_single
 from workers.engine.verdict import Mode, StabilisationHint
 
 NODE_FIT_LIMIT = 1e-3  # largest relative error of the partial-fraction fit of a node's Z_kk
@@ -99,8 +99,8 @@ def fit_nodes(frequency_hz: np.ndarray, impedance: np.ndarray, poles_rad_s: np.n
     """All nodes' partial-fraction fits in one least-squares solve (module docstring), on at most
     MAX_FIT_SAMPLES evenly spread samples."""
     rows = np.nonzero(np.all(np.isfinite(impedance), axis=1))[0]
-    rows = rows[np.unique(np.linspace(0, rows.size - 1, min(rows.size, MAX_FIT_SAMPLES)).round()
-                          ).astype(int)] if rows.size else rows
+    if rows.size > MAX_FIT_SAMPLES:
+        rows = rows[evenly_spread(rows.size, MAX_FIT_SAMPLES)]
     f = np.asarray(frequency_hz, dtype=float)[rows]
     z = impedance[rows]
     x = 2j * np.pi * f / scale_rad_s

@@ -48,6 +48,14 @@ class HalfFit:
     converged: bool
 
 
+def evenly_spread(count: int, limit: int) -> np.ndarray:
+    """Indices of at most ``limit`` of ``count`` samples, evenly spread (all when count <= limit:
+    the rounded linspace is then 0 … count − 1 exactly)."""
+    if count <= limit:
+        return np.arange(count)
+    return np.unique(np.linspace(0, count - 1, limit).round()).astype(int)
+
+
 def _mirror(s: np.ndarray, h: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
     return np.concatenate([s, -s]), np.concatenate([h, np.conj(h)])
 
@@ -75,7 +83,7 @@ def _evaluate(fit: AAAFit, s: np.ndarray) -> np.ndarray:
     nodes, values, weights = fit.support_points, fit.support_values, fit.weights
     with np.errstate(divide="ignore", invalid="ignore"):
         cauchy = 1.0 / (s.reshape(-1)[:, None] - nodes[None, :])
-        r = (cauchy @ (weights * values)) / (cauchy @ weights)
+        r = (cauchy @ fit.weighted_values) / (cauchy @ weights)
     hit = ~np.isfinite(cauchy)
     if hit.any():
         rows, cols = np.nonzero(hit)
@@ -162,16 +170,15 @@ class RationalModel:
         """Im of the model at one frequency (Hz): the cheap scalar path for root finding."""
         x = 1j * frequency_hz * (2 * np.pi / self.scale_rad_s)
         total = 0.0
-        for half in self.halves:
-            nodes = half.fit.support_points
-            if np.any(nodes == x):
-                total += float(_evaluate(half.fit, np.array([x]))[0].imag)
-                continue
-            cauchy = 1.0 / (x - nodes)
-            weights = half.fit.weights
-            with np.errstate(all="ignore"):
-                total += float(((cauchy @ (weights * half.fit.support_values))
-                                / (cauchy @ weights)).imag)
+        with np.errstate(all="ignore"):
+            for half in self.halves:
+                gap = x - half.fit.support_points
+                if not gap.all():  # x is a support point
+                    total += float(_evaluate(half.fit, np.array([x]))[0].imag)
+                    continue
+                cauchy = 1.0 / gap
+                total += float(((cauchy @ half.fit.weighted_values)
+                                / (cauchy @ half.fit.weights)).imag)
         return total / len(self.halves)
 
     def __call__(self, frequency_hz: np.ndarray) -> np.ndarray:
@@ -207,8 +214,7 @@ def fit_response(frequency_hz: np.ndarray, h: np.ndarray) -> RationalModel:
     s = 1j * f / top
     level = float(np.max(np.abs(h)))
     # training halves: alternate samples (of an evenly thinned set when F > MAX_FIT_SAMPLES)
-    chosen = np.unique(np.linspace(0, f.size - 1, min(f.size, MAX_FIT_SAMPLES)).round()
-                       ).astype(int)
+    chosen = evenly_spread(f.size, MAX_FIT_SAMPLES)
     train = (chosen[0::2], chosen[1::2])
     unseen = (train[1], train[0]) if chosen.size == f.size else \
         [np.setdiff1d(np.arange(f.size), t, assume_unique=True) for t in train]

@@ -116,13 +116,13 @@ def suspect_intervals(frequency_hz: np.ndarray, ndf: np.ndarray, phase_step_limi
     """Suspect intervals from the samples (module docstring), merged where they overlap."""
     f = np.asarray(frequency_hz, dtype=float)
     found: list[tuple[float, float, str]] = []
-    phase = np.unwrap(np.angle(ndf))
-    steps = np.degrees(np.abs(np.diff(phase)))
+    phase = _unwrapped_phase(ndf)
+    steps = np.degrees(np.abs(phase[1:] - phase[:-1]))
     for i in np.nonzero(steps > 0.5 * phase_step_limit_deg)[0]:
         found.append((f[i], f[i + 1], "phase_step"))
     magnitude = np.abs(ndf)
     if magnitude.size >= 3:
-        floor = NEAR_ORIGIN * float(np.median(magnitude))
+        floor = NEAR_ORIGIN * _median(magnitude)
         inner = np.arange(1, magnitude.size - 1)
         minima = inner[(magnitude[inner] <= magnitude[inner - 1])
                        & (magnitude[inner] <= magnitude[inner + 1])
@@ -152,6 +152,16 @@ def suspect_intervals(frequency_hz: np.ndarray, ndf: np.ndarray, phase_step_limi
     return _merge(found)
 
 
+def _median(values: np.ndarray) -> float:
+    """``np.median`` of a 1-D float array (the middle value, or the mean of the middle two; NaN
+    if any value is NaN), without its generic reduction machinery."""
+    ordered = np.sort(values)
+    n = ordered.size
+    if n == 0 or np.isnan(ordered[-1]):
+        return float("nan")
+    return float(ordered[n // 2]) if n % 2 else float((ordered[n // 2 - 1] + ordered[n // 2]) / 2)
+
+
 def _merge(found: list[tuple[float, float, str]]) -> list[SuspectInterval]:
     merged: list[list[Any]] = []
     for low, high, reason in sorted(found):
@@ -167,8 +177,30 @@ def _merge(found: list[tuple[float, float, str]]) -> list[SuspectInterval]:
     return [SuspectInterval(float(lo), float(hi), tuple(sorted(r))) for lo, hi, r in merged]
 
 
-def _interior(low: float, high: float, n: int) -> np.ndarray:
-    return np.linspace(low, high, n + 2)[1:-1]
+def _unwrapped_phase(h: np.ndarray) -> np.ndarray:
+    """``np.unwrap(np.angle(h))`` for a 1-D array, written out (numpy's steps, same values) to
+    save its generic bookkeeping on the refinement's short arrays."""
+    phase = np.angle(h)
+    if phase.size < 2:
+        return phase
+    step = phase[1:] - phase[:-1]
+    wrapped = np.mod(step + np.pi, 2 * np.pi) - np.pi
+    wrapped[(wrapped == -np.pi) & (step > 0)] = np.pi
+    correction = wrapped - step
+    correction[np.abs(step) < np.pi] = 0
+    phase[1:] += np.cumsum(correction)
+    return phase
+
+
+def _interior(low: np.ndarray, high: np.ndarray, n: int) -> np.ndarray:
+    """n evenly spaced points strictly inside each interval (low_i, high_i), interval by
+    interval: ``np.linspace(low_i, high_i, n + 2)[1:-1]`` for all i at once (same values)."""
+    low = np.asarray(low, dtype=float)
+    step = (np.asarray(high, dtype=float) - low) / (n + 1)
+    if np.any(step == 0):  # linspace's own path for empty intervals
+        return np.concatenate([np.linspace(a, b, n + 2)[1:-1] for a, b in zip(low, high,
+                                                                               strict=True)])
+    return (np.arange(1, n + 1, dtype=float)[None, :] * step[:, None] + low[:, None]).ravel()
 
 
 def _real_axis_crossings(model: RationalModel, f: np.ndarray, h: np.ndarray
@@ -195,7 +227,8 @@ def refine_contour(frequency_hz: np.ndarray, ndf: np.ndarray, model: RationalMod
     f = np.asarray(frequency_hz, dtype=float)
     h = np.asarray(ndf, dtype=complex)
     before = count_encirclements(f, h).clockwise if count_before is None else count_before
-    new = np.concatenate([_interior(i.low_hz, i.high_hz, DENSE_POINTS) for i in intervals]) \
+    new = _interior(np.array([i.low_hz for i in intervals]),
+                    np.array([i.high_hz for i in intervals]), DENSE_POINTS) \
         if intervals else np.zeros(0)
     counts: list[int] = []
     added = 0
@@ -209,12 +242,12 @@ def refine_contour(frequency_hz: np.ndarray, ndf: np.ndarray, model: RationalMod
             order = np.argsort(f, kind="stable")
             f, h = f[order], h[order]
             added += int(keep.sum())
-        phase = np.unwrap(np.angle(h))
+        phase = _unwrapped_phase(h)
         counts.append(int(-(np.round(phase[-1] / np.pi) - np.round(phase[0] / np.pi))))
-        fast = np.nonzero(np.degrees(np.abs(np.diff(phase))) > target)[0]
+        fast = np.nonzero(np.degrees(np.abs(phase[1:] - phase[:-1])) > target)[0]
         if fast.size == 0:
             break  # nothing turns too fast any more: further points cannot change the count
-        new = np.concatenate([_interior(f[i], f[i + 1], SPLIT_POINTS) for i in fast])
+        new = _interior(f[fast], f[fast + 1], SPLIT_POINTS)
     crossings = _real_axis_crossings(model, f, h) if added else []
     if crossings:
         at = np.array([c.frequency_hz for c in crossings])
