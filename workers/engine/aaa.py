@@ -156,7 +156,7 @@ def aaa(z: np.ndarray, f: np.ndarray, rtol: float, max_terms: int) -> AAAFit:
     values = np.empty(max_terms, dtype=complex)
     errors = np.empty(max_terms)
     rest = np.ones(size, dtype=bool)
-    residual = np.abs(f - np.mean(f))
+    residual = np.abs(f - f.sum() / size)  # the mean, as np.mean sums and divides
     ill = False
     with np.errstate(divide="ignore", invalid="ignore"):
         for m in range(max_terms):

@@ -87,11 +87,11 @@ class NodeFit:
 
 
     def impedance_at(self, frequency_hz: float, node: int) -> complex:
-        """Z_kk of one node at one frequency on the jω axis (scalar path for root finding)."""
+        """Z_kk of one node at one frequency on the jω axis (scalar path for root finding; the
+        caller sets numpy's error state, as a pole on the axis divides by zero)."""
         x = 2j * np.pi * frequency_hz / self.scale_rad_s
-        with np.errstate(all="ignore"):
-            terms = self.residues[:, node] / (x * self.scale_rad_s - self.poles_rad_s)
-            return complex(terms.sum() + self.constant[node] + x * self.slope[node])
+        terms = self.residues[:, node] / (x * self.scale_rad_s - self.poles_rad_s)
+        return complex(terms.sum() + self.constant[node] + x * self.slope[node])
 
 
 def fit_nodes(frequency_hz: np.ndarray, impedance: np.ndarray, poles_rad_s: np.ndarray,
@@ -107,7 +107,8 @@ def fit_nodes(frequency_hz: np.ndarray, impedance: np.ndarray, poles_rad_s: np.n
     x_all = np.concatenate([x, -x])
     z_all = np.concatenate([z, np.conj(z)])
     p = np.asarray(poles_rad_s, dtype=complex) / scale_rad_s
-    p = p[np.min(np.abs(x_all[:, None] - p[None, :]), axis=0, initial=np.inf) > 0]
+    # poles that are not NaN and not exactly on a sample (min |x − p| > 0)
+    p = p[~np.isnan(p) & ~(x_all[:, None] == p[None, :]).any(axis=0)]
     basis = np.concatenate([1.0 / (x_all[:, None] - p[None, :]), np.ones((x_all.size, 1)),
                             x_all[:, None]], axis=1)
     norms = np.linalg.norm(basis, axis=0)

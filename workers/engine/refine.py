@@ -430,17 +430,18 @@ def refined_kurokawa(analysis: Analysis, node_fit: NodeFit) -> list[dict[str, An
     for c in analysis.nodes.crossings:
         if not node_fit.error[c.node] <= NODE_FIT_LIMIT:
             continue
-        i = int(np.clip(np.searchsorted(f, c.frequency_hz) - 1, 0, f.size - 2))
+        i = min(max(int(np.searchsorted(f, c.frequency_hz)) - 1, 0), f.size - 2)
 
         def im_admittance(x: float, node: int = c.node) -> float:
             z = node_fit.impedance_at(x, node)
             return float((1.0 / z).imag) if z != 0 else float("nan")
 
         low, high = float(f[i]), float(f[i + 1])
-        ends = im_admittance(low), im_admittance(high)
-        if not (np.isfinite(ends).all() and ends[0] < 0 <= ends[1]):
-            continue
-        root = brentq(im_admittance, low, high, xtol=1e-12 * high, rtol=1e-12)
+        with np.errstate(all="ignore"):  # impedance_at leaves overflow to its caller
+            ends = im_admittance(low), im_admittance(high)
+            if not (np.isfinite(ends).all() and ends[0] < 0 <= ends[1]):
+                continue
+            root = brentq(im_admittance, low, high, xtol=1e-12 * high, rtol=1e-12)
         with np.errstate(divide="ignore", invalid="ignore"):
             y = 1.0 / node_fit.impedance(np.array([2j * np.pi * root]))[0, c.node]
         found.append({"node": analysis.request.ports[c.node].name, "frequency_hz": float(root),
