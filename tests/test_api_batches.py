@@ -115,7 +115,9 @@ def test_invalid_variant_names_index_label_and_field_and_stores_nothing(
     problem = response.get_json()
     assert response.status_code == 422 and response.mimetype == PROBLEM
     fields = [e["field"] for e in problem["errors"]]
-    assert fields == ["variants.3.wobble"]  # the structure is checked before the variants
+    # one answer names every problem: the unknown member and the other variant's bad data
+    assert fields[-1] == "variants.3.wobble"
+    assert [f[:len("variants.2.data")] for f in fields[:-1]] == ["variants.2.data"]
     del batch["variants"][3]["wobble"]
     problem = client.post("/v1/batches", json=batch, headers=auth).get_json()
     assert [e["field"][:len("variants.2.data")] for e in problem["errors"]] == ["variants.2.data"]

@@ -15,7 +15,7 @@ import pytest
 from hypothesis import given, settings
 from hypothesis import strategies as st
 
-from service.api.jsonbody import parse_with_variant_texts, reject_constant
+from service.api.jsonbody import outline_batch, parse_with_variant_texts, reject_constant
 from service.store.jsontext import loads_json
 
 scalars = (st.none() | st.booleans() | st.integers(-10**20, 10**20)
@@ -158,3 +158,49 @@ def test_collector_pause_nests_and_restores_the_previous_state():
         assert not gc.isenabled()  # it was not running before: it is not started
     finally:
         gc.enable()
+
+
+@settings(max_examples=300, deadline=None, derandomize=True)
+@given(
+    members=st.fixed_dictionaries({}, optional={"label": values, "map": values}),
+    variants=st.lists(values, max_size=5),
+    indent=st.sampled_from([None, 0, 2]),
+    ascii_only=st.booleans(),
+    pad=whitespace,
+)
+def test_batch_outline_texts_read_back_like_json_loads(members, variants, indent, ascii_only,
+                                                       pad):
+    """Each text of the outline reads back (``json.loads``) to what ``json.loads`` makes of that
+    member or variant of the whole body."""
+    raw = (pad + _dump({**members, "variants": variants}, indent, ascii_only) + pad).encode()
+    outline = outline_batch(raw)
+    whole = _reference(raw)
+    assert outline is not None
+    assert len(outline.variants) == len(whole["variants"])
+    assert _same([_reference(t) for t in outline.variants], whole["variants"])
+    for name in ("label", "map"):
+        text = getattr(outline, name)
+        assert (text is None) == (name not in whole)
+        if text is not None:
+            assert _same(_reference(text), whole[name])
+
+
+@pytest.mark.parametrize("raw", [
+    b'{"variants": [1], "wobble": 2}',      # a member a batch does not have
+    b'{"variants": {"a": 1}}',              # variants not an array
+    b'{"label": "x"}',                      # no variants
+    b'[{"variants": []}]',                  # not an object
+    b'{"variants": [NaN]}',                 # not JSON (RFC 8259 has no NaN)
+    b'{"variants": [1,]}',                  # malformed
+    b'\xef\xbb\xbf{"variants": []}',         # UTF-8 byte order mark
+])
+def test_batch_outline_leaves_other_shapes_to_the_whole_body_parser(raw):
+    """Anything but an object of label/map/variants goes to the parser that names problems."""
+    assert outline_batch(raw) is None
+
+
+def test_batch_outline_keeps_the_last_of_duplicate_members_like_json_loads():
+    raw = b'{"variants": [1], "variants": [2, 3]}'
+    outline = outline_batch(raw)
+    assert outline is not None
+    assert [json.loads(t) for t in outline.variants] == json.loads(raw)["variants"]

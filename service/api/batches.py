@@ -24,10 +24,12 @@ from service.api.common import (
     document_errors,
     idempotency_key,
     iso,
+    json_body_bytes,
     json_object_body,
     parse_json,
     store_checks,
 )
+from service.api.jsonbody import BatchOutline, outline_batch
 from service.api.tenancy import authenticate, store, tenant
 from service.problems import abort_problem, field_errors
 from service.schemas.api import (
@@ -54,7 +56,7 @@ from service.store.base import (
     content_hash,
     merge_request,
 )
-from service.store.jsontext import collector_paused
+from service.store.jsontext import collector_paused, loads_json
 
 blp = Blueprint("batches", __name__, url_prefix="/v1/batches",
                 description="Batches of variants sharing one port/device map")
@@ -159,24 +161,69 @@ def _parse_multipart_batch() -> tuple[str | None, dict[str, Any], list[Variant]]
     return label, shared, variants
 
 
+def _validate_variant(schema: CheckRequestSchema, shared: dict[str, Any], index: int,
+                      label: str | None, member: dict[str, Any], where: str,
+                      invalid: _Invalid) -> None:
+    """One merged variant through CheckRequestSchema; errors name the variant and the field."""
+    try:
+        schema.load(merge_request(shared, member))
+    except ValidationError as exc:
+        invalid.bad_variants += 1
+        name = f" ({label!r})" if label else ""
+        for field, message in flatten_errors(exc.messages):
+            top = field.split(".", 1)[0]
+            if top in member or top not in shared:
+                invalid.add(f"{where}.{index}.{field}" if field != "body" else f"{where}.{index}",
+                            f"variant {index}{name}: {message}")
+            else:
+                invalid.add(f"map.{field}", f"variant {index}{name}: {message}")
+
+
 def _validate_variants(shared: dict[str, Any], variants: list[Variant], where: str) -> None:
     """Every merged variant through CheckRequestSchema; errors name the variant and the field."""
     schema = CheckRequestSchema()
     invalid = _Invalid()
     for i, (label, member) in enumerate(variants):
-        try:
-            schema.load(merge_request(shared, member))
-        except ValidationError as exc:
-            invalid.bad_variants += 1
-            name = f" ({label!r})" if label else ""
-            for field, message in flatten_errors(exc.messages):
-                top = field.split(".", 1)[0]
-                if top in member or top not in shared:
-                    invalid.add(f"{where}.{i}.{field}" if field != "body" else f"{where}.{i}",
-                                f"variant {i}{name}: {message}")
-                else:
-                    invalid.add(f"map.{field}", f"variant {i}{name}: {message}")
+        _validate_variant(schema, shared, i, label, member, where, invalid)
     invalid.raise_if_any(len(variants))
+
+
+def _check_variant_count(n_variants: int, where: str) -> None:
+    limit = int(current_app.config["BALLAST_MAX_VARIANTS"])
+    if n_variants > limit:
+        abort_problem(422, f"{n_variants} variants; the limit is {limit} per batch",
+                      kind="invalid-request",
+                      errors=field_errors([(where, f"at most {limit} variants")]))
+
+
+def _validate_outline(outline: BatchOutline) -> tuple[str | None, dict[str, Any], list[str | None]]:
+    """The batch's label, shared map and variant labels, each variant parsed and validated on its
+    own and dropped before the next (``service.api.jsonbody.outline_batch``): the same checks and
+    error fields as the whole-body path."""
+    invalid = _Invalid()
+    label = loads_json(outline.label) if outline.label is not None else None
+    _check_label(label, "label", invalid)
+    shared = loads_json(outline.map) if outline.map is not None else {}
+    if not _check_keys(shared, set(REQUEST_FIELDS), "map", invalid):
+        shared = {}
+    if not outline.variants:
+        invalid.add("variants", "must be a non-empty list of variants")
+    invalid.raise_if_any(len(outline.variants))
+    _check_variant_count(len(outline.variants), "variants")
+    schema = CheckRequestSchema()
+    names: list[str | None] = []
+    for i, text in enumerate(outline.variants):
+        before = len(invalid.pairs)
+        raw = loads_json(text)
+        if _check_keys(raw, _VARIANT_KEYS, f"variants.{i}", invalid):
+            _check_label(raw.get("label"), f"variants.{i}.label", invalid)
+        name = raw.get("label") if isinstance(raw, dict) else None
+        names.append(name if isinstance(name, str) else None)
+        if len(invalid.pairs) == before:
+            member = {k: v for k, v in raw.items() if k != "label"}
+            _validate_variant(schema, shared, i, names[-1], member, "variants", invalid)
+    invalid.raise_if_any(len(outline.variants))
+    return label, shared, names
 
 
 def _accepted(batch_id: str) -> tuple[dict[str, Any], int, dict[str, str]]:
@@ -215,29 +262,32 @@ def submit_batch():
 def _submit_batch() -> tuple[dict[str, Any], int, dict[str, str]]:
     if request.mimetype == "multipart/form-data":
         label, shared, variants = _parse_multipart_batch()
-        where = "files"
-        texts = None
         fingerprint = content_hash({"label": label, "map": shared,
                                     "variants": [[n, m] for n, m in variants]})
+        _check_variant_count(len(variants), "files")
+        _validate_variants(shared, variants, "files")
+        checks = [NewCheck(member, label=name) for name, member in variants]
     else:
-        body = json_object_body()
-        label, shared, variants = _parse_json_batch(body)
-        where = "variants"
+        raw = json_body_bytes()
         fingerprint = g.body_digest
-        texts = g.variant_texts
-    limit = int(current_app.config["BALLAST_MAX_VARIANTS"])
-    if len(variants) > limit:
-        abort_problem(422, f"{len(variants)} variants; the limit is {limit} per batch",
-                      kind="invalid-request",
-                      errors=field_errors([(where, f"at most {limit} variants")]))
-    _validate_variants(shared, variants, where)
+        outline = outline_batch(raw)
+        if outline is not None:
+            del raw
+            label, shared, names = _validate_outline(outline)
+            checks = [NewCheck(None, label=name, request_json=text)
+                      for name, text in zip(names, outline.variants, strict=True)]
+        else:  # not of the usual shape: parsed whole, so that every problem is named
+            body = json_object_body(raw)
+            del raw
+            label, shared, variants = _parse_json_batch(body)
+            _check_variant_count(len(variants), "variants")
+            _validate_variants(shared, variants, "variants")
+            texts = g.variant_texts
+            checks = [NewCheck(member, label=name, request_json=texts[i] if texts else None)
+                      for i, (name, member) in enumerate(variants)]
 
     def create() -> str:
-        batch_id, _ = store_checks(
-            [NewCheck(member, label=name, request_json=texts[i] if texts else None)
-             for i, (name, member) in enumerate(variants)],
-            as_batch=True, batch_label=label, shared=shared,
-        )
+        batch_id, _ = store_checks(checks, as_batch=True, batch_label=label, shared=shared)
         assert batch_id is not None
         return batch_id
 

@@ -12,6 +12,7 @@ from flask import current_app, g, request
 from flask_smorest import Blueprint
 from marshmallow import ValidationError
 
+from service.api.body_limit import BODY_BYTES_KEY
 from service.api.jsonbody import parse_with_variant_texts, reject_constant
 from service.api.tenancy import retry_after, store, tenant
 from service.config import tenant_limit
@@ -71,17 +72,28 @@ def parse_json(data: bytes | str, what: str = "the request body") -> Any:
         abort_problem(400, f"{what} is not valid JSON: {exc}", kind="malformed-json")
 
 
-def json_object_body() -> dict[str, Any]:
-    """The request's JSON object, or a problem: 415 (not JSON), 400 (malformed), 422 (not an
-    object). Also sets ``g.body_digest`` (SHA-256 of the bytes, the idempotency fingerprint),
-    ``g.parsed_body`` (its ``text`` is the body as a str) and ``g.variant_texts`` (JSON texts
-    the store can keep as they are)."""
+def json_body_bytes() -> bytes:
+    """The request's JSON body as bytes, or a problem: 415 (not JSON). Also sets
+    ``g.body_digest`` (SHA-256 of the bytes, the idempotency fingerprint)."""
     if not request.mimetype or not (
         request.mimetype == "application/json" or request.mimetype.endswith("+json")
     ):
         abort_problem(415, "send the body as application/json", kind="unsupported-media-type")
-    raw = request.get_data(cache=False)
+    raw = request.environ.get(BODY_BYTES_KEY)
+    if not isinstance(raw, bytes):
+        raw = request.get_data(cache=False)
     g.body_digest = hashlib.sha256(raw).hexdigest()
+    return raw
+
+
+def json_object_body(raw: bytes | None = None) -> dict[str, Any]:
+    """The request's JSON object (``raw``: its bytes when already read by
+    :func:`json_body_bytes`), or a problem: 415 (not JSON), 400 (malformed), 422 (not an
+    object). Also sets ``g.body_digest`` (SHA-256 of the bytes, the idempotency fingerprint),
+    ``g.parsed_body`` (its ``text`` is the body as a str) and ``g.variant_texts`` (JSON texts
+    the store can keep as they are)."""
+    if raw is None:
+        raw = json_body_bytes()
     try:
         parsed = parse_with_variant_texts(raw)
     except (ValueError, RecursionError) as exc:

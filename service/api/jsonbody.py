@@ -19,6 +19,7 @@ from collections.abc import Callable
 from dataclasses import dataclass
 from typing import Any
 
+import msgspec
 import orjson
 
 from service.store.jsontext import orjson_loads
@@ -65,3 +66,42 @@ def parse_with_variant_texts(raw: bytes) -> ParsedBody:
         return ParsedBody(value, None, _variant_texts(value, _stdlib_text))
     # orjson gives finite floats and 64-bit integers only, all of which it writes back as read.
     return ParsedBody(value, raw, _variant_texts(value, orjson.dumps))
+
+
+class _BatchOutline(msgspec.Struct, forbid_unknown_fields=True):
+    variants: list[msgspec.Raw]
+    label: msgspec.Raw | msgspec.UnsetType = msgspec.UNSET
+    map: msgspec.Raw | msgspec.UnsetType = msgspec.UNSET
+
+
+@dataclass(frozen=True)
+class BatchOutline:
+    """A JSON batch body cut into its members' JSON texts (None: member absent), one text per
+    element of ``variants``; none of them parsed yet."""
+
+    label: bytes | None
+    map: bytes | None
+    variants: list[bytes]
+
+
+def _text(raw: msgspec.Raw | msgspec.UnsetType) -> bytes | None:
+    return None if isinstance(raw, msgspec.UnsetType) else bytes(memoryview(raw))
+
+
+def outline_batch(raw: bytes) -> BatchOutline | None:
+    """Cut a batch body into the JSON texts of its members and of each variant, or None.
+
+    msgspec checks the whole body's syntax and skips over each member's value without building
+    it (``msgspec.Raw``), so that the variants can then be parsed and validated one at a time:
+    parsing a 227 MB body of 500 variants in one piece took 3.0 s (the interpreter touching
+    fresh memory for ten million floats), one variant after the other 0.4 s. None when the body
+    is not an object with only ``label``, ``map`` and a ``variants`` array (or not JSON, or
+    holds what msgspec refuses, such as NaN): the caller then parses it whole, which names
+    every problem.
+    """
+    try:
+        outline = msgspec.json.decode(raw, type=_BatchOutline)
+    except msgspec.DecodeError:  # malformed JSON, or not of this shape (ValidationError)
+        return None
+    return BatchOutline(_text(outline.label), _text(outline.map),
+                        [bytes(memoryview(v)) for v in outline.variants])

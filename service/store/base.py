@@ -96,13 +96,19 @@ class NewCheck:
     serialising ``request`` again, which for large numeric arrays costs as much as parsing them.
     """
 
-    request: dict[str, Any]
+    request: dict[str, Any] | None  # None: only ``request_json`` is given
     label: str | None = None
     request_json: str | bytes | None = None  # bytes: UTF-8
 
+    def __post_init__(self) -> None:
+        if self.request is None and self.request_json is None:
+            raise ValueError("a new check needs its request or its request's JSON text")
+
     def stored_json(self) -> str | bytes:
         """``request_json`` as given (str or UTF-8 bytes), else the canonical JSON text."""
-        return self.request_json if self.request_json is not None else canonical_json(self.request)
+        if self.request_json is not None:
+            return self.request_json
+        return canonical_json(self.request)
 
     def stored_text(self) -> str:
         text = self.stored_json()
