@@ -7,6 +7,8 @@ validate quickly; every error names its field (``data.re``, ``devices.1.control`
 
 from __future__ import annotations
 
+import binascii
+from base64 import b64decode, b64encode
 from typing import Any
 
 import numpy as np
@@ -48,6 +50,65 @@ def _finite(values: np.ndarray, name: str) -> np.ndarray:
     return values
 
 
+PACKED_KEYS = frozenset({"dtype", "shape", "base64"})
+PACKED_DTYPES = {"float64": np.dtype("<f8"), "complex128": np.dtype("<c16")}
+
+
+def _packed_doc(dtype: str, ndim: int) -> dict[str, Any]:
+    return {
+        "type": "object", "required": sorted(PACKED_KEYS), "additionalProperties": False,
+        "description": f"packed array: IEEE 754 {dtype}, little-endian, row-major (C order), "
+                       "base64 (RFC 4648 section 4)",
+        "properties": {
+            "dtype": {"type": "string", "enum": [dtype]},
+            "shape": {"type": "array", "items": {"type": "integer", "minimum": 0},
+                      "minItems": ndim, "maxItems": ndim},
+            "base64": {"type": "string"},
+        },
+    }
+
+
+def is_packed(value: Any) -> bool:
+    """Whether ``value`` is a packed array object (``{"dtype", "shape", "base64"}``)."""
+    return isinstance(value, dict) and set(value) == PACKED_KEYS
+
+
+def unpack_array(value: dict[str, Any], dtype: str, ndim: int) -> np.ndarray:
+    """A packed array → ndarray: ``base64`` holds the ``dtype`` values of an array of ``shape``,
+    little-endian, row-major; errors name the member (``base64``, ``shape``, ``dtype``)."""
+    if value["dtype"] != dtype:
+        raise ValidationError({"dtype": [f'must be "{dtype}" here']})
+    shape = value["shape"]
+    if not (isinstance(shape, list) and len(shape) == ndim and all(
+            isinstance(n, int) and not isinstance(n, bool) and n >= 0 for n in shape)):
+        raise ValidationError({"shape": [f"must be a list of {ndim} non-negative integers"]})
+    text = value["base64"]
+    if not isinstance(text, str):
+        raise ValidationError({"base64": ["must be a string"]})
+    try:
+        raw = b64decode(text, validate=True)
+    except (binascii.Error, ValueError) as exc:
+        raise ValidationError({"base64": [f"is not base64 (RFC 4648): {exc}"]}) from exc
+    item = PACKED_DTYPES[dtype].itemsize
+    expected = int(np.prod(shape, dtype=np.int64)) * item
+    if len(raw) != expected:
+        raise ValidationError({"base64": [
+            f"holds {len(raw)} bytes; shape {shape} of {dtype} needs {expected}"]})
+    values = np.frombuffer(raw, dtype=PACKED_DTYPES[dtype]).reshape(shape)
+    if not np.isfinite(values).all():
+        bad = int(np.flatnonzero(~np.isfinite(values.reshape(-1)))[0])
+        raise ValidationError({"base64": [
+            f"must hold only finite numbers (value {bad} in row-major order is not)"]})
+    return values.astype(values.dtype.newbyteorder("="))
+
+
+def pack_array(values: np.ndarray) -> dict[str, Any]:
+    """An array as a packed array object: float64 for real, complex128 for complex values."""
+    name = "complex128" if np.iscomplexobj(values) else "float64"
+    data = np.ascontiguousarray(values, dtype=PACKED_DTYPES[name])
+    return {"dtype": name, "shape": list(data.shape), "base64": b64encode(data).decode("ascii")}
+
+
 def _as_float_array(raw: Any, name: str, ndim: int) -> np.ndarray:
     try:
         values = np.asarray(raw, dtype=float)
@@ -62,22 +123,27 @@ def _as_float_array(raw: Any, name: str, ndim: int) -> np.ndarray:
 
 
 class ComplexArray(fields.Field):
-    """``{"re": [...], "im": [...]}`` of equal shape → complex ndarray (shape checked later)."""
+    """``{"re": [...], "im": [...]}`` of equal shape, or a packed complex128 array
+    (``{"dtype", "shape", "base64"}``) → complex ndarray (shape checked later)."""
 
     def __init__(self, ndim: int, **kwargs: Any) -> None:
         self.ndim = ndim
         nested: dict[str, Any] = {"type": "number"}
         for _ in range(ndim):
             nested = {"type": "array", "items": nested}
-        kwargs.setdefault("metadata", {}).update({
-            "type": "object", "required": ["re", "im"],
-            "properties": {"re": nested, "im": nested},
-        })
+        kwargs.setdefault("metadata", {}).update({"oneOf": [
+            {"type": "object", "required": ["re", "im"], "additionalProperties": False,
+             "properties": {"re": nested, "im": nested}},
+            _packed_doc("complex128", ndim),
+        ]})
         super().__init__(**kwargs)
 
     def _deserialize(self, value: Any, attr: str | None, data: Any, **kwargs: Any) -> np.ndarray:
+        if is_packed(value):
+            return unpack_array(value, "complex128", self.ndim)
         if not isinstance(value, dict) or set(value) != {"re", "im"}:
-            raise ValidationError('must be an object with exactly the keys "re" and "im"')
+            raise ValidationError('must be an object with exactly the keys "re" and "im", or a '
+                                  'packed array with "dtype", "shape" and "base64"')
         re = _as_float_array(value["re"], "re", self.ndim)
         im = _as_float_array(value["im"], "im", self.ndim)
         if re.shape != im.shape:
@@ -86,13 +152,17 @@ class ComplexArray(fields.Field):
 
 
 class FloatArray(fields.Field):
-    """A list of finite numbers → float ndarray, read by numpy in one step."""
+    """A list of finite numbers, read by numpy in one step, or a packed float64 array
+    (``{"dtype", "shape", "base64"}``) → float ndarray."""
 
     def __init__(self, **kwargs: Any) -> None:
-        kwargs.setdefault("metadata", {}).update({"type": "array", "items": {"type": "number"}})
+        kwargs.setdefault("metadata", {}).update({"oneOf": [
+            {"type": "array", "items": {"type": "number"}}, _packed_doc("float64", 1)]})
         super().__init__(**kwargs)
 
     def _deserialize(self, value: Any, attr: str | None, data: Any, **kwargs: Any) -> np.ndarray:
+        if is_packed(value):
+            return unpack_array(value, "float64", 1)
         if not isinstance(value, list) or any(isinstance(v, bool | str) for v in value):
             raise ValidationError("must be an array of numbers")
         try:
@@ -139,12 +209,13 @@ class Transconductance(fields.Field):
             {"type": "object", "required": ["re", "im"], "properties": {
                 "re": {"type": "array", "items": {"type": "number"}},
                 "im": {"type": "array", "items": {"type": "number"}}}},
+            _packed_doc("complex128", 1),
         ]})
         super().__init__(**kwargs)
 
     def _deserialize(self, value: Any, attr: str | None, data: Any, **kwargs: Any
                      ) -> complex | np.ndarray:
-        if isinstance(value, dict) and isinstance(value.get("re"), list):
+        if is_packed(value) or (isinstance(value, dict) and isinstance(value.get("re"), list)):
             return ComplexArray(1)._deserialize(value, attr, data)
         return ComplexNumber()._deserialize(value, attr, data)
 
