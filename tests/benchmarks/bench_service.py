@@ -1,13 +1,15 @@
 """End-to-end service benchmark: a batch through HTTP, the queue and worker processes.
 
     python -m tests.benchmarks.bench_service [--variants 500] [--points 401] [--workers 2]
-                                             [--layout redis|embedded]
+                                             [--layout redis|embedded] [--arrays packed|lists]
 
 Builds seeded invented variants (5 ports: 2 external, 3 probes; ``tests.queue_variants``), times
 the engine on them in this process (``run_check_json``, one after the other: the engine's own
 compute time), then starts the API (gunicorn) and one Celery worker with ``--workers`` processes,
-exactly as ``ballast serve`` does, submits all variants as ONE batch (POST /v1/batches, JSON),
-polls until the batch has finished and reads every verdict back (GET /v1/checks/{id}).
+exactly as ``ballast serve`` does, submits all variants as ONE batch (POST /v1/batches, JSON;
+the arrays packed as base64 float64, or as JSON lists with ``--arrays lists``; the engine baseline
+reads the same form), polls every 0.1 s until the batch has finished and reads every verdict
+back (GET /v1/checks/{id}).
 
 Prints checks per second and the ratio of end-to-end wall time to the engine's compute time, both
 against the serial engine time and against that time divided by the number of worker processes
@@ -35,9 +37,11 @@ import time
 from datetime import datetime
 from pathlib import Path
 
+import numpy as np
 import requests
 
 from service.runner import run_check_json
+from service.schemas.request import pack_array
 from tests.queue_harness import RedisServer, free_port, wait_until
 from tests.queue_variants import PORTS, variants
 
@@ -48,13 +52,23 @@ def engine_seconds(requests_: list[dict]) -> tuple[float, list[dict]]:
     return time.perf_counter() - start, verdicts
 
 
-def batch_body(batch: list) -> dict:
-    """One batch: the port list is the shared map; each variant carries its data and devices."""
+def packed(request_: dict) -> dict:
+    """The request with its frequency and data arrays packed (``{"dtype", "shape", "base64"}``)."""
+    data = np.asarray(request_["data"]["re"]) + 1j * np.asarray(request_["data"]["im"])
+    return {**request_, "frequency_hz": pack_array(np.asarray(request_["frequency_hz"])),
+            "data": pack_array(data)}
+
+
+def batch_body(batch: list, arrays: str = "lists") -> dict:
+    """One batch: the port list is the shared map; each variant carries its data and devices,
+    its arrays as JSON lists or packed."""
     shared = {"ports": batch[0].request["ports"]}
+    encode = packed if arrays == "packed" else dict
     return {
         "label": "bench",
         "map": shared,
-        "variants": [{"label": v.label, **{k: x for k, x in v.request.items() if k != "ports"}}
+        "variants": [{"label": v.label,
+                      **{k: x for k, x in encode(v.request).items() if k != "ports"}}
                      for v in batch],
     }
 
@@ -65,16 +79,20 @@ def main() -> None:
     parser.add_argument("--points", type=int, default=401)
     parser.add_argument("--workers", type=int, default=2)
     parser.add_argument("--api-processes", type=int, default=2)
+    parser.add_argument("--arrays", choices=("packed", "lists"), default="packed",
+                        help="how the variants' arrays travel: packed (base64 float64) or lists")
     parser.add_argument("--layout", choices=("redis", "embedded"),
                         default="redis" if shutil.which("redis-server") else "embedded")
     args = parser.parse_args()
 
     print(f"{args.variants} variants, {args.points} points, {len(PORTS)} ports; "
           f"{args.workers} worker processes, {args.api_processes} API processes, "
-          f"layout {args.layout}; load average {os.getloadavg()[0]:.1f} at start")
+          f"layout {args.layout}, arrays {args.arrays}; "
+          f"load average {os.getloadavg()[0]:.1f} at start")
     batch = variants(args.variants, points=args.points)
+    encode = packed if args.arrays == "packed" else dict
     cpu_start = time.process_time()
-    engine_s, expected = engine_seconds([v.request for v in batch])
+    engine_s, expected = engine_seconds([encode(v.request) for v in batch])
     engine_cpu_s = time.process_time() - cpu_start
     print(f"engine alone (serial, this process): {engine_s:.2f} s, "
           f"{1e3 * engine_s / len(batch):.1f} ms per check")
@@ -106,12 +124,16 @@ def main() -> None:
         try:
             wait_until(lambda: _status(session, base + "/readyz") == 200, 120,
                        "the service to be ready", every_s=0.2)
-            body = json.dumps(batch_body(batch))
+            body = json.dumps(batch_body(batch, args.arrays))
             print(f"request body: {len(body) / 1e6:.0f} MB")
-            roots = [c.process.pid for c in supervisor.children if c.process is not None]
+            groups = {c.name: [c.process.pid] for c in supervisor.children
+                      if c.process is not None}
             if redis_server is not None and redis_server.process is not None:
-                roots.append(redis_server.process.pid)
+                groups["redis"] = [redis_server.process.pid]
+            roots = [pid for pids in groups.values() for pid in pids]
             service_cpu_before = tree_cpu_seconds(roots)
+            group_cpu_before = {name: tree_cpu_seconds(pids) for name, pids in groups.items()}
+            client_cpu_before = time.process_time()
 
             start = time.perf_counter()
             response = session.post(base + "/v1/batches", data=body,
@@ -121,12 +143,15 @@ def main() -> None:
             accepted = response.json()
             wait_until(lambda: session.get(f"{base}/v1/batches/{accepted['id']}",
                                            timeout=30).json()["finished"],
-                       3600, "the batch to finish", every_s=0.5)
+                       3600, "the batch to finish", every_s=0.1)
             finished_at = time.perf_counter()
             got = [session.get(f"{base}/v1/checks/{cid}", timeout=30).json()
                    for cid in accepted["check_ids"]]
             fetched_at = time.perf_counter()
             service_cpu_s = tree_cpu_seconds(roots) - service_cpu_before
+            group_cpu = {name: tree_cpu_seconds(pids) - group_cpu_before[name]
+                         for name, pids in groups.items()}
+            client_cpu_s = time.process_time() - client_cpu_before
             task_s, span_s = worker_log_times(config.data_dir / "logs" / "worker.log")
         finally:
             supervisor.stopping = True
@@ -145,7 +170,9 @@ def main() -> None:
               f"wall/(engine/{args.workers}) {wall / ideal_s:5.2f}")
     print(f"CPU used by the service (API, workers, store, broker) for the batch: "
           f"{service_cpu_s:.1f} s = {service_cpu_s / engine_cpu_s:.2f} x the engine's own CPU "
-          f"({engine_cpu_s:.1f} s)")
+          f"({engine_cpu_s:.1f} s): "
+          + ", ".join(f"{name} {cpu:.1f} s" for name, cpu in group_cpu.items())
+          + f"; this client {client_cpu_s:.1f} s")
     if task_s:
         print(f"in the worker: {1e3 * statistics.mean(task_s):.1f} ms per task on average "
               f"(engine alone {1e3 * engine_s / len(batch):.1f} ms); first task received to last "
