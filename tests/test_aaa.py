@@ -130,3 +130,15 @@ def test_fewer_rows_than_columns_and_non_finite_samples_as_scipy():
 def test_rejects_mismatched_input():
     with pytest.raises(ValueError, match="1-D of equal size"):
         aaa(np.zeros(3), np.zeros(4), 1e-9, 5)
+
+
+def test_presorted_input_gives_scipys_fit():
+    # The engine passes the mirrored points already in np.unique's order (ascending jω) and
+    # skips the sort: the fit must still be SciPy's on the unsorted data.
+    (z, f), rtol, terms, stops = CASES["noisy, stops at max_terms"]
+    reference = _scipy(z, f, rtol, terms, stops)
+    order = np.argsort(z.imag)
+    lean = aaa(z[order], f[order], rtol, terms, presorted=True)
+    np.testing.assert_array_equal(lean.support_points, reference.support_points)
+    np.testing.assert_allclose(lean.weights, reference.weights, rtol=1e-10, atol=1e-14)
+    np.testing.assert_allclose(lean.errors, reference.errors, rtol=1e-9)

@@ -131,20 +131,26 @@ def _singular(block: np.ndarray, upper: np.ndarray) -> tuple[np.ndarray, np.ndar
     return s, vh
 
 
-def aaa(z: np.ndarray, f: np.ndarray, rtol: float, max_terms: int) -> AAAFit:
+def aaa(z: np.ndarray, f: np.ndarray, rtol: float, max_terms: int, presorted: bool = False
+        ) -> AAAFit:
     """AAA on samples ``f`` at distinct points ``z`` (module docstring).
 
     Non-finite samples are dropped and the points sorted, as SciPy does, so that ties in the
-    greedy choice fall the same way. Stopping at ``max_terms`` is not an error (SciPy warns):
-    the caller compares ``errors[-1]`` with its tolerance.
+    greedy choice fall the same way; ``presorted``: the caller guarantees that ``z`` is already
+    in that order (``np.unique``'s: by real, then imaginary part) without repeats, and the sort
+    is skipped. Stopping at ``max_terms`` is not an error (SciPy warns): the caller compares
+    ``errors[-1]`` with its tolerance.
     """
     z = np.asarray(z, dtype=complex)
     f = np.asarray(f, dtype=complex)
     if z.ndim != 1 or z.shape != f.shape or max_terms < 1:
         raise ValueError("aaa: z and f must be 1-D of equal size, max_terms >= 1")
     finite = np.isfinite(f)
-    z, unique = np.unique(z[finite], return_index=True)
-    f = f[finite][unique]
+    if presorted:
+        z, f = (z, f) if finite.all() else (z[finite], f[finite])
+    else:
+        z, unique = np.unique(z[finite], return_index=True)
+        f = f[finite][unique]
     size = z.size
     atol = rtol * float(np.max(np.abs(f)))
     # column-major, as LAPACK wants the Loewner block and as SciPy's column selection leaves the

@@ -139,6 +139,8 @@ def carrying_devices(frequency_hz: np.ndarray, return_difference: np.ndarray,
     only D_1 … D_(D−1) are fitted, locally, on the LOCAL_SAMPLES samples nearest the mode.
     """
     n_devices = return_difference.shape[1]
+    if n_devices <= 1:  # nothing to attribute: the only device (if any) carries every mode
+        return [[n_devices - 1] if n_devices else [] for _ in zeros_rad_s]
     carriers: list[list[int]] = []
     f = np.asarray(frequency_hz, dtype=float)
     partial = np.cumprod(return_difference, axis=1)

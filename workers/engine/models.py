@@ -66,9 +66,14 @@ def aaa_fit(s: np.ndarray, h: np.ndarray, rtol: float, max_terms: int = MAX_TERM
     Stopping at ``max_terms`` is returned as ``converged=False`` and judged by the leave-out
     check instead.
     """
-    z, values = _mirror(s, h)
+    increasing = s.size > 0 and not s.real.any() and s[0].imag > 0 and \
+        bool(np.all(s.imag[1:] > s.imag[:-1]))
+    if increasing:  # mirrored points in ascending order: −jω_top … −jω_0, jω_0 … jω_top
+        z, values = np.concatenate([-s[::-1], s]), np.concatenate([np.conj(h[::-1]), h])
+    else:
+        z, values = _mirror(s, h)
     terms = int(max(2, min(max_terms, z.size // 3)))
-    fit = aaa(z, values, rtol, terms)
+    fit = aaa(z, values, rtol, terms, presorted=increasing)
     m = int(fit.weights.size)
     return HalfFit(fit, m, bool(fit.errors[-1] <= rtol * np.max(np.abs(values)) or m < terms))
 
