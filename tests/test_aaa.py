@@ -142,3 +142,19 @@ def test_presorted_input_gives_scipys_fit():
     np.testing.assert_array_equal(lean.support_points, reference.support_points)
     np.testing.assert_allclose(lean.weights, reference.weights, rtol=1e-10, atol=1e-14)
     np.testing.assert_allclose(lean.errors, reference.errors, rtol=1e-9)
+
+
+@pytest.mark.parametrize("looser", [1e-3, 1e-4, 5e-5, 4e-5, 1e-6])
+def test_truncated_is_scipys_fit_with_the_looser_tolerance(looser):
+    # The tolerance only decides where the greedy steps stop, so a fit cut back to a looser one
+    # must be SciPy's fit run afresh with that tolerance (1e-6: never reached, the whole fit).
+    (z, f), rtol, terms, _ = CASES["noisy, stops at max_terms"]
+    cut = aaa(z, f, rtol, terms).truncated(looser)
+    never = looser < 1e-5
+    reference = _scipy(z, f, looser, terms, stops=never)
+    assert (reference.errors.size == terms) == never
+    np.testing.assert_array_equal(cut.support_points, reference.support_points)
+    np.testing.assert_allclose(cut.weights, reference.weights, rtol=1e-10, atol=1e-14)
+    np.testing.assert_allclose(cut.errors, reference.errors, rtol=1e-9)
+    assert cut.roots().size == reference.roots().size
+    assert _nearest_gap(cut.roots(), reference.roots()) <= 1e-9

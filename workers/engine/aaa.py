@@ -37,7 +37,23 @@ class AAAFit:
     support_values: np.ndarray
     weights: np.ndarray
     errors: np.ndarray  # max|f − r| over the samples after each step
+    data_max: float = np.inf  # max|f| over the samples (the tolerance is rtol × this)
+    # every step's support points, values and weights (zeros included), for ``truncated``
+    steps: tuple[tuple[np.ndarray, np.ndarray, np.ndarray], ...] = field(default=(), repr=False)
     _cache: dict[str, np.ndarray] = field(default_factory=dict, repr=False)
+
+    def truncated(self, rtol: float) -> AAAFit:
+        """The fit AAA returns on the same data with the looser tolerance ``rtol``: the greedy
+        steps do not depend on the tolerance, which only decides where they stop, so that fit
+        is this one's first step whose error is within rtol·max|f| (this fit when none is)."""
+        within = np.nonzero(self.errors <= rtol * self.data_max)[0]
+        if within.size == 0 or within[0] + 1 == self.errors.size:
+            return self
+        points, values, weights = self.steps[within[0]]
+        keep = weights != 0
+        return AAAFit(points[keep], values[keep], weights[keep],
+                      self.errors[: within[0] + 1].copy(), self.data_max,
+                      self.steps[: within[0] + 1])
 
     def _pencil(self, top_row: np.ndarray) -> np.ndarray:
         """Finite eigenvalues of the arrowhead pencil (LAPACK zggev, as scipy.linalg.eigvals
@@ -152,7 +168,8 @@ def aaa(z: np.ndarray, f: np.ndarray, rtol: float, max_terms: int, presorted: bo
         z, unique = np.unique(z[finite], return_index=True)
         f = f[finite][unique]
     size = z.size
-    atol = rtol * float(np.max(np.abs(f)))
+    scale = float(np.max(np.abs(f)))
+    atol = rtol * scale
     # column-major, as LAPACK wants the Loewner block and as SciPy's column selection leaves the
     # Cauchy block (so that r is summed in the same order and the error history is the same)
     cauchy = np.empty((size, max_terms), dtype=complex, order="F")
@@ -163,6 +180,7 @@ def aaa(z: np.ndarray, f: np.ndarray, rtol: float, max_terms: int, presorted: bo
     errors = np.empty(max_terms)
     rest = np.ones(size, dtype=bool)
     residual = np.abs(f - f.sum() / size)  # the mean, as np.mean sums and divides
+    steps = []
     ill = False
     with np.errstate(divide="ignore", invalid="ignore"):
         for m in range(max_terms):
@@ -202,8 +220,11 @@ def aaa(z: np.ndarray, f: np.ndarray, rtol: float, max_terms: int, presorted: bo
             r = np.where(np.isfinite(denominator), numerator / denominator, f)
             residual = np.abs(f - r)
             errors[m] = residual.max()
+            steps.append(weights)
             if errors[m] <= atol:
                 break
             residual[chosen[:n]] = -1.0
     keep = weights != 0
-    return AAAFit(z[chosen[:n]][keep], values[:n][keep], weights[keep], errors[:n].copy())
+    points = z[chosen[:n]]
+    return AAAFit(points[keep], values[:n][keep], weights[keep], errors[:n].copy(), scale,
+                  tuple((points[:i + 1], values[:i + 1], w) for i, w in enumerate(steps)))

@@ -46,6 +46,14 @@ class HalfFit:
     fit: AAAFit
     terms: int
     converged: bool
+    max_terms: int = MAX_TERMS  # the step limit the fit ran with
+    level: float = np.inf       # max|H| over its samples
+
+
+def _half(fit: AAAFit, rtol: float, max_terms: int, level: float) -> HalfFit:
+    m = int(fit.weights.size)
+    return HalfFit(fit, m, bool(fit.errors[-1] <= rtol * level or m < max_terms), max_terms,
+                   level)
 
 
 def evenly_spread(count: int, limit: int) -> np.ndarray:
@@ -74,8 +82,13 @@ def aaa_fit(s: np.ndarray, h: np.ndarray, rtol: float, max_terms: int = MAX_TERM
         z, values = _mirror(s, h)
     terms = int(max(2, min(max_terms, z.size // 3)))
     fit = aaa(z, values, rtol, terms, presorted=increasing)
-    m = int(fit.weights.size)
-    return HalfFit(fit, m, bool(fit.errors[-1] <= rtol * np.max(np.abs(values)) or m < terms))
+    return _half(fit, rtol, terms, float(np.max(np.abs(values))))
+
+
+def refit(half: HalfFit, rtol: float) -> HalfFit:
+    """``aaa_fit`` on the same samples with the looser tolerance ``rtol``, without fitting again
+    (``AAAFit.truncated``: the same greedy steps, stopped earlier)."""
+    return _half(half.fit.truncated(rtol), rtol, half.max_terms, half.level)
 
 
 def _evaluate(fit: AAAFit, s: np.ndarray) -> np.ndarray:
@@ -230,7 +243,7 @@ def fit_response(frequency_hz: np.ndarray, h: np.ndarray) -> RationalModel:
         history = np.asarray(even.fit.errors, dtype=float) / level
         plateau = float(np.median(history[-max(3, history.size // 4):]))
         rtol, noise = PLATEAU_MARGIN * plateau, plateau / 3.0
-        even = aaa_fit(s[train[0]], h[train[0]], rtol)
+        even = refit(even, rtol)
     missed = np.abs(_evaluate(even.fit, s[unseen[0]]) - h[unseen[0]])
     sampled = np.abs(h[unseen[0]])
     odd: HalfFit | None = None
