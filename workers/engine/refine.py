@@ -14,6 +14,7 @@ cannot make an open band look closed.
 
 from __future__ import annotations
 
+import math
 from dataclasses import dataclass, field
 from typing import Any
 
@@ -210,13 +211,13 @@ def _real_axis_crossings(model: RationalModel, f: np.ndarray, h: np.ndarray
     change = np.nonzero(np.sign(h.imag[:-1]) * np.sign(h.imag[1:]) < 0)[0]
     for i in change:
         low, high = float(f[i]), float(f[i + 1])
-        ends = np.array([model.im_on_axis(low), model.im_on_axis(high)])
-        if not np.all(np.isfinite(ends)) or ends[0] * ends[1] > 0:
+        at_low, at_high = model.im_on_axis(low), model.im_on_axis(high)
+        if not (math.isfinite(at_low) and math.isfinite(at_high)) or at_low * at_high > 0:
             continue
-        root = low if ends[0] == 0 else high if ends[1] == 0 else \
+        root = low if at_low == 0 else high if at_high == 0 else \
             brentq(model.im_on_axis, low, high, xtol=1e-12 * high, rtol=1e-12)
         found.append(AxisCrossing(float(root), float(model(np.array([root]))[0].real),
-                                  bool(ends[0] < 0)))
+                                  at_low < 0))
     return found
 
 
