@@ -196,7 +196,7 @@ def aaa(z: np.ndarray, f: np.ndarray, rtol: float, max_terms: int, presorted: bo
                     s, vh = _singular(block, upper)
                     ill = bool(s[0] / s[-1] > ILL_CONDITIONED)
                 if ill:
-                    norms = np.linalg.norm(block, axis=0)
+                    norms = np.sqrt(np.add.reduce((block.conj() * block).real, axis=0))
                     s, vh = _singular(block / norms, upper)
                 # the singular values come sorted, largest first: the smallest may repeat
                 k = 1

@@ -111,7 +111,7 @@ def fit_nodes(frequency_hz: np.ndarray, impedance: np.ndarray, poles_rad_s: np.n
     p = p[~np.isnan(p) & ~(x_all[:, None] == p[None, :]).any(axis=0)]
     basis = np.concatenate([1.0 / (x_all[:, None] - p[None, :]), np.ones((x_all.size, 1)),
                             x_all[:, None]], axis=1)
-    norms = np.linalg.norm(basis, axis=0)
+    norms = np.sqrt(np.add.reduce((basis.conj() * basis).real, axis=0))  # np.linalg.norm's
     norms[norms == 0] = 1.0
     coefficients, *_ = np.linalg.lstsq(basis / norms, z_all, rcond=None)
     coefficients = coefficients / norms[:, None]

@@ -186,17 +186,22 @@ class RationalModel:
 
     def im_on_axis(self, frequency_hz: float) -> float:
         """Im of the model at one frequency (Hz): the cheap scalar path for root finding."""
+        with np.errstate(all="ignore"):
+            return self.im_on_axis_unguarded(frequency_hz)
+
+    def im_on_axis_unguarded(self, frequency_hz: float) -> float:
+        """``im_on_axis`` for callers that have set numpy's error state (root finders call it
+        many times in a row)."""
         x = 1j * frequency_hz * (2 * np.pi / self.scale_rad_s)
         total = 0.0
-        with np.errstate(all="ignore"):
-            for half in self.halves:
-                gap = x - half.fit.support_points
-                if not gap.all():  # x is a support point
-                    total += float(_evaluate(half.fit, np.array([x]))[0].imag)
-                    continue
-                cauchy = 1.0 / gap
-                total += float(((cauchy @ half.fit.weighted_values)
-                                / (cauchy @ half.fit.weights)).imag)
+        for half in self.halves:
+            gap = x - half.fit.support_points
+            if not gap.all():  # x is a support point
+                total += float(_evaluate(half.fit, np.array([x]))[0].imag)
+                continue
+            cauchy = 1.0 / gap
+            total += float(((cauchy @ half.fit.weighted_values)
+                            / (cauchy @ half.fit.weights)).imag)
         return total / len(self.halves)
 
     def __call__(self, frequency_hz: np.ndarray) -> np.ndarray:

@@ -209,13 +209,15 @@ def _real_axis_crossings(model: RationalModel, f: np.ndarray, h: np.ndarray
     """Roots of Im NDF(model) inside every segment of the contour where Im changes sign."""
     found = []
     change = np.nonzero(np.sign(h.imag[:-1]) * np.sign(h.imag[1:]) < 0)[0]
+    im = model.im_on_axis_unguarded
     for i in change:
         low, high = float(f[i]), float(f[i + 1])
-        at_low, at_high = model.im_on_axis(low), model.im_on_axis(high)
-        if not (math.isfinite(at_low) and math.isfinite(at_high)) or at_low * at_high > 0:
-            continue
-        root = low if at_low == 0 else high if at_high == 0 else \
-            brentq(model.im_on_axis, low, high, xtol=1e-12 * high, rtol=1e-12)
+        with np.errstate(all="ignore"):  # as im_on_axis
+            at_low, at_high = im(low), im(high)
+            if not (math.isfinite(at_low) and math.isfinite(at_high)) or at_low * at_high > 0:
+                continue
+            root = low if at_low == 0 else high if at_high == 0 else \
+                brentq(im, low, high, xtol=1e-12 * high, rtol=1e-12)
         found.append(AxisCrossing(float(root), float(model(np.array([root]))[0].real),
                                   at_low < 0))
     return found
@@ -440,7 +442,7 @@ def refined_kurokawa(analysis: Analysis, node_fit: NodeFit) -> list[dict[str, An
         low, high = float(f[i]), float(f[i + 1])
         with np.errstate(all="ignore"):  # impedance_at leaves overflow to its caller
             ends = im_admittance(low), im_admittance(high)
-            if not (np.isfinite(ends).all() and ends[0] < 0 <= ends[1]):
+            if not (math.isfinite(ends[0]) and math.isfinite(ends[1]) and ends[0] < 0 <= ends[1]):
                 continue
             root = brentq(im_admittance, low, high, xtol=1e-12 * high, rtol=1e-12)
         with np.errstate(divide="ignore", invalid="ignore"):
