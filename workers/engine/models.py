@@ -102,8 +102,9 @@ def _evaluate(fit: AAAFit, s: np.ndarray) -> np.ndarray:
     with np.errstate(divide="ignore", invalid="ignore"):
         cauchy = 1.0 / (s.reshape(-1)[:, None] - nodes[None, :])
         r = (cauchy @ fit.weighted_values) / (cauchy @ weights)
-    hit = ~np.isfinite(cauchy)
-    if hit.any():
+    # an infinite Cauchy entry makes its row of r NaN (weights are nonzero): look only then
+    hit = None if np.isfinite(r).all() else ~np.isfinite(cauchy)
+    if hit is not None and hit.any():
         rows, cols = np.nonzero(hit)
         r[rows] = values[cols]
     return r.reshape(s.shape)

@@ -181,10 +181,13 @@ def _merge(found: list[tuple[float, float, str]]) -> list[SuspectInterval]:
 def _unwrapped_phase(h: np.ndarray) -> np.ndarray:
     """``np.unwrap(np.angle(h))`` for a 1-D array, written out (numpy's steps, same values) to
     save its generic bookkeeping on the refinement's short arrays."""
-    phase = np.angle(h)
+    phase = np.arctan2(h.imag, h.real)  # np.angle
     if phase.size < 2:
         return phase
     step = phase[1:] - phase[:-1]
+    if not (np.abs(step) >= np.pi).any():  # no jump to undo: every correction is +0.0
+        phase[1:] += 0.0
+        return phase
     wrapped = np.mod(step + np.pi, 2 * np.pi) - np.pi
     wrapped[(wrapped == -np.pi) & (step > 0)] = np.pi
     correction = wrapped - step
@@ -246,7 +249,8 @@ def refine_contour(frequency_hz: np.ndarray, ndf: np.ndarray, model: RationalMod
             f, h = f[order], h[order]
             added += int(keep.sum())
         phase = _unwrapped_phase(h)
-        counts.append(int(-(np.round(phase[-1] / np.pi) - np.round(phase[0] / np.pi))))
+        # Python's round() rounds half to even, as np.round does
+        counts.append(-(round(float(phase[-1]) / math.pi) - round(float(phase[0]) / math.pi)))
         fast = np.nonzero(np.degrees(np.abs(phase[1:] - phase[:-1])) > target)[0]
         if fast.size == 0:
             break  # nothing turns too fast any more: further points cannot change the count
