@@ -84,12 +84,15 @@ def _edge(frequency_hz: np.ndarray, h: np.ndarray, phase: np.ndarray, at: int, t
     return EdgeClosure(float(f_edge), value, float(off_axis), drift, trend)
 
 
-def count_encirclements(frequency_hz: np.ndarray, h: np.ndarray) -> Encirclements:
+def count_encirclements(frequency_hz: np.ndarray, h: np.ndarray,
+                        phase: np.ndarray | None = None) -> Encirclements:
     """Clockwise encirclements of the origin by h(jω) over the whole axis, from samples on f ≥ 0.
 
-    ``h`` must be finite at every sample (drop singular points before calling).
+    ``h`` must be finite at every sample (drop singular points before calling). ``phase``: the
+    caller's ``np.unwrap(np.angle(h))``, when it has it already.
     """
-    phase = np.unwrap(np.angle(h))
+    if phase is None:
+        phase = np.unwrap(np.angle(h))
     steps = np.abs(np.diff(phase))
     i_step = int(np.argmax(steps)) if steps.size else 0
     half_turns = (phase[-1] - phase[0]) / np.pi

@@ -208,9 +208,10 @@ def _interior(low: np.ndarray, high: np.ndarray, n: int) -> np.ndarray:
 
 
 def _real_axis_crossings(model: RationalModel, f: np.ndarray, h: np.ndarray
-                         ) -> list[AxisCrossing]:
-    """Roots of Im NDF(model) inside every segment of the contour where Im changes sign."""
-    found = []
+                         ) -> tuple[list[AxisCrossing], list[complex]]:
+    """Roots of Im NDF(model) inside every segment of the contour where Im changes sign, and
+    the model's value at each (evaluated one root at a time)."""
+    found, values = [], []
     change = np.nonzero(np.sign(h.imag[:-1]) * np.sign(h.imag[1:]) < 0)[0]
     im = model.im_on_axis_unguarded
     for i in change:
@@ -221,9 +222,10 @@ def _real_axis_crossings(model: RationalModel, f: np.ndarray, h: np.ndarray
                 continue
             root = low if at_low == 0 else high if at_high == 0 else \
                 brentq(im, low, high, xtol=1e-12 * high, rtol=1e-12)
-        found.append(AxisCrossing(float(root), float(model(np.array([root]))[0].real),
-                                  at_low < 0))
-    return found
+        value = model(np.array([root]))[0]
+        found.append(AxisCrossing(float(root), float(value.real), at_low < 0))
+        values.append(value)
+    return found, values
 
 
 def refine_contour(frequency_hz: np.ndarray, ndf: np.ndarray, model: RationalModel,
@@ -255,16 +257,18 @@ def refine_contour(frequency_hz: np.ndarray, ndf: np.ndarray, model: RationalMod
         if fast.size == 0:
             break  # nothing turns too fast any more: further points cannot change the count
         new = _interior(f[fast], f[fast + 1], SPLIT_POINTS)
-    crossings = _real_axis_crossings(model, f, h) if added else []
+    crossings, at_crossings = _real_axis_crossings(model, f, h) if added else ([], [])
     if crossings:
         at = np.array([c.frequency_hz for c in crossings])
-        values = model(at)
+        # one crossing: the value already found is this same evaluation (several are evaluated
+        # together, which sums in another order)
+        values = np.array(at_crossings) if len(crossings) == 1 else model(at)
         f = np.concatenate([f, at])
         h = np.concatenate([h, values])
         order = np.argsort(f, kind="stable")
         f, h = f[order], h[order]
         added += at.size
-    count = count_encirclements(f, h)
+    count = count_encirclements(f, h, _unwrapped_phase(h))
     return Refinement(f, h, count, before, counts, added, intervals, crossings, target)
 
 
