@@ -133,7 +133,7 @@ def _upper(size: int) -> np.ndarray:
     return _UPPER[size]
 
 
-def _singular(block: np.ndarray, upper: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+def _singular(block: np.ndarray, upper: np.ndarray) -> tuple[list[float], np.ndarray]:
     """Singular values and right singular vectors (rows of Vᴴ) of a tall ``block``: the SVD of
     its triangular QR factor R (A = QR has A's singular values and right vectors; LAPACK's own
     tall SVD takes the same QR step, then also forms the left vectors, which AAA never uses).
@@ -144,7 +144,7 @@ def _singular(block: np.ndarray, upper: np.ndarray) -> tuple[np.ndarray, np.ndar
         _, s, vh, info = zgesdd(qr[:n] * upper[:n, :n], lwork=_gesdd_workspace(n))
     if info != 0:
         raise np.linalg.LinAlgError(f"SVD of the Loewner matrix failed (LAPACK info {info})")
-    return s, vh
+    return s.tolist(), vh  # Python floats: the step's scalar tests are cheaper on them
 
 
 def aaa(z: np.ndarray, f: np.ndarray, rtol: float, max_terms: int, presorted: bool = False
@@ -188,13 +188,14 @@ def aaa(z: np.ndarray, f: np.ndarray, rtol: float, max_terms: int, presorted: bo
             j = int(np.argmax(residual))
             chosen[m], values[m] = j, f[j]
             rest[j] = False
-            cauchy[:, m] = 1.0 / (z - z[j])
-            loewner[:, m] = (f - f[j]) * cauchy[:, m]
+            np.divide(1.0, z - z[j], out=cauchy[:, m])
+            np.multiply(f - f[j], cauchy[:, m], out=loewner[:, m])
             if size - n >= n:
                 block = loewner[rest, :n]
                 if not ill:
                     s, vh = _singular(block, upper)
-                    ill = bool(s[0] / s[-1] > ILL_CONDITIONED)
+                    # s[0]/s[-1] as numpy divides: x/0 = inf (ill-conditioned), 0/0 = nan (not)
+                    ill = s[0] > 0 if s[-1] == 0 else s[0] / s[-1] > ILL_CONDITIONED
                 if ill:
                     norms = np.sqrt(np.add.reduce((block.conj() * block).real, axis=0))
                     s, vh = _singular(block / norms, upper)
