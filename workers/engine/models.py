@@ -20,6 +20,7 @@ when both find it (a zero fitted into noise does not repeat on independent sampl
 from __future__ import annotations
 
 from dataclasses import dataclass
+from functools import cached_property
 
 import numpy as np
 
@@ -124,11 +125,12 @@ def _drop_doublets(zeros: np.ndarray, poles: np.ndarray, s_axis: np.ndarray, noi
         return zeros, 0
     gap = np.abs(zeros[:, None] - poles[None, :])
     nearest = np.argmin(gap, axis=1)
+    closest = gap[np.arange(zeros.size), nearest]
     reach = np.min(np.abs(poles[nearest][:, None] - s_axis[None, :]), axis=1)
     with np.errstate(divide="ignore", invalid="ignore"):
-        effect = gap[np.arange(zeros.size), nearest] / reach
+        effect = closest / reach
     spurious = (effect < DOUBLET_FACTOR * max(noise, 1e-13)) | \
-        (gap[np.arange(zeros.size), nearest] <= CANCEL_RELATIVE * np.abs(zeros))
+        (closest <= CANCEL_RELATIVE * np.abs(zeros))
     return zeros[~spurious], int(spurious.sum())
 
 
@@ -195,15 +197,19 @@ class RationalModel:
         many times in a row)."""
         x = 1j * frequency_hz * (2 * np.pi / self.scale_rad_s)
         total = 0.0
-        for half in self.halves:
-            gap = x - half.fit.support_points
+        for fit, points, weighted, weights in self._barycentric:
+            gap = x - points
             if not gap.all():  # x is a support point
-                total += float(_evaluate(half.fit, np.array([x]))[0].imag)
+                total += float(_evaluate(fit, np.array([x]))[0].imag)
                 continue
             cauchy = 1.0 / gap
-            total += float(((cauchy @ half.fit.weighted_values)
-                            / (cauchy @ half.fit.weights)).imag)
-        return total / len(self.halves)
+            total += float(((cauchy @ weighted) / (cauchy @ weights)).imag)
+        return total / (1 if self.odd is None else 2)
+
+    @cached_property
+    def _barycentric(self) -> tuple[tuple[AAAFit, np.ndarray, np.ndarray, np.ndarray], ...]:
+        return tuple((half.fit, half.fit.support_points, half.fit.weighted_values,
+                      half.fit.weights) for half in self.halves)
 
     def __call__(self, frequency_hz: np.ndarray) -> np.ndarray:
         """The model on the jω axis at ``frequency_hz``."""
