@@ -6,9 +6,9 @@ approximation", SIAM J. Sci. Comput. 40(3), A1494–A1522, 2018. Both run the sa
 the same data, so they must choose the same support points in the same order and give the same
 rational function, error history, poles and zeros (up to rounding). The data: a real-rational
 response with an unstable pole pair on the mirrored jω axis (as the engine fits it), the same
-with seeded noise (the fit stops at max_terms and turns ill-conditioned), tan(πz/2) on a spiral
-(op. cit., sec. 6, as in SciPy's documentation), and tiny sets where the Loewner matrix has fewer
-rows than columns.
+with seeded noise (the fit stops at max_terms), tan(πz/2) on a spiral (an example of SciPy's AAA
+documentation), and tiny sets where the Loewner matrix has fewer rows than columns. The exact
+cases end ill-conditioned, where both take the column-scaled Loewner matrix.
 """
 
 from __future__ import annotations
@@ -105,8 +105,8 @@ def test_recovers_the_closed_form_poles_and_zeros():
 
 
 def test_interpolates_at_the_support_points():
-    # AAA interpolates the data at its support points (op. cit., sec. 2), also where the
-    # barycentric formula is 0/0.
+    # AAA interpolates the data at its support points (the barycentric form, op. cit.), also
+    # where the formula itself is 0/0.
     (z, f), rtol, terms, _ = CASES["rational, mirrored jw"]
     lean = aaa(z, f, rtol, terms)
     np.testing.assert_array_equal(lean(lean.support_points), lean.support_values)

@@ -8,14 +8,16 @@ the largest residual |f − r|, the weights are the right singular vector of the
 value of the Loewner matrix A_ij = (f_i − f_j)/(z_i − z_j) over the other samples (columns
 scaled to unit norm once A is ill-conditioned), and the iteration stops when max|f − r| <=
 rtol·max|f| or at ``max_terms``. Poles and zeros are the finite eigenvalues of the arrowhead
-pencil (op. cit., sec. 3.2): det(E − λB) = 0 with E = [[0, wᵀ], [1, diag z_j]] (zeros: w·f in
-place of w) and B = diag(0, 1, …, 1).
+pencil det(E − λB) = 0 with E = [[0, wᵀ], [1, diag z_j]] (zeros: w·f in place of w) and
+B = diag(0, 1, …, 1), as SciPy's ``poles()`` and ``roots()`` form it.
 
-Why it exists: the refinement fits a few small problems (about 200 samples, m <= 50) per check,
-where SciPy's general implementation spends ~140 µs per step on wrapper work (LAPACK workspace
-queries, array-API dispatch, boolean-mask copies, error-state contexts); this core does the same
-arithmetic with numpy.linalg.svd on an index list, measured ~3× faster per fit on the refinement
-benchmark's data.
+Why it exists: the refinement runs a few small fits per check (about 200 samples, m <= 50), where
+SciPy's general implementation spends much of each step around the arithmetic (workspace queries,
+array-API dispatch, mask copies, error-state contexts) and has LAPACK form left singular vectors
+that AAA never uses. This core takes the QR factor of the Loewner block and the SVD of its small
+triangular factor (the path LAPACK's own tall SVD takes), with LAPACK's workspace sizes queried
+once: on the 22 fits of the refinement benchmark it measured 2.4x faster than SciPy's (0.05 vs
+0.12 s in all), with the same support points, weights and error histories to the last bit.
 """
 
 from __future__ import annotations
