@@ -149,16 +149,16 @@ def test_stored_but_unpublished_checks_are_delivered_by_the_reconciler(
 
 def test_check_that_kills_its_worker_every_time_fails_after_max_attempts(
         redis_server, store, workers, tmp_path):
-    # Hard limit 10 s: the pool notices a dead process within a few seconds, and a hard limit
-    # shorter than that would report the crash as a time-out (seen with 3 s on a loaded host).
-    env = worker_env(redis_server.url, tmp_path, BALLAST_SOFT_TIME_LIMIT_S="8",
-                     BALLAST_HARD_TIME_LIMIT_S="10", BALLAST_MAX_ATTEMPTS="2",
+    # Hard limit 60 s, so the lease is 66 s: the check must end well inside ONE lease, which it
+    # can only do if each lost pool process released the lease for the redelivery to claim.
+    env = worker_env(redis_server.url, tmp_path, BALLAST_SOFT_TIME_LIMIT_S="50",
+                     BALLAST_HARD_TIME_LIMIT_S="60", BALLAST_MAX_ATTEMPTS="2",
                      BALLAST_TEST_CRASH_LABEL="poison")
     worker = workers(env)
     good, bad = variants(2, points=101)
     (want,) = engine_verdicts([good.request], env)
     ids = submit(store, env, [("poison", bad.request), ("fine", good.request)])
-    wait_until(lambda: all_final(store, ids), 120, "both checks to end")
+    wait_until(lambda: all_final(store, ids), 45, "both checks to end within one lease")
     poison, fine = (store.get_check_any(i) for i in ids)
     assert poison.status == "failed"
     assert poison.attempts == 2

@@ -121,6 +121,21 @@ def test_expired_lease_is_claimable_again_and_attempts_are_capped(store, clock):
     assert store.expired_leases(clock.now) == []
 
 
+def test_released_lease_is_claimable_at_once_and_attempts_still_count(store, clock):
+    """A worker process that died gives its check back: the next delivery claims it without
+    waiting for the lease, and the attempts cap still ends a check that kills every worker."""
+    _, (cid,) = store.create_checks("acme", [NewCheck({"x": 1})])
+    assert store.release(cid) is False  # queued: nothing to release
+    assert store.claim(cid, lease_s=600, max_attempts=2).attempts == 1
+    assert store.release(cid) is True
+    assert store.expired_leases(clock.now) == [cid]  # the reconciler sees it too
+    assert store.claim(cid, lease_s=600, max_attempts=2).attempts == 2  # same instant
+    assert store.release(cid) is True
+    assert store.claim(cid, lease_s=600, max_attempts=2) is None  # attempts used up → failed
+    assert store.get_check("acme", cid).status == "failed"
+    assert store.release(cid) is False  # final states keep no lease
+
+
 def test_fail_records_reason(store):
     _, (cid,) = store.create_checks("acme", [NewCheck({"x": 1})])
     store.claim(cid, lease_s=60, max_attempts=3)

@@ -16,7 +16,8 @@ from collections.abc import Callable
 from typing import Any, TypeVar
 
 import redis.exceptions
-from billiard.exceptions import SoftTimeLimitExceeded
+from billiard.einfo import ExceptionWithTraceback
+from billiard.exceptions import SoftTimeLimitExceeded, WorkerLostError
 from celery.worker.request import Request
 from marshmallow import ValidationError
 
@@ -86,11 +87,29 @@ def _test_hooks(label: str | None) -> None:
 
 
 class CheckRequest(Request):
-    """Celery's request object, plus: a hard time-out marks the check ``failed`` with the reason.
+    """Celery's request object, plus two hooks that run in the worker's main process:
 
-    The hard limit kills the pool process, so the task cannot record it; this hook runs in the
-    worker's main process.
+    - a hard time-out marks the check ``failed`` with the reason (the hard limit kills the pool
+      process, so the task cannot record it);
+    - a pool process that died mid-check (``WorkerLostError``) releases the check's lease before
+      Celery puts the message back (``reject_on_worker_lost``), so the redelivery claims it at
+      once: a check that kills its worker every time ends ``failed`` after its attempts within
+      seconds, not one lease (hard limit + margin) per attempt.
     """
+
+    def on_failure(self, exc_info: Any, send_failed_event: bool = True,
+                   return_ok: bool = False) -> None:
+        exc = exc_info.exception
+        if isinstance(exc, ExceptionWithTraceback):
+            exc = exc.exc
+        if isinstance(exc, WorkerLostError) and self.args:
+            check_id = str(self.args[0])
+            try:
+                _with_store_retry(lambda: process_store().release(check_id),
+                                  "release " + check_id)
+            except Exception:  # the lease then runs out and the reconciler re-queues it
+                log.exception("could not release the lease of %s", check_id)
+        super().on_failure(exc_info, send_failed_event=send_failed_event, return_ok=return_ok)
 
     def on_timeout(self, soft: bool, timeout: float) -> None:
         super().on_timeout(soft, timeout)

@@ -27,6 +27,7 @@ VERDICT_NAMES: tuple[str, ...] = ("stable", "unstable", "indeterminate")
 IdempotencyState = Literal["new", "pending", "mismatch", "done"]
 
 DEFAULT_RETENTION_S = 7 * 24 * 3600.0
+RELEASED_LEASE_AGE_S = 1.0  # a released lease reads as having ended this long ago
 
 
 class QuotaExceededError(Exception):
@@ -221,6 +222,11 @@ class Store(Protocol):
 
     def fail(self, check_id: str, reason: str) -> bool:
         """queued or running → failed with the reason; False if already final."""
+        ...
+
+    def release(self, check_id: str) -> bool:
+        """End a running check's lease now (its worker process died), so that the next delivery
+        claims it at once instead of after the lease; False if the check is not running."""
         ...
 
     def cancel_check(self, tenant: str, check_id: str) -> CheckRecord | None:

@@ -23,6 +23,7 @@ import redis
 
 from service.store.base import (
     DEFAULT_RETENTION_S,
+    RELEASED_LEASE_AGE_S,
     BatchRecord,
     CheckRecord,
     IdempotencyState,
@@ -117,6 +118,16 @@ if st ~= 'queued' and st ~= 'running' then return 0 end
 if ARGV[6] ~= '' and redis.call('HGET', ck, 'tenant') ~= ARGV[6] then return 0 end
 move(P, id, ck, st, ARGV[7], ARGV[3], ARGV[4])
 if ARGV[5] ~= '' then redis.call('HSET', ck, 'error', ARGV[5]) end
+return 1
+"""
+
+# ARGV: prefix, id, ended (a time just before now)
+_LUA_RELEASE = """
+local P, id = ARGV[1], ARGV[2]
+local ck = P .. 'check:' .. id
+if redis.call('HGET', ck, 'status') ~= 'running' then return 0 end
+redis.call('HSET', ck, 'lease_expires_at', ARGV[3])
+redis.call('ZADD', P .. 'leases', ARGV[3], id)
 return 1
 """
 
@@ -218,6 +229,7 @@ class RedisStore:
         self._claim = self.r.register_script(_LUA_CLAIM)
         self._complete = self.r.register_script(_LUA_COMPLETE)
         self._finish = self.r.register_script(_LUA_FINISH)
+        self._release = self.r.register_script(_LUA_RELEASE)
         self._cancel_batch = self.r.register_script(_LUA_CANCEL_BATCH)
         self._idem_begin = self.r.register_script(_LUA_IDEM_BEGIN)
         self._idem_release = self.r.register_script(_LUA_IDEM_RELEASE)
@@ -432,6 +444,10 @@ class RedisStore:
             self.p, check_id, _t(self.clock()), self._ttl, reason, "", "failed",
         ])
         return int(done) == 1
+
+    def release(self, check_id: str) -> bool:
+        ended = self.clock() - RELEASED_LEASE_AGE_S
+        return int(self._release(args=[self.p, check_id, _t(ended)])) == 1
 
     def cancel_check(self, tenant: str, check_id: str) -> CheckRecord | None:
         self._finish(args=[

@@ -19,6 +19,7 @@ from typing import Any
 
 from service.store.base import (
     DEFAULT_RETENTION_S,
+    RELEASED_LEASE_AGE_S,
     BatchRecord,
     CheckRecord,
     IdempotencyState,
@@ -366,6 +367,16 @@ class SqliteStore:
                 "UPDATE checks SET status = 'failed', error = ?, finished_at = ?, updated_at = ?, "
                 "lease_expires_at = NULL WHERE id = ? AND status IN ('queued', 'running')",
                 (reason, now, now, check_id),
+            )
+            return cur.rowcount == 1
+
+    def release(self, check_id: str) -> bool:
+        now = self.clock()
+        with self._write() as db:
+            cur = db.execute(
+                "UPDATE checks SET lease_expires_at = ?, updated_at = ? "
+                "WHERE id = ? AND status = 'running'",
+                (now - RELEASED_LEASE_AGE_S, now, check_id),
             )
             return cur.rowcount == 1
 
