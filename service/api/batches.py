@@ -20,6 +20,7 @@ from marshmallow import RAISE, ValidationError
 
 from service.api.checks import IDEMPOTENCY_PARAMETER
 from service.api.common import (
+    IDEMPOTENCY_HEADER,
     accept_once,
     document_errors,
     idempotency_key,
@@ -263,7 +264,8 @@ def _submit_batch() -> tuple[dict[str, Any], int, dict[str, str]]:
     if request.mimetype == "multipart/form-data":
         label, shared, variants = _parse_multipart_batch()
         fingerprint = content_hash({"label": label, "map": shared,
-                                    "variants": [[n, m] for n, m in variants]})
+                                    "variants": [[n, m] for n, m in variants]}) \
+            if request.headers.get(IDEMPOTENCY_HEADER) is not None else None
         _check_variant_count(len(variants), "files")
         _validate_variants(shared, variants, "files")
         checks = [NewCheck(member, label=name) for name, member in variants]
