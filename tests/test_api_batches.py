@@ -118,6 +118,7 @@ def test_invalid_variant_names_index_label_and_field_and_stores_nothing(
     # one answer names every problem: the unknown member and the other variant's bad data
     assert fields[-1] == "variants.3.wobble"
     assert [f[:len("variants.2.data")] for f in fields[:-1]] == ["variants.2.data"]
+    assert problem["detail"].startswith(f"2 of {len(batch['variants'])} variants are invalid")
     del batch["variants"][3]["wobble"]
     problem = client.post("/v1/batches", json=batch, headers=auth).get_json()
     assert [e["field"][:len("variants.2.data")] for e in problem["errors"]] == ["variants.2.data"]

@@ -220,9 +220,11 @@ def _validate_outline(outline: BatchOutline) -> tuple[str | None, dict[str, Any]
             _check_label(raw.get("label"), f"variants.{i}.label", invalid)
         name = raw.get("label") if isinstance(raw, dict) else None
         names.append(name if isinstance(name, str) else None)
-        if len(invalid.pairs) == before:
-            member = {k: v for k, v in raw.items() if k != "label"}
-            _validate_variant(schema, shared, i, names[-1], member, "variants", invalid)
+        if len(invalid.pairs) != before:  # not an object, unknown members or a bad label
+            invalid.bad_variants += 1
+            continue
+        member = {k: v for k, v in raw.items() if k != "label"}
+        _validate_variant(schema, shared, i, names[-1], member, "variants", invalid)
     invalid.raise_if_any(len(outline.variants))
     return label, shared, names
 
