@@ -25,6 +25,7 @@ from pathlib import Path
 import requests
 
 from service.runtime_config import RuntimeConfig, load_config
+from workers.threads import pin_engine_threads
 from workers.worker_process import worker_argv
 
 MAX_RESTARTS = 5
@@ -131,8 +132,7 @@ def child_processes(config: RuntimeConfig, options: ServeOptions) -> list[Child]
     env = dict(os.environ)
     env["BALLAST_DATA_DIR"] = str(config.data_dir)
     env.setdefault("PYTHONUNBUFFERED", "1")
-    for var in ("OPENBLAS_NUM_THREADS", "OMP_NUM_THREADS", "MKL_NUM_THREADS"):
-        env.setdefault(var, "1")  # one process per core already; see workers/celery_app.py
+    pin_engine_threads(env)  # honours BALLAST_ENGINE_THREADS, as workers/celery_app.py does
     logs = config.data_dir / "logs"
     children = []
     if options.worker_processes > 0:

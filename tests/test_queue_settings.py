@@ -18,6 +18,7 @@ from kombu.exceptions import ContentDisallowed
 
 from service.runtime_config import CHECK_QUEUE, load_config
 from workers.celery_app import REDIS_TRANSPORT, SQLITE_TRANSPORT, celery_settings
+from workers.threads import BLAS_THREAD_VARIABLES, pin_engine_threads
 
 LIMIT_CASES = [  # (soft, hard) in seconds
     ("300", "330"),
@@ -133,3 +134,27 @@ def test_pickled_message_is_refused_by_a_json_only_consumer(tmp_path: Path):
         with pytest.raises(ContentDisallowed, match="pickle"):
             simple.get(block=True, timeout=5)
         simple.close()
+
+
+def test_engine_thread_setting_reaches_the_served_worker_and_api(tmp_path: Path, monkeypatch):
+    """BALLAST_ENGINE_THREADS (DEVELOPERS.md, operations) sets the BLAS thread variables of the
+    processes ``ballast serve`` starts; a BLAS variable set by the operator stays as set."""
+    from service.embedded import ServeOptions, child_processes
+
+    for name in BLAS_THREAD_VARIABLES:
+        monkeypatch.delenv(name, raising=False)
+    monkeypatch.setenv("BALLAST_ENGINE_THREADS", "3")
+    monkeypatch.setenv("MKL_NUM_THREADS", "5")
+    monkeypatch.setenv("BALLAST_DATA_DIR", str(tmp_path))
+    monkeypatch.delenv("BALLAST_REDIS_URL", raising=False)
+    children = child_processes(load_config(), ServeOptions(port=8123))
+    assert {c.name for c in children} == {"worker", "api"}
+    for child in children:
+        assert child.env["OPENBLAS_NUM_THREADS"] == child.env["OMP_NUM_THREADS"] == "3"
+        assert child.env["MKL_NUM_THREADS"] == "5"
+
+
+def test_engine_threads_default_to_one():
+    env: dict[str, str] = {}
+    pin_engine_threads(env)
+    assert env == dict.fromkeys(BLAS_THREAD_VARIABLES, "1")

@@ -11,11 +11,10 @@ from __future__ import annotations
 import os
 from typing import Any
 
-# One BLAS thread per worker process, set before numpy is first imported (by workers.tasks): the
-# engine's matrices are small (N <= 64) and Celery already runs one process per core; measured on
-# 2 cores with other load, 2 BLAS threads made a 401-point 5-port check 4x slower (420 vs 100 ms).
-for _var in ("OPENBLAS_NUM_THREADS", "OMP_NUM_THREADS", "MKL_NUM_THREADS"):
-    os.environ.setdefault(_var, os.environ.get("BALLAST_ENGINE_THREADS", "1"))
+from workers.threads import pin_engine_threads
+
+# One BLAS thread per worker process, set before numpy is first imported (by workers.tasks).
+pin_engine_threads(os.environ)
 
 from celery import Celery  # noqa: E402 (after the thread settings)
 

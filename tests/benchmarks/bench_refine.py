@@ -16,7 +16,7 @@ with 3–7 more probe ports), with 201-point inputs:
   ratio between 4.5 and 6.8 within minutes on the same code.
 
 Runs with one BLAS thread, set before numpy's first import, as the Celery workers run the engine
-(workers/celery_app.py; tests/benchmarks/bench_service.py does the same): the benchmark measures
+(``workers.threads.pin_engine_threads``, as workers/celery_app.py): the benchmark measures
 the engine as it runs in the workers. With OpenBLAS's default thread pool the small matrices here
 leave its threads spinning, and that spinning counts in the process CPU time of both runs.
 
@@ -28,8 +28,9 @@ from __future__ import annotations
 
 import os
 
-for _var in ("OPENBLAS_NUM_THREADS", "OMP_NUM_THREADS", "MKL_NUM_THREADS"):
-    os.environ.setdefault(_var, "1")
+from workers.threads import pin_engine_threads
+
+pin_engine_threads(os.environ)
 
 import argparse
 import time

@@ -23,9 +23,10 @@ from __future__ import annotations
 
 import os
 
-# The engine baseline runs with one BLAS thread, like the workers (workers/celery_app.py).
-for _var in ("OPENBLAS_NUM_THREADS", "OMP_NUM_THREADS", "MKL_NUM_THREADS"):
-    os.environ.setdefault(_var, "1")
+from workers.threads import pin_engine_threads
+
+# The engine baseline runs with the workers' BLAS threads (one unless BALLAST_ENGINE_THREADS).
+pin_engine_threads(os.environ)
 
 import argparse
 import json
