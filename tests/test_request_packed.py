@@ -121,3 +121,10 @@ def test_packed_shape_still_checked_against_the_ports() -> None:
     payload = _packed_payload()
     payload["data"] = _packed(np.ones((F, 2, 2), complex), "complex128")
     assert "ports" in _errors(payload)["data"]
+
+
+def test_packed_shape_whose_size_overflows_int64_is_refused_by_name() -> None:
+    """2**120 elements: an int64 product wraps to 0 and would match an empty base64 text."""
+    payload = _packed_payload()
+    payload["data"] = {"dtype": "complex128", "shape": [2**40] * 3, "base64": ""}
+    assert "needs" in _errors(payload)["data.base64"]

@@ -8,6 +8,7 @@ validate quickly; every error names its field (``data.re``, ``devices.1.control`
 from __future__ import annotations
 
 import binascii
+import math
 from base64 import b64decode, b64encode
 from typing import Any
 
@@ -90,7 +91,7 @@ def unpack_array(value: dict[str, Any], dtype: str, ndim: int) -> np.ndarray:
     except (binascii.Error, ValueError) as exc:
         raise ValidationError({"base64": [f"is not base64 (RFC 4648): {exc}"]}) from exc
     item = PACKED_DTYPES[dtype].itemsize
-    expected = int(np.prod(shape, dtype=np.int64)) * item
+    expected = math.prod(shape) * item  # exact: numpy's int64 product could wrap to a match
     if len(raw) != expected:
         raise ValidationError({"base64": [
             f"holds {len(raw)} bytes; shape {shape} of {dtype} needs {expected}"]})
