@@ -95,14 +95,14 @@ class AAAFit:
         return self._cache["roots"]
 
     def __call__(self, z: np.ndarray) -> np.ndarray:
-        """r at ``z``; a point equal to a support point takes that point's value."""
+        """r at ``z``, vectorised; a point equal to a support point takes that point's value."""
         z = np.asarray(z, dtype=complex)
         with np.errstate(divide="ignore", invalid="ignore"):
             cauchy = 1.0 / (z.reshape(-1)[:, None] - self.support_points[None, :])
             r = (cauchy @ self.weighted_values) / (cauchy @ self.weights)
-        hit = np.isinf(cauchy)
-        if hit.any():
-            rows, cols = np.nonzero(hit)
+        # an infinite Cauchy entry makes its row of r NaN (weights are nonzero): look only then
+        if not np.isfinite(r).all():
+            rows, cols = np.nonzero(np.isinf(cauchy))
             r[rows] = self.support_values[cols]
         return r.reshape(z.shape)
 

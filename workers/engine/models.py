@@ -92,25 +92,6 @@ def refit(half: HalfFit, rtol: float) -> HalfFit:
     return _half(half.fit.truncated(rtol), rtol, half.max_terms, half.level)
 
 
-def _evaluate(fit: AAAFit, s: np.ndarray) -> np.ndarray:
-    """The barycentric formula r(s) = Σ w_j f_j/(s − z_j) / Σ w_j/(s − z_j), vectorised.
-
-    (Same value as ``fit(s)``; a point that hits a support
-    point exactly takes the support value.)
-    """
-    s = np.asarray(s, dtype=complex)
-    nodes, values, weights = fit.support_points, fit.support_values, fit.weights
-    with np.errstate(divide="ignore", invalid="ignore"):
-        cauchy = 1.0 / (s.reshape(-1)[:, None] - nodes[None, :])
-        r = (cauchy @ fit.weighted_values) / (cauchy @ weights)
-    # an infinite Cauchy entry makes its row of r NaN (weights are nonzero): look only then
-    hit = None if np.isfinite(r).all() else ~np.isfinite(cauchy)
-    if hit is not None and hit.any():
-        rows, cols = np.nonzero(hit)
-        r[rows] = values[cols]
-    return r.reshape(s.shape)
-
-
 def _drop_doublets(zeros: np.ndarray, poles: np.ndarray, s_axis: np.ndarray, noise: float
                    ) -> tuple[np.ndarray, int]:
     """Zeros that do not nearly cancel a pole (scaled units); with the roles swapped, poles.
@@ -184,8 +165,8 @@ class RationalModel:
         """The model at complex frequencies s (rad/s): the mean of the half-models."""
         x = np.asarray(s_rad_s, dtype=complex) / self.scale_rad_s
         if self.odd is None:
-            return _evaluate(self.even.fit, x)
-        return 0.5 * (_evaluate(self.even.fit, x) + _evaluate(self.odd.fit, x))
+            return self.even.fit(x)
+        return 0.5 * (self.even.fit(x) + self.odd.fit(x))
 
     def im_on_axis(self, frequency_hz: float) -> float:
         """Im of the model at one frequency (Hz): the cheap scalar path for root finding."""
@@ -200,7 +181,7 @@ class RationalModel:
         for fit, points, weighted, weights in self._barycentric:
             gap = x - points
             if not gap.all():  # x is a support point
-                total += float(_evaluate(fit, np.array([x]))[0].imag)
+                total += float(fit(np.array([x]))[0].imag)
                 continue
             cauchy = 1.0 / gap
             total += float(((cauchy @ weighted) / (cauchy @ weights)).imag)
@@ -256,12 +237,12 @@ def fit_response(frequency_hz: np.ndarray, h: np.ndarray) -> RationalModel:
         plateau = float(np.median(history[-max(3, history.size // 4):]))
         rtol, noise = PLATEAU_MARGIN * plateau, plateau / 3.0
         even = refit(even, rtol)
-    missed = np.abs(_evaluate(even.fit, s[unseen[0]]) - h[unseen[0]])
+    missed = np.abs(even.fit(s[unseen[0]]) - h[unseen[0]])
     sampled = np.abs(h[unseen[0]])
     odd: HalfFit | None = None
     if not (rtol == TIGHT_RTOL and float(np.max(missed)) / level <= EXACT_LEVEL):
         odd = aaa_fit(s[train[1]], h[train[1]], rtol)
-        missed = np.concatenate([missed, np.abs(_evaluate(odd.fit, s[unseen[1]])
+        missed = np.concatenate([missed, np.abs(odd.fit(s[unseen[1]])
                                                 - h[unseen[1]])])
         sampled = np.concatenate([sampled, np.abs(h[unseen[1]])])
     halves = (even,) if odd is None else (even, odd)
