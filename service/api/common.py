@@ -91,7 +91,7 @@ def json_body_bytes() -> bytes:
 def json_object_body(raw: bytes | None = None) -> dict[str, Any]:
     """The request's JSON object (``raw``: its bytes when already read by
     :func:`json_body_bytes`), or a problem: 415 (not JSON), 400 (malformed), 422 (not an
-    object). Also sets ``g.body_digest`` (SHA-256 of the bytes, the idempotency fingerprint),
+    object). Also sets ``g.body_digest`` (see :func:`json_body_bytes`),
     ``g.parsed_body`` (its ``text`` is the body as a str) and ``g.variant_texts`` (JSON texts
     the store can keep as they are)."""
     if raw is None:
