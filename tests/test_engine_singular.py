@@ -9,25 +9,19 @@ from __future__ import annotations
 import numpy as np
 
 from service.runner import run_check_json
-from tests.test_cli_check import C_F, G_S, L_H
+from tests.test_cli_check import tank_request
 
 
 def _tank_s_request(short_at: int | None) -> dict:
-    f = np.geomspace(1e6, 1e12, 3001)
-    w = 2 * np.pi * f
-    gm = 0.5e-3  # net conductance stays positive: a stable tank
-    y = (G_S - gm) + 1j * w * C_F + 1 / (1j * w * L_H)
+    """The stable tank of test_cli_check (net conductance stays positive) as S data."""
+    request = tank_request(gm=0.5e-3)
+    y = np.asarray(request["data"]["re"]) + 1j * np.asarray(request["data"]["im"])
     s = (1 - 50 * y) / (1 + 50 * y)
     if short_at is not None:
         s[short_at] = -1.0
-    return {
-        "frequency_hz": f.tolist(), "parameters": "S",
-        "data": {"re": s.real[:, None, None].tolist(), "im": s.imag[:, None, None].tolist()},
-        "ports": [{"name": "tank", "role": "probe"}],
-        "devices": [{"name": "Q1", "gm_s": gm, "control": ["tank", None],
-                     "output": [None, "tank"]}],
-        "options": {"phase_step_limit_deg": 90},
-    }
+    request["parameters"] = "S"
+    request["data"] = {"re": s.real.tolist(), "im": s.imag.tolist()}
+    return request
 
 
 def test_singular_point_is_reported_and_left_out() -> None:
