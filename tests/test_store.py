@@ -395,3 +395,64 @@ def test_request_json_given_as_str_or_utf8_bytes_reads_back_as_the_request(store
                                           NewCheck(request, request_json=as_text),
                                           NewCheck(request)])
     assert [store.get_request(i) for i in ids] == [request, request, request]
+
+
+def test_on_stored_hands_over_every_id_once_in_order_after_it_is_stored(store, monkeypatch):
+    # Contract of Store.create_checks: each id is handed to on_stored exactly once, and only
+    # when its check can be read back (a worker may claim it at once). Redis writes in chunks:
+    # make them small so that a 7-check batch takes several.
+    monkeypatch.setattr("service.store.redis_store.STORE_CHUNK_CHECKS", 3)
+    handed: list[list[str]] = []
+    readable: list[bool] = []
+
+    def on_stored(ids: list[str]) -> None:
+        first = sum(len(chunk) for chunk in handed)
+        readable.extend(store.get_check("acme", cid).status == "queued"
+                        and store.get_request(cid) == merge_request(SHARED_MAP, _variant(first + k))
+                        for k, cid in enumerate(ids))
+        handed.append(list(ids))
+
+    checks = [NewCheck(_variant(i), label=f"v{i}") for i in range(7)]
+    batch_id, ids = store.create_checks("acme", checks, as_batch=True, shared=SHARED_MAP,
+                                        on_stored=on_stored)
+    assert [cid for chunk in handed for cid in chunk] == ids and readable == [True] * 7
+    if not isinstance(store, SqliteStore):
+        assert [len(chunk) for chunk in handed] == [3, 3, 1]
+    batch = store.get_batch("acme", batch_id)
+    assert list(batch.check_ids) == ids and batch.counts_by_status.get("queued") == 7
+
+
+def test_redis_batch_is_invisible_until_all_chunks_are_stored(clock, monkeypatch):
+    # A batch id must not answer (nor be listed) before every check is stored; a failure
+    # part-way leaves the stored chunks queued and gives the rest of the quota back.
+    from tests.conftest import _redis_store
+
+    monkeypatch.setattr("service.store.redis_store.STORE_CHUNK_CHECKS", 2)
+    gen = _redis_store(clock)
+    store = next(gen)
+    try:
+        seen: list[int] = []
+
+        def on_stored(ids: list[str]) -> None:
+            seen.append(len(store.list_batches("acme")))
+            if len(seen) == 2:
+                raise ConnectionError("broker gone")
+
+        checks = [NewCheck({"i": i}) for i in range(5)]
+        with pytest.raises(ConnectionError):
+            store.create_checks("acme", checks, as_batch=True, max_unfinished=10,
+                                on_stored=on_stored)
+        assert seen == [0, 0] and store.list_batches("acme") == []
+        # chunks 1 and 2 (4 checks) were stored and stay queued; the fifth gave its place back
+        assert store.count_unfinished("acme") == 4
+
+        def count_visible(ids: list[str]) -> None:
+            seen.append(len(store.list_batches("acme")))
+
+        seen.clear()
+        batch_id, _ = store.create_checks("acme", checks, as_batch=True,
+                                            on_stored=count_visible)
+        assert seen == [0, 0, 0] and [b.id for b in store.list_batches("acme")] == [batch_id]
+        assert store.get_batch("acme", batch_id).counts_by_status.get("queued") == 5
+    finally:
+        gen.close()

@@ -170,12 +170,12 @@ def create_with_quota(create: Callable[[], str]) -> str:
 
 
 def store_checks(checks: list[NewCheck], **kwargs: Any) -> tuple[str | None, list[str]]:
-    """Store for the current tenant under its unfinished-checks quota, then enqueue the ids."""
+    """Store for the current tenant under its unfinished-checks quota; the ids are queued as the
+    store reports them stored (chunk by chunk for a large batch in Redis)."""
     limit = int(tenant_limit(current_app.config, tenant(), "max_unfinished"))
-    batch_id, ids = store().create_checks(tenant(), checks, max_unfinished=limit, **kwargs)
     enqueue = current_app.extensions["ballast"]["enqueue"]
-    enqueue(ids)
-    return batch_id, ids
+    return store().create_checks(tenant(), checks, max_unfinished=limit, on_stored=enqueue,
+                                 **kwargs)
 
 
 def check_view(record: CheckRecord) -> dict[str, Any]:

@@ -15,6 +15,7 @@ from __future__ import annotations
 
 import hashlib
 import json
+from collections.abc import Callable
 from dataclasses import dataclass, field
 from typing import Any, Literal, Protocol
 
@@ -111,6 +112,10 @@ class NewCheck:
             return self.request_json
         return canonical_json(self.request)
 
+    def stored_size(self) -> int:
+        """Length of ``request_json`` when given, else 0 (not worth serialising to find out)."""
+        return len(self.request_json) if self.request_json is not None else 0
+
     def stored_text(self) -> str:
         text = self.stored_json()
         return text.decode("utf-8") if isinstance(text, bytes) else text
@@ -180,12 +185,17 @@ class Store(Protocol):
         self, tenant: str, checks: list[NewCheck], *, batch_label: str | None = None,
         as_batch: bool = False, shared: dict[str, Any] | None = None,
         max_unfinished: int | None = None,
+        on_stored: Callable[[list[str]], None] | None = None,
     ) -> tuple[str | None, list[str]]:
-        """Store requests atomically as ``queued``; returns (batch id or None, check ids).
+        """Store requests as ``queued``; returns (batch id or None, check ids).
 
         ``shared`` (batches only) is stored once by content hash and merged under each variant.
         Raises :class:`QuotaExceededError` (storing nothing) when the tenant would go above
-        ``max_unfinished`` queued+running checks.
+        ``max_unfinished`` queued+running checks. ``on_stored(ids)`` is called once the checks
+        ``ids`` are stored (a store may call it several times, chunk by chunk, so that they can
+        be queued while the rest is written); a batch's record is written after all its checks,
+        so a batch is visible only once complete. If storing fails part-way, the checks already
+        stored stay queued (they were handed to ``on_stored``) and the rest are not stored.
         """
         ...
 

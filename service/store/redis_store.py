@@ -39,6 +39,25 @@ from service.store.base import (
 from service.store.ids import new_batch_id, new_check_id
 from service.store.jsontext import loads_json
 
+STORE_CHUNK_BYTES = 4_000_000  # request bytes per MULTI/EXEC while storing many checks
+STORE_CHUNK_CHECKS = 200
+
+
+def _chunks(checks: list[NewCheck]) -> list[tuple[int, int]]:
+    """(start, stop) ranges of at most ``STORE_CHUNK_CHECKS`` checks and, where a check allows,
+    about ``STORE_CHUNK_BYTES`` of stored request each."""
+    ranges: list[tuple[int, int]] = []
+    start, size = 0, 0
+    for i, check in enumerate(checks):
+        size += check.stored_size()
+        if i + 1 - start >= STORE_CHUNK_CHECKS or size >= STORE_CHUNK_BYTES:
+            ranges.append((start, i + 1))
+            start, size = i + 1, 0
+    if start < len(checks):
+        ranges.append((start, len(checks)))
+    return ranges
+
+
 # Shared Lua helper: move a check from its current status to ``to`` and keep every index in step.
 _LUA_MOVE = """
 local function move(P, id, ck, from, to, now, ttl)
@@ -253,61 +272,88 @@ class RedisStore:
         self, tenant: str, checks: list[NewCheck], *, batch_label: str | None = None,
         as_batch: bool = False, shared: dict[str, Any] | None = None,
         max_unfinished: int | None = None,
+        on_stored: Callable[[list[str]], None] | None = None,
     ) -> tuple[str | None, list[str]]:
+        """Reserve the tenant's quota (Lua), then write the checks in chunks of about
+        ``STORE_CHUNK_BYTES`` (one MULTI/EXEC each), calling ``on_stored`` after each chunk so
+        that workers start while the rest is written; the batch record is written last, so the
+        batch becomes visible only when all its checks are stored."""
         now = self.clock()
         ttl = self._ttl
         batch_id = new_batch_id() if as_batch else None
         shared_hash = content_hash(shared) if shared is not None else None
         ids = [new_check_id() for _ in checks]
         open_key = f"{self.p}t:{tenant}:open"
-        payloads = [c.stored_json() for c in checks]  # bytes go to Redis as they are
-        # reserve the tenant's quota atomically (Lua), then write everything in one MULTI/EXEC;
-        # a failed write gives the reservation back
         accepted, unfinished = self._reserve(
             keys=[open_key], args=[-1 if max_unfinished is None else max_unfinished, *ids])
         if not int(accepted):
             raise QuotaExceededError(int(max_unfinished or 0), int(unfinished), len(checks))
+        stored = 0
         try:
-            pipe = self.r.pipeline(transaction=True)
             if shared is not None:
                 blob = f"{self.p}blob:{shared_hash}"
+                pipe = self.r.pipeline(transaction=True)
                 pipe.set(blob, canonical_json(shared), ex=ttl, nx=True)
                 pipe.expire(blob, ttl)
+                pipe.execute()
+            for start, stop in _chunks(checks):
+                self._store_chunk(tenant, ids, checks, start, stop, now, batch_id, shared_hash)
+                stored = stop
+                if on_stored is not None:
+                    on_stored(ids[start:stop])
             if batch_id is not None:
-                bkey = f"{self.p}batch:{batch_id}"
-                pipe.hset(bkey, mapping={
-                    "tenant": tenant, "created_at": _t(now), "label": batch_label or "",
-                    "size": len(checks), "shared_hash": shared_hash or "",
-                })
-                pipe.rpush(f"{bkey}:ids", *ids)
-                pipe.hset(f"{bkey}:counts", "s:queued", len(checks))
-                for key in (bkey, f"{bkey}:ids", f"{bkey}:counts"):
-                    pipe.expire(key, ttl)
-                tb = f"{self.p}t:{tenant}:batches"
-                pipe.zadd(tb, {batch_id: now})
-                pipe.zremrangebyscore(tb, "-inf", now - self.retention_s)
-                pipe.expire(tb, ttl)
-            for seq, (cid, c, payload) in enumerate(zip(ids, checks, payloads, strict=True)):
-                ck = f"{self.p}check:{cid}"
-                pipe.hset(ck, mapping={
-                    "tenant": tenant, "status": "queued", "created_at": _t(now),
-                    "updated_at": _t(now), "attempts": 0, "batch_id": batch_id or "",
-                    "seq": seq, "label": c.label if c.label is not None else "",
-                    "shared_hash": shared_hash or "",
-                })
-                pipe.expire(ck, ttl)
-                pipe.set(f"{self.p}req:{cid}", payload, ex=ttl)
-            if ids:
-                pipe.zadd(f"{self.p}queued", dict.fromkeys(ids, now))
-            pipe.execute()
+                self._store_batch(tenant, batch_id, batch_label, len(checks), shared_hash, now)
         except BaseException:
-            if ids:
+            if stored < len(ids):  # stored chunks stay (they run); the rest gives its quota back
                 try:
-                    self.r.srem(open_key, *ids)
+                    self.r.srem(open_key, *ids[stored:])
                 except redis.RedisError:
                     pass  # the purge drops reserved ids that never got a record
             raise
         return batch_id, ids
+
+    def _store_chunk(self, tenant: str, ids: list[str], checks: list[NewCheck], start: int,
+                     stop: int, now: float, batch_id: str | None,
+                     shared_hash: str | None) -> None:
+        """Checks ``start:stop`` as ``queued`` (with their batch's id list and counts)."""
+        ttl = self._ttl
+        pipe = self.r.pipeline(transaction=True)
+        for seq in range(start, stop):
+            cid, c = ids[seq], checks[seq]
+            ck = f"{self.p}check:{cid}"
+            pipe.hset(ck, mapping={
+                "tenant": tenant, "status": "queued", "created_at": _t(now),
+                "updated_at": _t(now), "attempts": 0, "batch_id": batch_id or "",
+                "seq": seq, "label": c.label if c.label is not None else "",
+                "shared_hash": shared_hash or "",
+            })
+            pipe.expire(ck, ttl)
+            pipe.set(f"{self.p}req:{cid}", c.stored_json(), ex=ttl)  # bytes go as they are
+        pipe.zadd(f"{self.p}queued", dict.fromkeys(ids[start:stop], now))
+        if batch_id is not None:
+            bkey = f"{self.p}batch:{batch_id}"
+            pipe.rpush(f"{bkey}:ids", *ids[start:stop])
+            pipe.hincrby(f"{bkey}:counts", "s:queued", stop - start)
+            for key in (f"{bkey}:ids", f"{bkey}:counts"):
+                pipe.expire(key, ttl)
+        pipe.execute()
+
+    def _store_batch(self, tenant: str, batch_id: str, label: str | None, size: int,
+                     shared_hash: str | None, now: float) -> None:
+        """The batch's own record and its place in the tenant's list: written last."""
+        ttl = self._ttl
+        bkey = f"{self.p}batch:{batch_id}"
+        pipe = self.r.pipeline(transaction=True)
+        pipe.hset(bkey, mapping={
+            "tenant": tenant, "created_at": _t(now), "label": label or "",
+            "size": size, "shared_hash": shared_hash or "",
+        })
+        pipe.expire(bkey, ttl)
+        tb = f"{self.p}t:{tenant}:batches"
+        pipe.zadd(tb, {batch_id: now})
+        pipe.zremrangebyscore(tb, "-inf", now - self.retention_s)
+        pipe.expire(tb, ttl)
+        pipe.execute()
 
     # -- reading ----------------------------------------------------------------------------------
     def _records(self, ids: list[str], with_verdict: bool) -> list[CheckRecord | None]:

@@ -188,6 +188,7 @@ class SqliteStore:
         self, tenant: str, checks: list[NewCheck], *, batch_label: str | None = None,
         as_batch: bool = False, shared: dict[str, Any] | None = None,
         max_unfinished: int | None = None,
+        on_stored: Callable[[list[str]], None] | None = None,
     ) -> tuple[str | None, list[str]]:
         now = self.clock()
         batch_id = new_batch_id() if as_batch else None
@@ -219,6 +220,8 @@ class SqliteStore:
                 "VALUES (?, ?, 'queued', ?, ?, ?, ?, ?, ?, ?, ?)",
                 rows,
             )
+        if on_stored is not None:  # one transaction: handed over once, after the commit
+            on_stored(ids)
         return batch_id, ids
 
     # -- reading ----------------------------------------------------------------------------------

@@ -147,6 +147,10 @@ def main() -> None:
                                            timeout=30).json()["finished"],
                        3600, "the batch to finish", every_s=0.1)
             finished_at = time.perf_counter()
+            finished_cpu_s = tree_cpu_seconds(roots) - service_cpu_before
+            finished_group_cpu = {name: tree_cpu_seconds(pids) - group_cpu_before[name]
+                                  for name, pids in groups.items()}
+            finished_client_cpu_s = time.process_time() - client_cpu_before
             got = [session.get(f"{base}/v1/checks/{cid}", timeout=30).json()
                    for cid in accepted["check_ids"]]
             fetched_at = time.perf_counter()
@@ -170,11 +174,15 @@ def main() -> None:
         print(f"{name:<32} {wall:7.2f} s  {len(batch) / wall:6.1f} checks/s  "
               f"wall/engine serial {wall / engine_s:5.2f}  "
               f"wall/(engine/{args.workers}) {wall / ideal_s:5.2f}")
-    print(f"CPU used by the service (API, workers, store, broker) for the batch: "
-          f"{service_cpu_s:.1f} s = {service_cpu_s / engine_cpu_s:.2f} x the engine's own CPU "
-          f"({engine_cpu_s:.1f} s): "
-          + ", ".join(f"{name} {cpu:.1f} s" for name, cpu in group_cpu.items())
-          + f"; this client {client_cpu_s:.1f} s")
+    for window, total, by_group, client in (
+            ("until the batch finished", finished_cpu_s, finished_group_cpu,
+             finished_client_cpu_s),
+            ("until all verdicts were read", service_cpu_s, group_cpu, client_cpu_s)):
+        print(f"CPU used by the service (API, workers, store, broker) {window}: "
+              f"{total:.1f} s = {total / engine_cpu_s:.2f} x the engine's own CPU "
+              f"({engine_cpu_s:.1f} s): "
+              + ", ".join(f"{name} {cpu:.1f} s" for name, cpu in by_group.items())
+              + f"; this client {client:.1f} s")
     if task_s:
         print(f"in the worker: {1e3 * statistics.mean(task_s):.1f} ms per task on average "
               f"(engine alone {1e3 * engine_s / len(batch):.1f} ms); first task received to last "
