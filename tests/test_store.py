@@ -456,3 +456,36 @@ def test_redis_batch_is_invisible_until_all_chunks_are_stored(clock, monkeypatch
         assert store.get_batch("acme", batch_id).counts_by_status.get("queued") == 5
     finally:
         gen.close()
+
+
+def test_redis_reads_a_shared_map_once_per_store_object(clock, monkeypatch):
+    # A blob key is the SHA-256 of its content (content addressing), so its text can be kept:
+    # the variants of a batch all read back the same merged requests with one read of the map.
+    from tests.conftest import _redis_store
+
+    gen = _redis_store(clock)
+    store = next(gen)
+    try:
+        checks = [NewCheck(_variant(i)) for i in range(4)]
+        _, ids = store.create_checks("acme", checks, as_batch=True, shared=SHARED_MAP)
+        blob_reads: list[str] = []
+        plain_get = store.r.get
+
+        def counting_get(key):
+            if ":blob:" in key:
+                blob_reads.append(key)
+            return plain_get(key)
+
+        monkeypatch.setattr(store.r, "get", counting_get)
+        assert [store.get_request(cid) for cid in ids] == [
+            merge_request(SHARED_MAP, _variant(i)) for i in range(4)]
+        assert len(blob_reads) == 1
+        monkeypatch.setattr("service.store.redis_store.SHARED_CACHE_ENTRIES", 1)
+        other = {**SHARED_MAP, "devices": [{"name": "q2"}]}
+        _, (cid,) = store.create_checks("acme", [NewCheck(_variant(9))], as_batch=True,
+                                        shared=other)
+        assert store.get_request(cid) == merge_request(other, _variant(9))
+        assert store.get_request(ids[0]) == merge_request(SHARED_MAP, _variant(0))
+        assert len(blob_reads) == 3  # the second map pushed the first out of a one-entry cache
+    finally:
+        gen.close()

@@ -41,6 +41,7 @@ from service.store.jsontext import loads_json
 
 STORE_CHUNK_BYTES = 4_000_000  # request bytes per MULTI/EXEC while storing many checks
 STORE_CHUNK_CHECKS = 200
+SHARED_CACHE_ENTRIES = 64  # shared maps kept per store object (each a few kilobytes)
 
 
 def _chunks(checks: list[NewCheck]) -> list[tuple[int, int]]:
@@ -253,6 +254,7 @@ class RedisStore:
         self._idem_begin = self.r.register_script(_LUA_IDEM_BEGIN)
         self._idem_release = self.r.register_script(_LUA_IDEM_RELEASE)
         self._reserve = self.r.register_script(_LUA_RESERVE)
+        self._shared_texts: dict[str, str] = {}  # shared maps by content hash (immutable)
 
     @property
     def _ttl(self) -> int:
@@ -391,11 +393,21 @@ class RedisStore:
             return None
         shared = None
         if shared_hash:
-            body = self.r.get(f"{self.p}blob:{shared_hash}")
+            body = self._shared_texts.get(shared_hash)
             if body is None:
-                return None
+                body = self.r.get(f"{self.p}blob:{shared_hash}")
+                if body is None:
+                    return None
+                self._remember_shared(shared_hash, body)
             shared = loads_json(body)
         return merge_request(shared, loads_json(text))
+
+    def _remember_shared(self, shared_hash: str, body: str) -> None:
+        """Keep a shared map's text: a ``blob:`` key is named by the SHA-256 of its content, so
+        the text under a hash never changes (the workers of a batch read it once each)."""
+        if len(self._shared_texts) >= SHARED_CACHE_ENTRIES:
+            self._shared_texts.pop(next(iter(self._shared_texts)))
+        self._shared_texts[shared_hash] = body
 
     @staticmethod
     def _split_counts(raw: dict[str, str]) -> tuple[dict[str, int], dict[str, int]]:
@@ -471,7 +483,8 @@ class RedisStore:
             self.p, check_id, _t(now), _t(now + lease_s), int(max_attempts), self._ttl,
             "gave up after %d attempts: every attempt ended its worker or outlived its lease",
         ])
-        return self.get_check_any(check_id) if int(outcome) == 1 else None
+        # a check just claimed is running: it has no verdict to read
+        return self._records([check_id], with_verdict=False)[0] if int(outcome) == 1 else None
 
     def complete(self, check_id: str, verdict: dict[str, Any]) -> bool:
         summary = summarize_verdict(verdict)
