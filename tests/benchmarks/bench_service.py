@@ -1,19 +1,23 @@
 """End-to-end service benchmark: a batch through HTTP, the queue and worker processes.
 
     python -m tests.benchmarks.bench_service [--variants 500] [--points 401] [--workers 2]
-                                             [--layout redis|embedded] [--arrays packed|lists]
+                                             [--rounds 3] [--layout redis|embedded]
+                                             [--arrays packed|lists]
 
-Builds seeded invented variants (5 ports: 2 external, 3 probes; ``tests.queue_variants``), times
-the engine on them in this process (``run_check_json``, one after the other: the engine's own
-compute time), then starts the API (gunicorn) and one Celery worker with ``--workers`` processes,
-exactly as ``ballast serve`` does, submits all variants as ONE batch (POST /v1/batches, JSON;
-the arrays packed as base64 float64, or as JSON lists with ``--arrays lists``; the engine baseline
-reads the same form), polls every 0.1 s until the batch has finished and reads every verdict
-back (GET /v1/checks/{id}).
+Builds seeded invented variants (5 ports: 2 external, 3 probes; ``tests.queue_variants``), starts
+the API (gunicorn) and one Celery worker with ``--workers`` processes, exactly as ``ballast serve``
+does, and then, ``--rounds`` times: times the engine on the variants in this process
+(``run_check_json``, one after the other: the engine's own compute time, measured next to each
+round because a shared machine's speed drifts), submits all variants as ONE batch
+(POST /v1/batches, JSON; the arrays packed as base64 float64, or as JSON lists with
+``--arrays lists``; the engine baseline reads the same form), polls every 0.1 s until the batch
+has finished and reads every verdict back (GET /v1/checks/{id}).
 
-Prints checks per second and the ratio of end-to-end wall time to the engine's compute time, both
-against the serial engine time and against that time divided by the number of worker processes
-(the ideal parallel time); the service's target is an overhead of at most 20 %. The layout is a
+Prints, per round, checks per second and the ratio of end-to-end wall time (from sending the
+POST) to the engine's compute time, both against the serial engine time and against that time
+divided by the number of worker processes (the ideal parallel time), the CPU used by each part of
+the service, and the median ratio over the rounds; the service's target is an overhead of at most
+20 % (ratio to the serial engine time <= 1.2). The layout is a
 private redis-server on a spare port (default when redis-server is installed) or the embedded
 SQLite store and broker. Nothing is asserted: this prints ratios.
 """
@@ -35,6 +39,7 @@ import shutil
 import statistics
 import tempfile
 import time
+from dataclasses import dataclass
 from datetime import datetime
 from pathlib import Path
 
@@ -74,12 +79,31 @@ def batch_body(batch: list, arrays: str = "lists") -> dict:
     }
 
 
+@dataclass
+class Round:
+    """One submission of the batch, with the engine timed just before it."""
+
+    engine_s: float
+    engine_cpu_s: float
+    submitted_to_finished_s: float
+    submitted_to_read_s: float
+    post_s: float
+    cpu_finished: dict[str, float]  # process group -> CPU seconds until the batch finished
+    cpu_read: dict[str, float]  # ... until every verdict was read
+    task_s: list[float]
+    span_s: float
+    done: int
+    same: int
+
+
 def main() -> None:
     parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     parser.add_argument("--variants", type=int, default=500)
     parser.add_argument("--points", type=int, default=401)
     parser.add_argument("--workers", type=int, default=2)
     parser.add_argument("--api-processes", type=int, default=2)
+    parser.add_argument("--rounds", type=int, default=3,
+                        help="submissions of the batch, each after its own engine timing")
     parser.add_argument("--arrays", choices=("packed", "lists"), default="packed",
                         help="how the variants' arrays travel: packed (base64 float64) or lists")
     parser.add_argument("--layout", choices=("redis", "embedded"),
@@ -88,16 +112,13 @@ def main() -> None:
 
     print(f"{args.variants} variants, {args.points} points, {len(PORTS)} ports; "
           f"{args.workers} worker processes, {args.api_processes} API processes, "
-          f"layout {args.layout}, arrays {args.arrays}; "
+          f"layout {args.layout}, arrays {args.arrays}, {args.rounds} rounds; "
           f"load average {os.getloadavg()[0]:.1f} at start")
     batch = variants(args.variants, points=args.points)
     encode = packed if args.arrays == "packed" else dict
     requests_ = [encode(v.request) for v in batch]
-    cpu_start = time.process_time()
-    engine_s, expected = engine_seconds(requests_)
-    engine_cpu_s = time.process_time() - cpu_start
-    print(f"engine alone (serial, this process): {engine_s:.2f} s, "
-          f"{1e3 * engine_s / len(batch):.1f} ms per check")
+    body = json.dumps(batch_body(batch, args.arrays))
+    print(f"request body: {len(body) / 1e6:.0f} MB")
 
     with tempfile.TemporaryDirectory(prefix="ballast-bench-") as tmp:
         redis_server = None
@@ -122,74 +143,97 @@ def main() -> None:
         supervisor.start()
         session = requests.Session()
         session.headers["Authorization"] = f"Bearer {token}"
-        base = options.base_url
+        rounds: list[Round] = []
         try:
-            wait_until(lambda: _status(session, base + "/readyz") == 200, 120,
+            wait_until(lambda: _status(session, options.base_url + "/readyz") == 200, 120,
                        "the service to be ready", every_s=0.2)
-            body = json.dumps(batch_body(batch, args.arrays))
-            print(f"request body: {len(body) / 1e6:.0f} MB")
             groups = {c.name: [c.process.pid] for c in supervisor.children
                       if c.process is not None}
             if redis_server is not None and redis_server.process is not None:
                 groups["redis"] = [redis_server.process.pid]
-            roots = [pid for pids in groups.values() for pid in pids]
-            service_cpu_before = tree_cpu_seconds(roots)
-            group_cpu_before = {name: tree_cpu_seconds(pids) for name, pids in groups.items()}
-            client_cpu_before = time.process_time()
-
-            start = time.perf_counter()
-            response = session.post(base + "/v1/batches", data=body,
-                                    headers={"Content-Type": "application/json"}, timeout=600)
-            response.raise_for_status()
-            accepted_at = time.perf_counter()
-            accepted = response.json()
-            wait_until(lambda: session.get(f"{base}/v1/batches/{accepted['id']}",
-                                           timeout=30).json()["finished"],
-                       3600, "the batch to finish", every_s=0.1)
-            finished_at = time.perf_counter()
-            finished_cpu_s = tree_cpu_seconds(roots) - service_cpu_before
-            finished_group_cpu = {name: tree_cpu_seconds(pids) - group_cpu_before[name]
-                                  for name, pids in groups.items()}
-            finished_client_cpu_s = time.process_time() - client_cpu_before
-            got = [session.get(f"{base}/v1/checks/{cid}", timeout=30).json()
-                   for cid in accepted["check_ids"]]
-            fetched_at = time.perf_counter()
-            service_cpu_s = tree_cpu_seconds(roots) - service_cpu_before
-            group_cpu = {name: tree_cpu_seconds(pids) - group_cpu_before[name]
-                         for name, pids in groups.items()}
-            client_cpu_s = time.process_time() - client_cpu_before
-            task_s, span_s = worker_log_times(config.data_dir / "logs" / "worker.log")
+            for number in range(1, args.rounds + 1):
+                rounds.append(one_round(session, options.base_url, body, requests_, groups,
+                                        config.data_dir / "logs" / "worker.log"))
+                report_round(number, rounds[-1], len(batch), args.workers)
         finally:
             supervisor.stopping = True
             supervisor.stop()
             if redis_server is not None:
                 redis_server.stop()
 
-    done = sum(1 for g in got if g["status"] == "done")
-    same = sum(1 for g, e in zip(got, expected, strict=True)
-               if g.get("verdict") == json.loads(json.dumps(e)))
-    ideal_s = engine_s / args.workers
-    for name, wall in (("accepted -> finished", finished_at - start),
-                       ("accepted -> all verdicts read", fetched_at - start)):
-        print(f"{name:<32} {wall:7.2f} s  {len(batch) / wall:6.1f} checks/s  "
-              f"wall/engine serial {wall / engine_s:5.2f}  "
-              f"wall/(engine/{args.workers}) {wall / ideal_s:5.2f}")
-    for window, total, by_group, client in (
-            ("until the batch finished", finished_cpu_s, finished_group_cpu,
-             finished_client_cpu_s),
-            ("until all verdicts were read", service_cpu_s, group_cpu, client_cpu_s)):
-        print(f"CPU used by the service (API, workers, store, broker) {window}: "
-              f"{total:.1f} s = {total / engine_cpu_s:.2f} x the engine's own CPU "
-              f"({engine_cpu_s:.1f} s): "
-              + ", ".join(f"{name} {cpu:.1f} s" for name, cpu in by_group.items())
-              + f"; this client {client:.1f} s")
-    if task_s:
-        print(f"in the worker: {1e3 * statistics.mean(task_s):.1f} ms per task on average "
-              f"(engine alone {1e3 * engine_s / len(batch):.1f} ms); first task received to last "
-              f"finished {span_s:.2f} s")
-    print(f"POST /v1/batches took {accepted_at - start:.2f} s; "
-          f"{done}/{len(batch)} done, {same}/{len(batch)} verdicts identical to the engine's; "
-          f"load average {os.getloadavg()[0]:.1f} at end")
+    if rounds:
+        ratios = [r.submitted_to_finished_s / r.engine_s for r in rounds]
+        print(f"summary over {len(rounds)} rounds: submitted -> finished / engine serial: median "
+              f"{statistics.median(ratios):.2f} (min {min(ratios):.2f}, max {max(ratios):.2f}); "
+              f"target <= 1.20; median "
+              f"{statistics.median(len(batch) / r.submitted_to_finished_s for r in rounds):.1f}"
+              f" checks/s; load average {os.getloadavg()[0]:.1f} at end")
+
+
+def one_round(session: requests.Session, base: str, body: str, requests_: list[dict],
+              groups: dict[str, list[int]], worker_log: Path) -> Round:
+    """Time the engine on ``requests_`` in this process, then submit the batch once, wait for
+    it to finish and read every verdict back."""
+    cpu_start = time.process_time()
+    engine_s, expected = engine_seconds(requests_)
+    engine_cpu_s = time.process_time() - cpu_start
+    log_offset = worker_log.stat().st_size if worker_log.exists() else 0
+
+    def cpu_now() -> dict[str, float]:
+        out = {name: tree_cpu_seconds(pids) for name, pids in groups.items()}
+        out["client"] = time.process_time()
+        return out
+
+    before = cpu_now()
+    start = time.perf_counter()
+    response = session.post(base + "/v1/batches", data=body,
+                            headers={"Content-Type": "application/json"}, timeout=600)
+    response.raise_for_status()
+    accepted_at = time.perf_counter()
+    accepted = response.json()
+    wait_until(lambda: session.get(f"{base}/v1/batches/{accepted['id']}",
+                                   timeout=30).json()["finished"],
+               3600, "the batch to finish", every_s=0.1)
+    finished_at = time.perf_counter()
+    at_finish = cpu_now()
+    got = [session.get(f"{base}/v1/checks/{cid}", timeout=30).json()
+           for cid in accepted["check_ids"]]
+    read_at = time.perf_counter()
+    at_read = cpu_now()
+    task_s, span_s = worker_log_times(worker_log, log_offset)
+    return Round(
+        engine_s=engine_s, engine_cpu_s=engine_cpu_s,
+        submitted_to_finished_s=finished_at - start, submitted_to_read_s=read_at - start,
+        post_s=accepted_at - start,
+        cpu_finished={k: at_finish[k] - before[k] for k in before},
+        cpu_read={k: at_read[k] - before[k] for k in before},
+        task_s=task_s, span_s=span_s,
+        done=sum(1 for g in got if g["status"] == "done"),
+        same=sum(1 for g, e in zip(got, expected, strict=True)
+                 if g.get("verdict") == json.loads(json.dumps(e))),
+    )
+
+
+def report_round(number: int, r: Round, n: int, workers: int) -> None:
+    print(f"round {number}: engine alone (serial, this process) {r.engine_s:.2f} s, "
+          f"{1e3 * r.engine_s / n:.1f} ms per check")
+    for name, wall in (("submitted -> finished", r.submitted_to_finished_s),
+                       ("submitted -> all verdicts read", r.submitted_to_read_s)):
+        print(f"  {name:<31} {wall:7.2f} s  {n / wall:6.1f} checks/s  "
+              f"wall/engine serial {wall / r.engine_s:5.2f}  "
+              f"wall/(engine/{workers}) {wall / (r.engine_s / workers):5.2f}")
+    for window, cpu in (("until the batch finished", r.cpu_finished),
+                        ("until all verdicts were read", r.cpu_read)):
+        service = sum(v for k, v in cpu.items() if k != "client")
+        print(f"  CPU of the service {window}: {service:.1f} s = "
+              f"{service / r.engine_cpu_s:.2f} x the engine's own ({r.engine_cpu_s:.1f} s): "
+              + ", ".join(f"{k} {v:.1f} s" for k, v in cpu.items() if k != "client")
+              + f"; this client {cpu['client']:.1f} s")
+    if r.task_s:
+        print(f"  in the worker: {1e3 * statistics.mean(r.task_s):.1f} ms per task on average;"
+              f" first task received to last finished {r.span_s:.2f} s")
+    print(f"  POST /v1/batches took {r.post_s:.2f} s; {r.done}/{n} done, "
+          f"{r.same}/{n} verdicts identical to the engine's")
 
 
 def tree_cpu_seconds(roots: list[int]) -> float:
@@ -219,10 +263,14 @@ def tree_cpu_seconds(roots: list[int]) -> float:
     return sum(cpu.get(pid, 0) for pid in inside) / tick
 
 
-def worker_log_times(path: Path) -> tuple[list[float], float]:
+def worker_log_times(path: Path, offset: int = 0) -> tuple[list[float], float]:
     """Task run times ("succeeded in X s") and the span from the first "received" to the last
-    "succeeded" line of the worker's log."""
-    text = path.read_text(errors="replace") if path.exists() else ""
+    "succeeded" line of the worker's log, from byte ``offset`` on."""
+    if not path.exists():
+        return [], 0.0
+    with path.open("rb") as log:
+        log.seek(offset)
+        text = log.read().decode(errors="replace")
     times = [float(m) for m in re.findall(r"succeeded in ([0-9.]+)s", text)]
     stamps = re.findall(r"^\[(\d{4}-\d\d-\d\d \d\d:\d\d:\d\d,\d{3}): INFO/\S+\] Task "
                         r"\S+ (received|succeeded)", text, flags=re.MULTILINE)
