@@ -232,3 +232,38 @@ def test_batch_envelope_errors(client, auth):
     assert "extra" in [e["field"] for e in problem["errors"]]
     assert client.get("/v1/batches?limit=0", headers=auth).status_code == 422
     assert client.get("/v1/batches?colour=red", headers=auth).status_code == 422
+
+
+def test_on_redis_an_invalid_late_variant_unqueues_the_early_ones(clock, monkeypatch):
+    # On Redis the first variants are stored and queued while later ones are still validated;
+    # a later invalid variant must still leave nothing behind (the service's contract: nothing
+    # of a rejected batch is stored, its messages find nothing to run, the quota is untouched).
+    from service.app import create_app
+    from service.auth import create_token
+    from tests.api_fixtures import FakeQueue, api_config
+    from tests.conftest import _redis_store
+
+    monkeypatch.setattr("service.store.redis_store.STORE_CHUNK_CHECKS", 2)
+    gen = _redis_store(clock)
+    store = next(gen)
+    try:
+        queue = FakeQueue()
+        client = create_app(api_config(store, queue)).test_client()
+        auth = {"Authorization": f"Bearer {create_token(store, 'acme')}"}
+        batch = _rlc_batch()
+        batch["variants"][3]["data"]["re"] = batch["variants"][3]["data"]["re"][:-1]
+        response = client.post("/v1/batches", json=batch, headers=auth)
+        problem = response.get_json()
+        assert response.status_code == 422 and response.mimetype == PROBLEM
+        assert problem["detail"].startswith(f"1 of {len(batch['variants'])} variants")
+        assert {e["field"][:len("variants.3.data")] for e in problem["errors"]} == {
+            "variants.3.data"}
+        assert len(queue.enqueued) == 2  # the first chunk went to the queue before variant 3
+        assert [store.claim(cid, 60, 3) for cid in queue.enqueued] == [None, None]
+        assert store.list_batches("acme") == [] and store.count_unfinished("acme") == 0
+        del batch["variants"][3]
+        accepted = client.post("/v1/batches", json=batch, headers=auth)
+        assert accepted.status_code == 202
+        assert queue.enqueued[2:] == accepted.get_json()["check_ids"]
+    finally:
+        gen.close()

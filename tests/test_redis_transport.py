@@ -81,3 +81,29 @@ def test_a_new_pool_gets_a_new_client(broker):
             assert after.ping()
     finally:
         channel.close()
+
+
+def test_collected_puts_push_in_order_when_the_block_ends(broker):
+    queue = Queue("bulk", Exchange("bulk", type="direct"), routing_key="bulk")
+    with broker.Producer() as producer:
+        channel = producer.channel
+        plain = redis.Redis.from_url(TEST_REDIS_URL)
+        key = channel.global_keyprefix + "bulk"
+        with channel.collected_puts():
+            for i in range(6):
+                producer.publish({"i": i}, exchange=queue.exchange, routing_key="bulk",
+                                 declare=[queue], serializer="json")
+            assert plain.llen(key) == 0  # nothing is pushed before the block ends
+        assert plain.llen(key) == 6
+        with pytest.raises(RuntimeError), channel.collected_puts():
+            producer.publish({"i": 99}, exchange=queue.exchange, routing_key="bulk",
+                             serializer="json")
+            raise RuntimeError("the caller failed part-way")
+        assert plain.llen(key) == 6  # a failed block pushes nothing
+        plain.close()
+    got: list[int] = []
+    with broker.Consumer(queue, accept=["json"]) as consumer:
+        consumer.register_callback(lambda body, message: (got.append(body["i"]), message.ack()))
+        while len(got) < 6:
+            broker.drain_events(timeout=5)
+    assert got == [0, 1, 2, 3, 4, 5]  # first published, first delivered (kombu's FIFO queues)

@@ -11,6 +11,7 @@ import json
 import subprocess
 import sys
 import threading
+from collections.abc import Sequence
 
 import pytest
 
@@ -424,7 +425,8 @@ def test_on_stored_hands_over_every_id_once_in_order_after_it_is_stored(store, m
 
 def test_redis_batch_is_invisible_until_all_chunks_are_stored(clock, monkeypatch):
     # A batch id must not answer (nor be listed) before every check is stored; a failure
-    # part-way leaves the stored chunks queued and gives the rest of the quota back.
+    # part-way deletes the chunks already stored (their queued messages then find nothing to
+    # run) and gives the whole quota back.
     from tests.conftest import _redis_store
 
     monkeypatch.setattr("service.store.redis_store.STORE_CHUNK_CHECKS", 2)
@@ -432,9 +434,11 @@ def test_redis_batch_is_invisible_until_all_chunks_are_stored(clock, monkeypatch
     store = next(gen)
     try:
         seen: list[int] = []
+        handed: list[str] = []
 
         def on_stored(ids: list[str]) -> None:
             seen.append(len(store.list_batches("acme")))
+            handed.extend(ids)
             if len(seen) == 2:
                 raise ConnectionError("broker gone")
 
@@ -442,20 +446,61 @@ def test_redis_batch_is_invisible_until_all_chunks_are_stored(clock, monkeypatch
         with pytest.raises(ConnectionError):
             store.create_checks("acme", checks, as_batch=True, max_unfinished=10,
                                 on_stored=on_stored)
-        assert seen == [0, 0] and store.list_batches("acme") == []
-        # chunks 1 and 2 (4 checks) were stored and stay queued; the fifth gave its place back
-        assert store.count_unfinished("acme") == 4
+        assert seen == [0, 0] and store.list_batches("acme") == [] and len(handed) == 4
+        assert [store.get_check_any(cid) for cid in handed] == [None] * 4
+        assert [store.get_request(cid) for cid in handed] == [None] * 4
+        assert store.claim(handed[0], 60, 3) is None  # a late message runs nothing
+        assert store.count_unfinished("acme") == 0
 
         def count_visible(ids: list[str]) -> None:
             seen.append(len(store.list_batches("acme")))
 
         seen.clear()
         batch_id, _ = store.create_checks("acme", checks, as_batch=True,
-                                            on_stored=count_visible)
+                                          on_stored=count_visible)
         assert seen == [0, 0, 0] and [b.id for b in store.list_batches("acme")] == [batch_id]
         assert store.get_batch("acme", batch_id).counts_by_status.get("queued") == 5
     finally:
         gen.close()
+
+
+class _Rejecting(Sequence):
+    """A lazy sequence of checks that raises when item ``bad`` is reached (as the API's
+    validating sequence does for an invalid variant)."""
+
+    def __init__(self, n: int, bad: int) -> None:
+        self.n, self.bad, self.made = n, bad, 0
+
+    def __len__(self) -> int:
+        return self.n
+
+    def __getitem__(self, i):
+        raise AssertionError("the store must iterate, not index")
+
+    def __iter__(self):
+        for i in range(self.n):
+            if i == self.bad:
+                raise ValueError(f"variant {i} is invalid")
+            self.made += 1
+            yield NewCheck({"i": i}, label=f"v{i}")
+
+
+def test_a_lazy_sequence_that_raises_leaves_nothing_stored(store, monkeypatch):
+    monkeypatch.setattr("service.store.redis_store.STORE_CHUNK_CHECKS", 3)
+    handed: list[str] = []
+    checks = _Rejecting(8, bad=7)
+    with pytest.raises(ValueError, match="variant 7"):
+        store.create_checks("acme", checks, as_batch=True, shared=SHARED_MAP,
+                            max_unfinished=8, on_stored=handed.extend)
+    assert checks.made == 7
+    # Redis had stored and handed over two chunks of three; SQLite writes nothing before the end
+    assert len(handed) == (0 if isinstance(store, SqliteStore) else 6)
+    assert all(store.get_check_any(cid) is None for cid in handed)
+    assert store.list_batches("acme") == [] and store.count_unfinished("acme") == 0
+    # the whole quota is free again
+    _, ids = store.create_checks("acme", [NewCheck({"i": i}) for i in range(8)],
+                                 max_unfinished=8)
+    assert len(ids) == 8
 
 
 def test_redis_reads_a_shared_map_once_per_store_object(clock, monkeypatch):

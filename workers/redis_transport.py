@@ -13,6 +13,9 @@ callback) for each publish and each acknowledgement (``Channel.conn_or_acquire``
 sampling profiler, that was three quarters of the worker's time spent acknowledging. The channel
 here keeps one client per connection pool: redis-py clients are safe to share, each command
 borrowing a connection from the pool.
+
+``Channel.collected_puts()`` lets a publisher of many messages (the API queueing a batch) push
+them in one pipelined round trip instead of one LPUSH round trip each.
 """
 
 from __future__ import annotations
@@ -22,6 +25,7 @@ from contextlib import contextmanager
 from typing import Any
 
 from kombu.transport import redis as kombu_redis
+from kombu.utils.json import dumps
 
 DEFAULT_RESTORE_INTERVAL_S = 10.0
 
@@ -38,6 +42,34 @@ class Channel(kombu_redis.Channel):
     restore_interval_s = DEFAULT_RESTORE_INTERVAL_S
     from_transport_options = (*kombu_redis.Channel.from_transport_options, "restore_interval_s")
     _shared_client: tuple[Any, Any] | None = None  # (pool, client on that pool)
+    _collected: list[tuple[str, str]] | None = None  # (queue key, message) inside collected_puts
+
+    @contextmanager
+    def collected_puts(self) -> Iterator[None]:
+        """Messages put on queues inside the block are pushed, in order, in one pipeline when it
+        ends (none if it raises: the caller's store keeps them ``queued`` for the reconciler)."""
+        if self._collected is not None:  # nested: the outer block pushes
+            yield
+            return
+        self._collected = []
+        try:
+            yield
+            pending = self._collected
+        finally:
+            self._collected = None
+        if pending:
+            with self.conn_or_acquire() as client:
+                pipe = client.pipeline(transaction=False)
+                for key, payload in pending:
+                    pipe.lpush(key, payload)
+                pipe.execute()
+
+    def _put(self, queue: str, message: dict[str, Any], **kwargs: Any) -> None:
+        if self._collected is None:
+            super()._put(queue, message, **kwargs)
+            return
+        priority = self._get_message_priority(message, reverse=False)
+        self._collected.append((self._q_for_pri(queue, priority), dumps(message)))
 
     @contextmanager
     def conn_or_acquire(self, client: Any = None) -> Iterator[Any]:

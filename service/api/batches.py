@@ -12,7 +12,8 @@ from __future__ import annotations
 import base64
 import binascii
 import json
-from typing import Any
+from collections.abc import Iterator, Sequence
+from typing import Any, overload
 
 from flask import current_app, g, request, url_for
 from flask_smorest import Blueprint
@@ -197,10 +198,8 @@ def _check_variant_count(n_variants: int, where: str) -> None:
                       errors=field_errors([(where, f"at most {limit} variants")]))
 
 
-def _validate_outline(outline: BatchOutline) -> tuple[str | None, dict[str, Any], list[str | None]]:
-    """The batch's label, shared map and variant labels, each variant parsed and validated on its
-    own and dropped before the next (``service.api.jsonbody.outline_batch``): the same checks and
-    error fields as the whole-body path."""
+def _outline_head(outline: BatchOutline) -> tuple[str | None, dict[str, Any]]:
+    """The batch's label and shared map, checked, and the number of variants checked."""
     invalid = _Invalid()
     label = loads_json(outline.label) if outline.label is not None else None
     _check_label(label, "label", invalid)
@@ -211,22 +210,66 @@ def _validate_outline(outline: BatchOutline) -> tuple[str | None, dict[str, Any]
         invalid.add("variants", "must be a non-empty list of variants")
     invalid.raise_if_any(len(outline.variants))
     _check_variant_count(len(outline.variants), "variants")
-    schema = CheckRequestSchema()
-    names: list[str | None] = []
-    for i, text in enumerate(outline.variants):
+    return label, shared
+
+
+class _OutlineChecks(Sequence[NewCheck]):
+    """The outline's variants as checks to store, each parsed and validated when it is reached
+    and dropped before the next (the same checks and error fields as the whole-body path).
+
+    Iterating yields the valid variants in order until the first invalid one; it then validates
+    the rest without yielding them and raises the 422 that names every problem, so the store
+    (``Store.create_checks``, which takes a lazy sequence) can write and queue the first
+    variants while later ones are still being validated, and deletes them again if one fails.
+    """
+
+    def __init__(self, outline: BatchOutline, shared: dict[str, Any]) -> None:
+        self._texts = outline.variants
+        self._shared = shared
+
+    def __len__(self) -> int:
+        return len(self._texts)
+
+    @overload
+    def __getitem__(self, index: int) -> NewCheck: ...
+    @overload
+    def __getitem__(self, index: slice) -> Sequence[NewCheck]: ...
+
+    def __getitem__(self, index: int | slice) -> NewCheck | Sequence[NewCheck]:
+        if isinstance(index, slice):
+            return [self[i] for i in range(*index.indices(len(self)))]
+        invalid = _Invalid()
+        check = self._check(range(len(self))[index], CheckRequestSchema(), invalid)
+        invalid.raise_if_any(len(self))
+        assert check is not None
+        return check
+
+    def __iter__(self) -> Iterator[NewCheck]:
+        schema = CheckRequestSchema()
+        invalid = _Invalid()
+        for i in range(len(self._texts)):
+            check = self._check(i, schema, invalid)
+            if check is not None and not invalid.pairs:
+                yield check
+        invalid.raise_if_any(len(self._texts))
+
+    def _check(self, i: int, schema: CheckRequestSchema, invalid: _Invalid) -> NewCheck | None:
+        text = self._texts[i]
         before = len(invalid.pairs)
         raw = loads_json(text)
         if _check_keys(raw, _VARIANT_KEYS, f"variants.{i}", invalid):
             _check_label(raw.get("label"), f"variants.{i}.label", invalid)
         name = raw.get("label") if isinstance(raw, dict) else None
-        names.append(name if isinstance(name, str) else None)
+        label = name if isinstance(name, str) else None
         if len(invalid.pairs) != before:  # not an object, unknown members or a bad label
             invalid.bad_variants += 1
-            continue
+            return None
         member = {k: v for k, v in raw.items() if k != "label"}
-        _validate_variant(schema, shared, i, names[-1], member, "variants", invalid)
-    invalid.raise_if_any(len(outline.variants))
-    return label, shared, names
+        bad_before = invalid.bad_variants
+        _validate_variant(schema, self._shared, i, label, member, "variants", invalid)
+        if invalid.bad_variants != bad_before:
+            return None
+        return NewCheck(None, label=label, request_json=text)
 
 
 def _accepted(batch_id: str) -> tuple[dict[str, Any], int, dict[str, str]]:
@@ -263,6 +306,7 @@ def submit_batch():
 
 
 def _submit_batch() -> tuple[dict[str, Any], int, dict[str, str]]:
+    checks: Sequence[NewCheck]
     if request.mimetype == "multipart/form-data":
         label, shared, variants = _parse_multipart_batch()
         fingerprint = content_hash({"label": label, "map": shared,
@@ -277,9 +321,8 @@ def _submit_batch() -> tuple[dict[str, Any], int, dict[str, str]]:
         outline = outline_batch(raw)
         if outline is not None:
             del raw
-            label, shared, names = _validate_outline(outline)
-            checks = [NewCheck(None, label=name, request_json=text)
-                      for name, text in zip(names, outline.variants, strict=True)]
+            label, shared = _outline_head(outline)
+            checks = _OutlineChecks(outline, shared)  # validated while being stored
         else:  # not of the usual shape: parsed whole, so that every problem is named
             body = json_object_body(raw)
             del raw

@@ -16,7 +16,7 @@ from __future__ import annotations
 
 import json
 import time
-from collections.abc import Callable
+from collections.abc import Callable, Sequence
 from typing import Any
 
 import redis
@@ -42,21 +42,6 @@ from service.store.jsontext import loads_json
 STORE_CHUNK_BYTES = 4_000_000  # request bytes per MULTI/EXEC while storing many checks
 STORE_CHUNK_CHECKS = 200
 SHARED_CACHE_ENTRIES = 64  # shared maps kept per store object (each a few kilobytes)
-
-
-def _chunks(checks: list[NewCheck]) -> list[tuple[int, int]]:
-    """(start, stop) ranges of at most ``STORE_CHUNK_CHECKS`` checks and, where a check allows,
-    about ``STORE_CHUNK_BYTES`` of stored request each."""
-    ranges: list[tuple[int, int]] = []
-    start, size = 0, 0
-    for i, check in enumerate(checks):
-        size += check.stored_size()
-        if i + 1 - start >= STORE_CHUNK_CHECKS or size >= STORE_CHUNK_BYTES:
-            ranges.append((start, i + 1))
-            start, size = i + 1, 0
-    if start < len(checks):
-        ranges.append((start, len(checks)))
-    return ranges
 
 
 # Shared Lua helper: move a check from its current status to ``to`` and keep every index in step.
@@ -271,20 +256,20 @@ class RedisStore:
 
     # -- accepting work ---------------------------------------------------------------------------
     def create_checks(
-        self, tenant: str, checks: list[NewCheck], *, batch_label: str | None = None,
+        self, tenant: str, checks: Sequence[NewCheck], *, batch_label: str | None = None,
         as_batch: bool = False, shared: dict[str, Any] | None = None,
         max_unfinished: int | None = None,
         on_stored: Callable[[list[str]], None] | None = None,
     ) -> tuple[str | None, list[str]]:
         """Reserve the tenant's quota (Lua), then write the checks in chunks of about
-        ``STORE_CHUNK_BYTES`` (one MULTI/EXEC each), calling ``on_stored`` after each chunk so
-        that workers start while the rest is written; the batch record is written last, so the
-        batch becomes visible only when all its checks are stored."""
+        ``STORE_CHUNK_BYTES`` (one MULTI/EXEC each) as ``checks`` yields them, calling
+        ``on_stored`` after each chunk so that workers start while the rest is written; the
+        batch record is written last. If anything fails, iterating ``checks`` included, the
+        checks already written are deleted again (:meth:`_discard`)."""
         now = self.clock()
-        ttl = self._ttl
         batch_id = new_batch_id() if as_batch else None
         shared_hash = content_hash(shared) if shared is not None else None
-        ids = [new_check_id() for _ in checks]
+        ids = [new_check_id() for _ in range(len(checks))]
         open_key = f"{self.p}t:{tenant}:open"
         accepted, unfinished = self._reserve(
             keys=[open_key], args=[-1 if max_unfinished is None else max_unfinished, *ids])
@@ -295,34 +280,41 @@ class RedisStore:
             if shared is not None:
                 blob = f"{self.p}blob:{shared_hash}"
                 pipe = self.r.pipeline(transaction=True)
-                pipe.set(blob, canonical_json(shared), ex=ttl, nx=True)
-                pipe.expire(blob, ttl)
+                pipe.set(blob, canonical_json(shared), ex=self._ttl, nx=True)
+                pipe.expire(blob, self._ttl)
                 pipe.execute()
-            for start, stop in _chunks(checks):
-                self._store_chunk(tenant, ids, checks, start, stop, now, batch_id, shared_hash)
-                stored = stop
-                if on_stored is not None:
-                    on_stored(ids[start:stop])
+            pending: list[NewCheck] = []
+            size = 0
+            for n, check in enumerate(checks, start=1):  # a lazy sequence may validate here
+                pending.append(check)
+                size += check.stored_size()
+                if (len(pending) >= STORE_CHUNK_CHECKS or size >= STORE_CHUNK_BYTES
+                        or n == len(ids)):
+                    first = stored
+                    stored = self._store_chunk(tenant, ids, pending, first, now, batch_id,
+                                               shared_hash)
+                    if on_stored is not None:
+                        on_stored(ids[first:stored])
+                    pending, size = [], 0
+            if pending or stored != len(ids):
+                raise ValueError(f"{stored + len(pending)} checks given where len() said "
+                                 f"{len(ids)}")
             if batch_id is not None:
-                self._store_batch(tenant, batch_id, batch_label, len(checks), shared_hash, now)
+                self._store_batch(tenant, batch_id, batch_label, len(ids), shared_hash, now)
         except BaseException:
-            if stored < len(ids):  # stored chunks stay (they run); the rest gives its quota back
-                try:
-                    self.r.srem(open_key, *ids[stored:])
-                except redis.RedisError:
-                    pass  # the purge drops reserved ids that never got a record
+            self._discard(tenant, ids, batch_id)
             raise
         return batch_id, ids
 
-    def _store_chunk(self, tenant: str, ids: list[str], checks: list[NewCheck], start: int,
-                     stop: int, now: float, batch_id: str | None,
-                     shared_hash: str | None) -> None:
-        """Checks ``start:stop`` as ``queued`` (with their batch's id list and counts)."""
+    def _store_chunk(self, tenant: str, ids: list[str], chunk: list[NewCheck], first: int,
+                     now: float, batch_id: str | None, shared_hash: str | None) -> int:
+        """``chunk`` as ``queued`` under ``ids[first:]`` (with its batch's id list and counts);
+        returns how many checks are stored now."""
         ttl = self._ttl
+        stop = first + len(chunk)
         pipe = self.r.pipeline(transaction=True)
-        for seq in range(start, stop):
-            cid, c = ids[seq], checks[seq]
-            ck = f"{self.p}check:{cid}"
+        for seq, c in enumerate(chunk, start=first):
+            ck = f"{self.p}check:{ids[seq]}"
             pipe.hset(ck, mapping={
                 "tenant": tenant, "status": "queued", "created_at": _t(now),
                 "updated_at": _t(now), "attempts": 0, "batch_id": batch_id or "",
@@ -330,15 +322,38 @@ class RedisStore:
                 "shared_hash": shared_hash or "",
             })
             pipe.expire(ck, ttl)
-            pipe.set(f"{self.p}req:{cid}", c.stored_json(), ex=ttl)  # bytes go as they are
-        pipe.zadd(f"{self.p}queued", dict.fromkeys(ids[start:stop], now))
+            pipe.set(f"{self.p}req:{ids[seq]}", c.stored_json(), ex=ttl)  # bytes as they are
+        pipe.zadd(f"{self.p}queued", dict.fromkeys(ids[first:stop], now))
         if batch_id is not None:
             bkey = f"{self.p}batch:{batch_id}"
-            pipe.rpush(f"{bkey}:ids", *ids[start:stop])
-            pipe.hincrby(f"{bkey}:counts", "s:queued", stop - start)
+            pipe.rpush(f"{bkey}:ids", *ids[first:stop])
+            pipe.hincrby(f"{bkey}:counts", "s:queued", stop - first)
             for key in (f"{bkey}:ids", f"{bkey}:counts"):
                 pipe.expire(key, ttl)
         pipe.execute()
+        return stop
+
+    def _discard(self, tenant: str, ids: list[str], batch_id: str | None) -> None:
+        """Undo a ``create_checks`` that did not finish: delete whatever was written of its
+        checks (all ids: a chunk whose EXEC failed on the way may or may not be there; a message
+        already queued for one then finds no check and does nothing, a worker already running one
+        finds no check to complete) and give the whole reservation back."""
+        try:
+            pipe = self.r.pipeline(transaction=True)
+            for cid in ids:
+                pipe.delete(f"{self.p}check:{cid}", f"{self.p}req:{cid}",
+                            f"{self.p}verdict:{cid}")
+            if ids:
+                pipe.zrem(f"{self.p}queued", *ids)
+                pipe.zrem(f"{self.p}leases", *ids)
+                pipe.srem(f"{self.p}t:{tenant}:open", *ids)
+            if batch_id is not None:
+                bkey = f"{self.p}batch:{batch_id}"
+                pipe.delete(bkey, f"{bkey}:ids", f"{bkey}:counts")
+                pipe.zrem(f"{self.p}t:{tenant}:batches", batch_id)
+            pipe.execute()
+        except redis.RedisError:
+            pass  # records left behind run as usual and expire; the purge drops reserved ids
 
     def _store_batch(self, tenant: str, batch_id: str, label: str | None, size: int,
                      shared_hash: str | None, now: float) -> None:

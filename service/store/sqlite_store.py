@@ -13,7 +13,7 @@ import os
 import sqlite3
 import threading
 import time
-from collections.abc import Callable, Iterator
+from collections.abc import Callable, Iterator, Sequence
 from contextlib import contextmanager
 from typing import Any
 
@@ -185,7 +185,7 @@ class SqliteStore:
 
     # -- accepting work ---------------------------------------------------------------------------
     def create_checks(
-        self, tenant: str, checks: list[NewCheck], *, batch_label: str | None = None,
+        self, tenant: str, checks: Sequence[NewCheck], *, batch_label: str | None = None,
         as_batch: bool = False, shared: dict[str, Any] | None = None,
         max_unfinished: int | None = None,
         on_stored: Callable[[list[str]], None] | None = None,
@@ -193,8 +193,8 @@ class SqliteStore:
         now = self.clock()
         batch_id = new_batch_id() if as_batch else None
         shared_hash = content_hash(shared) if shared is not None else None
-        ids = [new_check_id() for _ in checks]
-        rows = [
+        ids = [new_check_id() for _ in range(len(checks))]
+        rows = [  # iterating ``checks`` may validate each one, and raise: nothing is written
             (cid, tenant, now, now, now, batch_id, seq, c.label, c.stored_text(), shared_hash)
             for seq, (cid, c) in enumerate(zip(ids, checks, strict=True))
         ]

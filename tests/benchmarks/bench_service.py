@@ -92,6 +92,7 @@ class Round:
     cpu_read: dict[str, float]  # ... until every verdict was read
     task_s: list[float]
     span_s: float
+    first_received_s: float  # from sending the POST to the worker's first "received" line
     done: int
     same: int
 
@@ -117,7 +118,7 @@ def main() -> None:
     batch = variants(args.variants, points=args.points)
     encode = packed if args.arrays == "packed" else dict
     requests_ = [encode(v.request) for v in batch]
-    body = json.dumps(batch_body(batch, args.arrays))
+    body = json.dumps(batch_body(batch, args.arrays)).encode()  # sent as UTF-8 bytes, as read
     print(f"request body: {len(body) / 1e6:.0f} MB")
 
     with tempfile.TemporaryDirectory(prefix="ballast-bench-") as tmp:
@@ -170,7 +171,7 @@ def main() -> None:
               f" checks/s; load average {os.getloadavg()[0]:.1f} at end")
 
 
-def one_round(session: requests.Session, base: str, body: str, requests_: list[dict],
+def one_round(session: requests.Session, base: str, body: bytes, requests_: list[dict],
               groups: dict[str, list[int]], worker_log: Path) -> Round:
     """Time the engine on ``requests_`` in this process, then submit the batch once, wait for
     it to finish and read every verdict back."""
@@ -185,6 +186,7 @@ def one_round(session: requests.Session, base: str, body: str, requests_: list[d
         return out
 
     before = cpu_now()
+    sent_at = time.time()
     start = time.perf_counter()
     response = session.post(base + "/v1/batches", data=body,
                             headers={"Content-Type": "application/json"}, timeout=600)
@@ -200,14 +202,14 @@ def one_round(session: requests.Session, base: str, body: str, requests_: list[d
            for cid in accepted["check_ids"]]
     read_at = time.perf_counter()
     at_read = cpu_now()
-    task_s, span_s = worker_log_times(worker_log, log_offset)
+    task_s, first_received, span_s = worker_log_times(worker_log, log_offset)
     return Round(
         engine_s=engine_s, engine_cpu_s=engine_cpu_s,
         submitted_to_finished_s=finished_at - start, submitted_to_read_s=read_at - start,
         post_s=accepted_at - start,
         cpu_finished={k: at_finish[k] - before[k] for k in before},
         cpu_read={k: at_read[k] - before[k] for k in before},
-        task_s=task_s, span_s=span_s,
+        task_s=task_s, span_s=span_s, first_received_s=first_received - sent_at,
         done=sum(1 for g in got if g["status"] == "done"),
         same=sum(1 for g, e in zip(got, expected, strict=True)
                  if g.get("verdict") == json.loads(json.dumps(e))),
@@ -231,7 +233,8 @@ def report_round(number: int, r: Round, n: int, workers: int) -> None:
               + f"; this client {cpu['client']:.1f} s")
     if r.task_s:
         print(f"  in the worker: {1e3 * statistics.mean(r.task_s):.1f} ms per task on average;"
-              f" first task received to last finished {r.span_s:.2f} s")
+              f" first task received {r.first_received_s:.2f} s after the POST was sent, last"
+              f" finished {r.span_s:.2f} s after that")
     print(f"  POST /v1/batches took {r.post_s:.2f} s; {r.done}/{n} done, "
           f"{r.same}/{n} verdicts identical to the engine's")
 
@@ -263,11 +266,12 @@ def tree_cpu_seconds(roots: list[int]) -> float:
     return sum(cpu.get(pid, 0) for pid in inside) / tick
 
 
-def worker_log_times(path: Path, offset: int = 0) -> tuple[list[float], float]:
-    """Task run times ("succeeded in X s") and the span from the first "received" to the last
-    "succeeded" line of the worker's log, from byte ``offset`` on."""
+def worker_log_times(path: Path, offset: int = 0) -> tuple[list[float], float, float]:
+    """Task run times ("succeeded in X s"), the time (epoch seconds) of the first "received" line
+    and the span from it to the last "succeeded" line of the worker's log, from byte ``offset``
+    on (the log's times are local time, to the millisecond)."""
     if not path.exists():
-        return [], 0.0
+        return [], 0.0, 0.0
     with path.open("rb") as log:
         log.seek(offset)
         text = log.read().decode(errors="replace")
@@ -278,7 +282,7 @@ def worker_log_times(path: Path, offset: int = 0) -> tuple[list[float], float]:
              for t, kind in stamps]
     first = min((t for t, k in parse if k == "received"), default=0.0)
     last = max((t for t, k in parse if k == "succeeded"), default=0.0)
-    return times, max(0.0, last - first)
+    return times, first, max(0.0, last - first)
 
 
 def _status(session: requests.Session, url: str) -> int:
