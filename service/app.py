@@ -55,7 +55,9 @@ def _queue_functions(config: dict[str, Any]) -> dict[str, Callable[..., Any]]:
     if any(f is None for f in functions.values()):
         from service import queue
 
-        functions["enqueue"] = functions["enqueue"] or queue.enqueue
+        if functions["enqueue"] is None:
+            queue.load_publisher()
+            functions["enqueue"] = queue.enqueue
         functions["workers_alive"] = functions["workers_alive"] or queue.workers_alive
         # a queue module without its own broker probe: a live worker implies a reachable broker
         functions["queue_reachable"] = functions["queue_reachable"] or getattr(

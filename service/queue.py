@@ -37,6 +37,12 @@ def publish(celery_app: Celery, check_ids: list[str]) -> None:
                 )
 
 
+def load_publisher() -> None:
+    """Import the Celery app now (a fraction of a second), so that an API process's first
+    submission does not wait for it."""
+    import workers.celery_app  # noqa: F401
+
+
 def enqueue(check_ids: list[str]) -> None:
     """Hand the (already stored, ``queued``) checks to the workers; never raises for the broker."""
     if not check_ids:

@@ -50,7 +50,8 @@ def wait_until(predicate: Callable[[], Any], timeout_s: float, what: str,
 
 
 class RedisServer:
-    """``redis-server --port P --appendonly yes --dir <tmp>`` in the foreground of a child."""
+    """``redis-server --port P --appendonly yes --dir <tmp>`` in the foreground of a child, with
+    the persistence settings of ``deploy/redis.conf``."""
 
     def __init__(self, folder: Path) -> None:
         if REDIS_SERVER is None:
@@ -67,6 +68,7 @@ class RedisServer:
     def start(self) -> None:
         argv = [REDIS_SERVER, "--port", str(self.port), "--bind", "127.0.0.1",
                 "--appendonly", "yes", "--appendfsync", "everysec", "--save", "",
+                "--rdbcompression", "no",
                 "--dir", str(self.folder), "--daemonize", "no", "--protected-mode", "no"]
         with (self.folder / "redis.log").open("ab") as log:  # the child keeps its own copy
             self.process = subprocess.Popen(argv, stdout=log, stderr=subprocess.STDOUT)

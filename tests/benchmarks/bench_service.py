@@ -1,7 +1,7 @@
 """End-to-end service benchmark: a batch through HTTP, the queue and worker processes.
 
     python -m tests.benchmarks.bench_service [--variants 500] [--points 401] [--workers 2]
-                                             [--rounds 3] [--layout redis|embedded]
+                                             [--rounds 5] [--layout redis|embedded]
                                              [--arrays packed|lists]
 
 Builds seeded invented variants (5 ports: 2 external, 3 probes; ``tests.queue_variants``), starts
@@ -103,7 +103,7 @@ def main() -> None:
     parser.add_argument("--points", type=int, default=401)
     parser.add_argument("--workers", type=int, default=2)
     parser.add_argument("--api-processes", type=int, default=2)
-    parser.add_argument("--rounds", type=int, default=3,
+    parser.add_argument("--rounds", type=int, default=5,
                         help="submissions of the batch, each after its own engine timing")
     parser.add_argument("--arrays", choices=("packed", "lists"), default="packed",
                         help="how the variants' arrays travel: packed (base64 float64) or lists")
@@ -156,6 +156,11 @@ def main() -> None:
                 rounds.append(one_round(session, options.base_url, body, requests_, groups,
                                         config.data_dir / "logs" / "worker.log"))
                 report_round(number, rounds[-1], len(batch), args.workers)
+        except BaseException:
+            for log in sorted((config.data_dir / "logs").glob("*.log")):  # before they go
+                lines = log.read_text(errors="replace").splitlines()
+                print(f"--- last lines of {log.name} ---", *lines[-15:], sep="\n")
+            raise
         finally:
             supervisor.stopping = True
             supervisor.stop()
