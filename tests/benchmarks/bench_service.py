@@ -131,6 +131,8 @@ def main() -> None:
             os.environ.pop("BALLAST_REDIS_URL", None)
         os.environ["BALLAST_DATA_DIR"] = str(Path(tmp) / "data")
         os.environ["BALLAST_MAX_VARIANTS"] = str(max(10_000, args.variants))
+        # every round reads each verdict back: above the default 1,200 requests a minute
+        os.environ["BALLAST_RATE_LIMIT"] = str(1_000_000)
 
         from service.embedded import ServeOptions, Supervisor, child_processes, prepare_token
         from service.runtime_config import load_config
@@ -203,8 +205,12 @@ def one_round(session: requests.Session, base: str, body: bytes, requests_: list
                3600, "the batch to finish", every_s=0.1)
     finished_at = time.perf_counter()
     at_finish = cpu_now()
-    got = [session.get(f"{base}/v1/checks/{cid}", timeout=30).json()
-           for cid in accepted["check_ids"]]
+    answers = [session.get(f"{base}/v1/checks/{cid}", timeout=30)
+               for cid in accepted["check_ids"]]
+    refused = [a.status_code for a in answers if a.status_code != 200]
+    if refused:
+        raise RuntimeError(f"{len(refused)} verdict reads were refused: HTTP {set(refused)}")
+    got = [a.json() for a in answers]
     read_at = time.perf_counter()
     at_read = cpu_now()
     task_s, first_received, span_s = worker_log_times(worker_log, log_offset)
