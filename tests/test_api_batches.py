@@ -267,3 +267,24 @@ def test_on_redis_an_invalid_late_variant_unqueues_the_early_ones(clock, monkeyp
         assert queue.enqueued[2:] == accepted.get_json()["check_ids"]
     finally:
         gen.close()
+
+
+def test_packed_variants_are_stored_in_binary_and_give_the_same_verdicts(
+        client, auth, api_store):
+    # The same four closed-form tanks with their data packed (base64 of little-endian
+    # complex128, RFC 4648): stored as MessagePack with the bytes (service.store.payload), the
+    # verdicts equal those of the list form, and so the closed-form counts.
+    from service.schemas.request import pack_array
+
+    batch = _rlc_batch()
+    lists_verdicts = run_worker(api_store, client.post(
+        "/v1/batches", json=batch, headers=auth).get_json()["check_ids"])
+    for variant in batch["variants"]:
+        data = np.asarray(variant["data"]["re"]) + 1j * np.asarray(variant["data"]["im"])
+        variant["data"] = pack_array(data)
+    ids = client.post("/v1/batches", json=batch, headers=auth).get_json()["check_ids"]
+    kinds = [api_store._conn().execute("SELECT typeof(request) FROM checks WHERE id = ?",
+                                       (cid,)).fetchone()[0] for cid in ids]
+    assert kinds == ["blob"] * 4
+    assert run_worker(api_store, ids) == lists_verdicts
+    assert [v["verdict"] for v in lists_verdicts] == ["stable", "stable", "unstable", "unstable"]

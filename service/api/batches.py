@@ -59,6 +59,7 @@ from service.store.base import (
     merge_request,
 )
 from service.store.jsontext import collector_paused, loads_json
+from service.store.payload import binary_request
 
 blp = Blueprint("batches", __name__, url_prefix="/v1/batches",
                 description="Batches of variants sharing one port/device map")
@@ -269,6 +270,9 @@ class _OutlineChecks(Sequence[NewCheck]):
         _validate_variant(schema, self._shared, i, label, member, "variants", invalid)
         if invalid.bad_variants != bad_before:
             return None
+        binary = binary_request(member)  # a quarter smaller when its arrays came packed
+        if binary is not None:
+            return NewCheck(None, label=label, request_binary=binary)
         return NewCheck(None, label=label, request_json=text)
 
 

@@ -98,13 +98,18 @@ class NewCheck:
     serialising ``request`` again, which for large numeric arrays costs as much as parsing them.
     """
 
-    request: dict[str, Any] | None  # None: only ``request_json`` is given
+    request: dict[str, Any] | None  # None: only ``request_json`` or ``request_binary`` given
     label: str | None = None
     request_json: str | bytes | None = None  # bytes: UTF-8
+    request_binary: bytes | None = None  # the binary stored form (service.store.payload)
 
     def __post_init__(self) -> None:
-        if self.request is None and self.request_json is None:
-            raise ValueError("a new check needs its request or its request's JSON text")
+        if self.request is None and self.request_json is None and self.request_binary is None:
+            raise ValueError("a new check needs its request, or its request's stored text")
+
+    def stored_payload(self) -> str | bytes:
+        """What the store keeps: the binary form when given, else :meth:`stored_json`."""
+        return self.request_binary if self.request_binary is not None else self.stored_json()
 
     def stored_json(self) -> str | bytes:
         """``request_json`` as given (str or UTF-8 bytes), else the canonical JSON text."""
@@ -113,10 +118,14 @@ class NewCheck:
         return canonical_json(self.request)
 
     def stored_size(self) -> int:
-        """Length of ``request_json`` when given, else 0 (not worth serialising to find out)."""
-        return len(self.request_json) if self.request_json is not None else 0
+        """Length of the given stored text, else 0 (not worth serialising to find out)."""
+        given = self.request_binary if self.request_binary is not None else self.request_json
+        return len(given) if given is not None else 0
 
-    def stored_text(self) -> str:
+    def stored_text(self) -> str | bytes:
+        """For a text column: JSON as str; the binary form stays bytes (a BLOB)."""
+        if self.request_binary is not None:
+            return self.request_binary
         text = self.stored_json()
         return text.decode("utf-8") if isinstance(text, bytes) else text
 

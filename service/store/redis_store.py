@@ -20,6 +20,7 @@ from collections.abc import Callable, Sequence
 from typing import Any
 
 import redis
+from redis.client import NEVER_DECODE
 
 from service.store.base import (
     DEFAULT_RETENTION_S,
@@ -38,6 +39,7 @@ from service.store.base import (
 )
 from service.store.ids import new_batch_id, new_check_id
 from service.store.jsontext import loads_json
+from service.store.payload import load_request
 
 STORE_CHUNK_BYTES = 4_000_000  # request bytes per MULTI/EXEC while storing many checks
 STORE_CHUNK_CHECKS = 200
@@ -322,7 +324,7 @@ class RedisStore:
                 "shared_hash": shared_hash or "",
             })
             pipe.expire(ck, ttl)
-            pipe.set(f"{self.p}req:{ids[seq]}", c.stored_json(), ex=ttl)  # bytes as they are
+            pipe.set(f"{self.p}req:{ids[seq]}", c.stored_payload(), ex=ttl)  # bytes as they are
         pipe.zadd(f"{self.p}queued", dict.fromkeys(ids[first:stop], now))
         if batch_id is not None:
             bkey = f"{self.p}batch:{batch_id}"
@@ -401,7 +403,8 @@ class RedisStore:
 
     def get_request(self, check_id: str) -> dict[str, Any] | None:
         pipe = self.r.pipeline(transaction=False)
-        pipe.get(f"{self.p}req:{check_id}")
+        # as bytes: the stored request may be in the binary form (service.store.payload)
+        pipe.execute_command("GET", f"{self.p}req:{check_id}", **{NEVER_DECODE: []})
         pipe.hget(f"{self.p}check:{check_id}", "shared_hash")
         text, shared_hash = pipe.execute()
         if text is None:
@@ -415,7 +418,7 @@ class RedisStore:
                     return None
                 self._remember_shared(shared_hash, body)
             shared = loads_json(body)
-        return merge_request(shared, loads_json(text))
+        return merge_request(shared, load_request(text))
 
     def _remember_shared(self, shared_hash: str, body: str) -> None:
         """Keep a shared map's text: a ``blob:`` key is named by the SHA-256 of its content, so

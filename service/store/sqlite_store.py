@@ -34,6 +34,7 @@ from service.store.base import (
 )
 from service.store.ids import new_batch_id, new_check_id
 from service.store.jsontext import loads_json
+from service.store.payload import load_request
 
 _SCHEMA = """
 CREATE TABLE IF NOT EXISTS checks (
@@ -244,7 +245,7 @@ class SqliteStore:
         if row is None:
             return None
         shared = loads_json(row["body"]) if row["body"] is not None else None
-        return merge_request(shared, loads_json(row["request"]))
+        return merge_request(shared, load_request(row["request"]))  # TEXT, or BLOB when binary
 
     def _counts(
         self, db: sqlite3.Connection, batch_id: str,
