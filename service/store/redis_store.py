@@ -15,6 +15,7 @@ keys derived from the record, so this targets a single Redis server, not Redis C
 from __future__ import annotations
 
 import json
+import threading
 import time
 from collections.abc import Callable, Sequence
 from typing import Any
@@ -242,6 +243,7 @@ class RedisStore:
         self._idem_release = self.r.register_script(_LUA_IDEM_RELEASE)
         self._reserve = self.r.register_script(_LUA_RESERVE)
         self._shared_texts: dict[str, str] = {}  # shared maps by content hash (immutable)
+        self._shared_lock = threading.Lock()
 
     @property
     def _ttl(self) -> int:
@@ -423,9 +425,10 @@ class RedisStore:
     def _remember_shared(self, shared_hash: str, body: str) -> None:
         """Keep a shared map's text: a ``blob:`` key is named by the SHA-256 of its content, so
         the text under a hash never changes (the workers of a batch read it once each)."""
-        if len(self._shared_texts) >= SHARED_CACHE_ENTRIES:
-            self._shared_texts.pop(next(iter(self._shared_texts)))
-        self._shared_texts[shared_hash] = body
+        with self._shared_lock:  # API processes share one store between their threads
+            while len(self._shared_texts) >= SHARED_CACHE_ENTRIES:
+                self._shared_texts.pop(next(iter(self._shared_texts)))
+            self._shared_texts[shared_hash] = body
 
     @staticmethod
     def _split_counts(raw: dict[str, str]) -> tuple[dict[str, int], dict[str, int]]:
