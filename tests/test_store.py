@@ -11,7 +11,6 @@ import json
 import subprocess
 import sys
 import threading
-from collections.abc import Sequence
 
 import pytest
 
@@ -464,18 +463,15 @@ def test_redis_batch_is_invisible_until_all_chunks_are_stored(clock, monkeypatch
         gen.close()
 
 
-class _Rejecting(Sequence):
-    """A lazy sequence of checks that raises when item ``bad`` is reached (as the API's
-    validating sequence does for an invalid variant)."""
+class _Rejecting:
+    """A lazy source of checks that raises when item ``bad`` is reached (as the API's
+    validating source does for an invalid variant)."""
 
     def __init__(self, n: int, bad: int) -> None:
         self.n, self.bad, self.made = n, bad, 0
 
     def __len__(self) -> int:
         return self.n
-
-    def __getitem__(self, i):
-        raise AssertionError("the store must iterate, not index")
 
     def __iter__(self):
         for i in range(self.n):
@@ -485,7 +481,7 @@ class _Rejecting(Sequence):
             yield NewCheck({"i": i}, label=f"v{i}")
 
 
-def test_a_lazy_sequence_that_raises_leaves_nothing_stored(store, monkeypatch):
+def test_a_lazy_source_that_raises_leaves_nothing_stored(store, monkeypatch):
     monkeypatch.setattr("service.store.redis_store.STORE_CHUNK_CHECKS", 3)
     handed: list[str] = []
     checks = _Rejecting(8, bad=7)

@@ -12,8 +12,8 @@ from __future__ import annotations
 import base64
 import binascii
 import json
-from collections.abc import Iterator, Sequence
-from typing import Any, overload
+from collections.abc import Iterator
+from typing import Any
 
 from flask import current_app, g, request, url_for
 from flask_smorest import Blueprint
@@ -54,6 +54,7 @@ from service.store.base import (
     VERDICT_NAMES,
     BatchRecord,
     CheckRecord,
+    CheckSource,
     NewCheck,
     content_hash,
     merge_request,
@@ -214,13 +215,13 @@ def _outline_head(outline: BatchOutline) -> tuple[str | None, dict[str, Any]]:
     return label, shared
 
 
-class _OutlineChecks(Sequence[NewCheck]):
+class _OutlineChecks:
     """The outline's variants as checks to store, each parsed and validated when it is reached
     and dropped before the next (the same checks and error fields as the whole-body path).
 
     Iterating yields the valid variants in order until the first invalid one; it then validates
     the rest without yielding them and raises the 422 that names every problem, so the store
-    (``Store.create_checks``, which takes a lazy sequence) can write and queue the first
+    (``Store.create_checks``, which takes a lazy ``CheckSource``) can write and queue the first
     variants while later ones are still being validated, and deletes them again if one fails.
     """
 
@@ -230,20 +231,6 @@ class _OutlineChecks(Sequence[NewCheck]):
 
     def __len__(self) -> int:
         return len(self._texts)
-
-    @overload
-    def __getitem__(self, index: int) -> NewCheck: ...
-    @overload
-    def __getitem__(self, index: slice) -> Sequence[NewCheck]: ...
-
-    def __getitem__(self, index: int | slice) -> NewCheck | Sequence[NewCheck]:
-        if isinstance(index, slice):
-            return [self[i] for i in range(*index.indices(len(self)))]
-        invalid = _Invalid()
-        check = self._check(range(len(self))[index], CheckRequestSchema(), invalid)
-        invalid.raise_if_any(len(self))
-        assert check is not None
-        return check
 
     def __iter__(self) -> Iterator[NewCheck]:
         schema = CheckRequestSchema()
@@ -310,7 +297,7 @@ def submit_batch():
 
 
 def _submit_batch() -> tuple[dict[str, Any], int, dict[str, str]]:
-    checks: Sequence[NewCheck]
+    checks: CheckSource
     if request.mimetype == "multipart/form-data":
         label, shared, variants = _parse_multipart_batch()
         fingerprint = content_hash({"label": label, "map": shared,

@@ -15,7 +15,7 @@ from __future__ import annotations
 
 import hashlib
 import json
-from collections.abc import Callable, Sequence
+from collections.abc import Callable, Iterator
 from dataclasses import dataclass, field
 from typing import Any, Literal, Protocol
 
@@ -130,6 +130,14 @@ class NewCheck:
         return text.decode("utf-8") if isinstance(text, bytes) else text
 
 
+class CheckSource(Protocol):
+    """What ``Store.create_checks`` takes: a list of checks, or a lazy source that knows how
+    many it holds and makes each one when iterated (and may raise to abort)."""
+
+    def __len__(self) -> int: ...
+    def __iter__(self) -> Iterator[NewCheck]: ...
+
+
 @dataclass(frozen=True)
 class TokenRecord:
     """A stored API token: only its SHA-256 hex digest is kept."""
@@ -191,7 +199,7 @@ class Store(Protocol):
 
     # -- accepting work ---------------------------------------------------------------------------
     def create_checks(
-        self, tenant: str, checks: Sequence[NewCheck], *, batch_label: str | None = None,
+        self, tenant: str, checks: CheckSource, *, batch_label: str | None = None,
         as_batch: bool = False, shared: dict[str, Any] | None = None,
         max_unfinished: int | None = None,
         on_stored: Callable[[list[str]], None] | None = None,
@@ -200,10 +208,10 @@ class Store(Protocol):
 
         ``shared`` (batches only) is stored once by content hash and merged under each variant.
         Raises :class:`QuotaExceededError` (storing nothing) when the tenant would go above
-        ``max_unfinished`` queued+running checks. ``checks`` may be a lazy sequence (its length
-        known, its items made while it is iterated, e.g. validated one by one) that raises to
-        abort. ``on_stored(ids)`` is called once the checks ``ids`` are stored (a store may call
-        it several times, chunk by chunk, so that they can be queued while the rest is made and
+        ``max_unfinished`` queued+running checks. ``checks`` may be lazy (its length known, its
+        items made while it is iterated, e.g. validated one by one) and raise to abort.
+        ``on_stored(ids)`` is called once the checks ``ids`` are stored (a store may call it
+        several times, chunk by chunk, so that they can be queued while the rest is made and
         written); a batch's record is written after all its checks, so a batch is visible only
         once complete. If anything fails before the end, the checks already stored are deleted
         again (a queued message for one then finds nothing to run) and the quota is released.

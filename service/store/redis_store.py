@@ -17,7 +17,7 @@ from __future__ import annotations
 import json
 import threading
 import time
-from collections.abc import Callable, Sequence
+from collections.abc import Callable
 from typing import Any
 
 import redis
@@ -28,6 +28,7 @@ from service.store.base import (
     RELEASED_LEASE_AGE_S,
     BatchRecord,
     CheckRecord,
+    CheckSource,
     IdempotencyState,
     NewCheck,
     QuotaExceededError,
@@ -260,7 +261,7 @@ class RedisStore:
 
     # -- accepting work ---------------------------------------------------------------------------
     def create_checks(
-        self, tenant: str, checks: Sequence[NewCheck], *, batch_label: str | None = None,
+        self, tenant: str, checks: CheckSource, *, batch_label: str | None = None,
         as_batch: bool = False, shared: dict[str, Any] | None = None,
         max_unfinished: int | None = None,
         on_stored: Callable[[list[str]], None] | None = None,

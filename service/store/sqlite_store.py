@@ -13,7 +13,7 @@ import os
 import sqlite3
 import threading
 import time
-from collections.abc import Callable, Iterator, Sequence
+from collections.abc import Callable, Iterator
 from contextlib import contextmanager
 from typing import Any
 
@@ -22,8 +22,8 @@ from service.store.base import (
     RELEASED_LEASE_AGE_S,
     BatchRecord,
     CheckRecord,
+    CheckSource,
     IdempotencyState,
-    NewCheck,
     QuotaExceededError,
     TokenRecord,
     VerdictSummary,
@@ -186,7 +186,7 @@ class SqliteStore:
 
     # -- accepting work ---------------------------------------------------------------------------
     def create_checks(
-        self, tenant: str, checks: Sequence[NewCheck], *, batch_label: str | None = None,
+        self, tenant: str, checks: CheckSource, *, batch_label: str | None = None,
         as_batch: bool = False, shared: dict[str, Any] | None = None,
         max_unfinished: int | None = None,
         on_stored: Callable[[list[str]], None] | None = None,
