@@ -18,10 +18,10 @@ from typing import Any
 
 import msgspec
 
+from service.schemas.request import is_packed
 from service.store.jsontext import loads_json
 
 _MSGPACK_MAP_FIRST = frozenset({*range(0x80, 0x90), 0xDE, 0xDF})
-_PACKED_KEYS = frozenset({"dtype", "shape", "base64"})
 _encoder = msgspec.msgpack.Encoder()
 _decoder = msgspec.msgpack.Decoder()
 
@@ -29,7 +29,7 @@ _decoder = msgspec.msgpack.Decoder()
 def _unpacked(value: Any) -> tuple[Any, int]:
     """``value`` with every packed array's base64 text replaced by its bytes; and how many."""
     if isinstance(value, dict):
-        if set(value) == _PACKED_KEYS and isinstance(value["base64"], str):
+        if is_packed(value) and isinstance(value["base64"], str):
             return {**value, "base64": b64decode(value["base64"], validate=True)}, 1
         out, found = {}, 0
         for key, item in value.items():
