@@ -288,3 +288,21 @@ def test_packed_variants_are_stored_in_binary_and_give_the_same_verdicts(
     assert kinds == ["blob"] * 4
     assert run_worker(api_store, ids) == lists_verdicts
     assert [v["verdict"] for v in lists_verdicts] == ["stable", "stable", "unstable", "unstable"]
+
+
+@pytest.mark.parametrize("text", ["@@@@", "\u0080", "QUJ"])
+def test_packed_variant_with_bad_base64_is_named(client, auth, api_store, text):
+    # RFC 4648 §4: only its alphabet, in complete 4-character groups; a JSON string may hold
+    # anything, non-ASCII included.
+    from service.schemas.request import pack_array
+
+    batch = _rlc_batch()
+    variant = batch["variants"][1]
+    data = np.asarray(variant["data"]["re"]) + 1j * np.asarray(variant["data"]["im"])
+    variant["data"] = {**pack_array(data), "base64": text}
+    response = client.post("/v1/batches", json=batch, headers=auth)
+    problem = response.get_json()
+    assert response.status_code == 422 and response.mimetype == PROBLEM
+    assert [e["field"] for e in problem["errors"]] == ["variants.1.data.base64"]
+    assert "base64" in problem["errors"][0]["detail"]
+    assert api_store.list_batches("acme") == []

@@ -26,32 +26,39 @@ _encoder = msgspec.msgpack.Encoder()
 _decoder = msgspec.msgpack.Decoder()
 
 
-def _unpacked(value: Any) -> tuple[Any, int]:
-    """``value`` with every packed array's base64 text replaced by its bytes; and how many."""
+def with_packed_bytes(value: Any) -> tuple[Any, int]:
+    """``value`` with every packed array's base64 text replaced by its bytes, and how many were
+    replaced; raises ``ValueError`` (``binascii.Error`` among them) on text that is not base64
+    (RFC 4648), decoded as ``CheckRequestSchema`` decodes it."""
     if isinstance(value, dict):
         if is_packed(value) and isinstance(value["base64"], str):
             return {**value, "base64": b64decode(value["base64"], validate=True)}, 1
         out, found = {}, 0
         for key, item in value.items():
-            out[key], n = _unpacked(item)
+            out[key], n = with_packed_bytes(item)
             found += n
         return out, found
     if isinstance(value, list) and value and isinstance(value[0], dict):  # ports, devices
-        pairs = [_unpacked(item) for item in value]
+        pairs = [with_packed_bytes(item) for item in value]
         return [item for item, _ in pairs], sum(n for _, n in pairs)
     return value, 0
+
+
+def encode_binary(request: dict[str, Any]) -> bytes | None:
+    """A validated request whose packed arrays already hold bytes (:func:`with_packed_bytes`)
+    in the binary stored form, or None when it holds what MessagePack cannot (integers beyond
+    64 bits)."""
+    try:
+        return _encoder.encode(request)
+    except OverflowError:
+        return None
 
 
 def binary_request(request: dict[str, Any]) -> bytes | None:
     """``request`` (validated) in the binary stored form, or None when it holds no packed array
     (JSON text is then as compact) or holds what MessagePack cannot (integers beyond 64 bits)."""
-    value, found = _unpacked(request)
-    if not found:
-        return None
-    try:
-        return _encoder.encode(value)
-    except OverflowError:
-        return None
+    value, found = with_packed_bytes(request)
+    return encode_binary(value) if found else None
 
 
 def is_binary(data: bytes | str) -> bool:
