@@ -39,7 +39,7 @@ def _open_store(config: dict[str, Any]) -> Store:
 
     url = config.get("BALLAST_STORE_URL")
     if not url:
-        from service.runtime_config import load_config
+        from workers.runtime_config import load_config
 
         url = load_config().store_url
     return open_store(url, retention_s=float(config["BALLAST_RETENTION_S"]),
@@ -53,7 +53,7 @@ def _queue_functions(config: dict[str, Any]) -> dict[str, Callable[..., Any]]:
         "queue_reachable": config.get("BALLAST_QUEUE_REACHABLE"),
     }
     if any(f is None for f in functions.values()):
-        from service import queue
+        from workers import queue
 
         if functions["enqueue"] is None:
             queue.load_publisher()

@@ -24,7 +24,7 @@ from pathlib import Path
 
 import requests
 
-from service.runtime_config import RuntimeConfig, load_config
+from workers.runtime_config import RuntimeConfig, load_config
 from workers.threads import pin_engine_threads
 from workers.worker_process import worker_argv
 

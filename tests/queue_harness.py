@@ -21,10 +21,10 @@ from typing import Any
 
 import redis
 
-from service.queue import publish
-from service.runtime_config import load_config
 from service.store import NewCheck, Store
 from workers.celery_app import make_app
+from workers.queue import publish
+from workers.runtime_config import load_config
 from workers.worker_process import worker_argv
 
 REDIS_SERVER = shutil.which("redis-server")

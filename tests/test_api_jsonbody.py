@@ -139,7 +139,7 @@ def test_collector_pause_nests_and_restores_the_previous_state():
     # Reference: the standard library's gc.isenabled/gc.disable (Python 3.11 documentation).
     import gc
 
-    from service.store.jsontext import collector_paused
+    from workers.collector import collector_paused
 
     assert gc.isenabled()
     with collector_paused():

@@ -12,10 +12,10 @@ from pathlib import Path
 
 import pytest
 
-from service.runtime_config import load_config
 from service.store import NewCheck
 from service.store.sqlite_store import SqliteStore
 from workers.reconciler import Reconciler
+from workers.runtime_config import load_config
 
 
 class Clock:

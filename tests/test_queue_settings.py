@@ -16,8 +16,8 @@ import pytest
 from kombu import Connection, Exchange, Queue
 from kombu.exceptions import ContentDisallowed
 
-from service.runtime_config import CHECK_QUEUE, load_config
 from workers.celery_app import REDIS_TRANSPORT, SQLITE_TRANSPORT, celery_settings
+from workers.runtime_config import CHECK_QUEUE, load_config
 from workers.threads import BLAS_THREAD_VARIABLES, pin_engine_threads
 
 LIMIT_CASES = [  # (soft, hard) in seconds

@@ -14,7 +14,6 @@ from pathlib import Path
 
 import pytest
 
-from service.runtime_config import CHECK_QUEUE, RUN_CHECK_TASK, load_config
 from service.store import NewCheck, open_store
 from tests.queue_harness import (
     REDIS_SERVER,
@@ -29,13 +28,14 @@ from tests.queue_harness import (
 )
 from tests.queue_variants import variants
 from workers.celery_app import make_app
+from workers.runtime_config import CHECK_QUEUE, RUN_CHECK_TASK, load_config
 
 pytestmark = [
     pytest.mark.integration,
     pytest.mark.skipif(REDIS_SERVER is None, reason="needs redis-server"),
 ]
 
-# Short limits for the failure tests: lease = hard + 5 s = 8 s (service.runtime_config).
+# Short limits for the failure tests: lease = hard + 5 s = 8 s (workers.runtime_config).
 SHORT_LIMITS = {"BALLAST_SOFT_TIME_LIMIT_S": "2", "BALLAST_HARD_TIME_LIMIT_S": "3"}
 
 

@@ -2,7 +2,7 @@
 
 Start a worker with ``celery -A workers.celery_app worker`` (or ``ballast worker``). The broker is
 the Redis named by ``BALLAST_REDIS_URL``, or the embedded SQLite broker (see
-``service.runtime_config``). Results are never stored by Celery: the task writes the verdict into
+``workers.runtime_config``). Results are never stored by Celery: the task writes the verdict into
 the service's own store, so there is no result backend.
 """
 
@@ -18,7 +18,7 @@ pin_engine_threads(os.environ)
 
 from celery import Celery  # noqa: E402 (after the thread settings)
 
-from service.runtime_config import CHECK_QUEUE, RuntimeConfig, load_config  # noqa: E402
+from workers.runtime_config import CHECK_QUEUE, RuntimeConfig, load_config  # noqa: E402
 
 REDIS_TRANSPORT = "workers.redis_transport:Transport"
 SQLITE_TRANSPORT = "workers.sqlite_transport:Transport"

@@ -13,11 +13,11 @@ from typing import Any
 
 from celery.signals import worker_ready, worker_shutdown
 
-from service.queue import enqueue
-from service.runtime_config import CHECK_QUEUE
-from service.worker_heartbeat import beat, forget
 from workers.celery_app import app, config
+from workers.heartbeat import beat, forget
+from workers.queue import enqueue
 from workers.reconciler import Reconciler
+from workers.runtime_config import CHECK_QUEUE
 from workers.store_access import open_configured_store
 
 log = logging.getLogger("ballast.worker")

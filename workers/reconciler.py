@@ -27,8 +27,8 @@ from typing import IO
 
 import redis
 
-from service.runtime_config import RuntimeConfig
 from service.store.base import Store
+from workers.runtime_config import RuntimeConfig
 
 log = logging.getLogger("ballast.reconciler")
 

@@ -9,8 +9,8 @@ from __future__ import annotations
 import os
 import threading
 
-from service.runtime_config import RuntimeConfig, load_config
 from service.store import DEFAULT_RETENTION_S, Store, open_store
+from workers.runtime_config import RuntimeConfig, load_config
 
 _lock = threading.Lock()
 _stores: dict[int, Store] = {}

@@ -22,9 +22,9 @@ from celery.worker.request import Request
 from marshmallow import ValidationError
 
 from service.runner import run_check_json  # loaded by the worker before it forks its pool
-from service.runtime_config import RUN_CHECK_TASK
-from service.store.jsontext import collector_paused
 from workers.celery_app import app, config
+from workers.collector import collector_paused
+from workers.runtime_config import RUN_CHECK_TASK
 from workers.store_access import process_store
 
 log = logging.getLogger("ballast.worker")
@@ -138,7 +138,7 @@ def run_check(self: Any, check_id: str) -> str:
 
     The cyclic garbage collector is paused for the task: the loaded request (some ten thousand
     small lists) is freed by reference counting when the task ends, unscanned
-    (``service.store.jsontext.collector_paused``).
+    (``workers.collector.collector_paused``).
     """
     with collector_paused():
         return _run_check(check_id)

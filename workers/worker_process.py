@@ -5,7 +5,7 @@ from __future__ import annotations
 
 import sys
 
-from service.runtime_config import CHECK_QUEUE
+from workers.runtime_config import CHECK_QUEUE
 
 
 def worker_argv(

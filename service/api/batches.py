@@ -59,8 +59,9 @@ from service.store.base import (
     content_hash,
     merge_request,
 )
-from service.store.jsontext import collector_paused, loads_json
+from service.store.jsontext import loads_json
 from service.store.payload import encode_binary, with_packed_bytes
+from workers.collector import collector_paused
 
 blp = Blueprint("batches", __name__, url_prefix="/v1/batches",
                 description="Batches of variants sharing one port/device map")

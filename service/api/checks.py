@@ -23,7 +23,7 @@ from service.problems import abort_problem
 from service.schemas.api import CheckAcceptedSchema, CheckSchema
 from service.schemas.request import CheckRequestSchema
 from service.store.base import UNFINISHED_STATUSES, NewCheck
-from service.store.jsontext import collector_paused
+from workers.collector import collector_paused
 
 blp = Blueprint("checks", __name__, url_prefix="/v1/checks",
                 description="Single stability checks")

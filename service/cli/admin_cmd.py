@@ -22,7 +22,7 @@ def _store(args: argparse.Namespace) -> Store:
 
     url = args.store
     if not url:
-        from service.runtime_config import load_config
+        from workers.runtime_config import load_config
 
         url = load_config().store_url
     return open_store(url)

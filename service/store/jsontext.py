@@ -9,50 +9,18 @@ orjson (RFC 8259) reads a ~450 KB stored check request two to three times as fas
   a check request is read as a float or a complex number by ``CheckRequestSchema``, so the
   request it validates is the same.
 
-The cyclic garbage collector is paused while orjson builds the value: a request is some ten
-thousand small lists of numbers, whose allocation would otherwise trigger collections that scan
-every tracked object (measured: three quarters of the parse time of a 50-variant batch body).
-Parsed JSON holds no reference cycles, so nothing is left for the collector to find. The API's
-batch and check submissions and the worker's task pause it for their whole run (parse, validate,
-store; load, run, complete), so that it never scans a request that is about to be freed.
+The cyclic garbage collector is paused while orjson builds the value
+(``workers.collector.collector_paused``): parsed JSON holds no reference cycles.
 """
 
 from __future__ import annotations
 
-import gc
 import json
-import threading
-from collections.abc import Iterator
-from contextlib import contextmanager
 from typing import Any
 
 import orjson
 
-_pause_lock = threading.Lock()
-_pause_depth = 0
-_resume_gc = False
-
-
-@contextmanager
-def collector_paused() -> Iterator[None]:
-    """Pause the cyclic garbage collector for the block (nestable, across threads: it resumes
-    when the last paused block ends, and only if it was running when the first began).
-
-    Objects freed by reference counting are freed as usual; only cycles wait for the resume.
-    """
-    global _pause_depth, _resume_gc
-    with _pause_lock:
-        if _pause_depth == 0:
-            _resume_gc = gc.isenabled()
-            gc.disable()
-        _pause_depth += 1
-    try:
-        yield
-    finally:
-        with _pause_lock:
-            _pause_depth -= 1
-            if _pause_depth == 0 and _resume_gc:
-                gc.enable()
+from workers.collector import collector_paused
 
 
 def orjson_loads(data: bytes | str) -> Any:

@@ -135,7 +135,7 @@ def main() -> None:
         os.environ["BALLAST_RATE_LIMIT"] = str(1_000_000)
 
         from service.embedded import ServeOptions, Supervisor, child_processes, prepare_token
-        from service.runtime_config import load_config
+        from workers.runtime_config import load_config
 
         config = load_config()
         config.data_dir.mkdir(parents=True, exist_ok=True)

@@ -1,4 +1,4 @@
-"""The API's side of the queue: hand check ids to the workers, and ask whether any worker is alive.
+"""Publishing to the queue (the API and the reconciler), and whether any worker is alive.
 
 Only check ids cross the queue; the request and the verdict stay in the store. Publishing is
 best-effort by design: the checks are already stored as ``queued`` when :func:`enqueue` runs, and
@@ -12,8 +12,8 @@ import logging
 from contextlib import nullcontext
 from typing import TYPE_CHECKING
 
-from service.runtime_config import CHECK_QUEUE, RUN_CHECK_TASK, load_config
-from service.worker_heartbeat import live_workers
+from workers.heartbeat import live_workers
+from workers.runtime_config import CHECK_QUEUE, RUN_CHECK_TASK, load_config
 
 if TYPE_CHECKING:
     from celery import Celery

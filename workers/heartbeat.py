@@ -11,7 +11,7 @@ import time
 
 import redis
 
-from service.runtime_config import RuntimeConfig
+from workers.runtime_config import RuntimeConfig
 
 HEARTBEAT_PREFIX = "ballast:heartbeat:"
 
