@@ -1,0 +1,12 @@
+"""Validated check requests as the store keeps them (``workers.intake.codec``)."""
+
+from workers.intake.codec import (
+    REQUEST_ENCODING,
+    SharedArrays,
+    StoredRequestError,
+    decode_request,
+    encode_request,
+)
+
+__all__ = ["REQUEST_ENCODING", "SharedArrays", "StoredRequestError", "decode_request",
+           "encode_request"]
