@@ -14,6 +14,9 @@ import pytest
 
 from service.store.redis_store import RedisStore
 from service.store.sqlite_store import SqliteStore
+from workers.store import Stores
+from workers.store.redis_backend import RedisAccessStore, RedisCheckStore, connect
+from workers.store.sqlite_backend import SqliteAccessStore, SqliteCheckStore, SqliteDatabase
 
 pytest_plugins = ["tests.api_fixtures"]
 
@@ -59,3 +62,47 @@ def store(request: pytest.FixtureRequest, tmp_path, clock: FakeClock) -> Iterato
     else:
         yield from _redis_store(clock)
 
+
+
+def redis_stores(clock: FakeClock) -> Iterator[Stores]:
+    """Both Redis stores on one client under a fresh key prefix; deletes its keys afterwards."""
+    prefix = f"ballast-test:{uuid.uuid4().hex}:"
+    client = connect(TEST_REDIS_URL)
+    stores = Stores(RedisCheckStore(prefix=prefix, clock=clock, client=client),
+                    RedisAccessStore(prefix=prefix, clock=clock, client=client))
+    if not stores.checks.ping():
+        pytest.fail(f"no Redis at {TEST_REDIS_URL} (the store tests need a real Redis)")
+    try:
+        yield stores
+    finally:
+        keys = list(client.scan_iter(match=prefix + "*", count=1000))
+        if keys:
+            client.delete(*keys)
+        client.close()
+
+
+def sqlite_stores(path, clock: FakeClock, **kwargs: float) -> Stores:
+    database = SqliteDatabase(path)
+    return Stores(SqliteCheckStore(database=database, clock=clock, **kwargs),
+                  SqliteAccessStore(database=database, clock=clock, **kwargs))
+
+
+@pytest.fixture(params=["sqlite", "redis"])
+def stores(request: pytest.FixtureRequest, tmp_path, clock: FakeClock) -> Iterator[Stores]:
+    """The same tests run on both store implementations."""
+    if request.param == "sqlite":
+        pair = sqlite_stores(tmp_path / "store.sqlite3", clock)
+        yield pair
+        pair.close()
+    else:
+        yield from redis_stores(clock)
+
+
+@pytest.fixture
+def checks(stores: Stores):
+    return stores.checks
+
+
+@pytest.fixture
+def access(stores: Stores):
+    return stores.access

@@ -1,0 +1,142 @@
+"""Status changes of checks in SQLite (``UPDATE … WHERE id = ? AND status = ?``), the
+reconciler's indexes and retention."""
+
+from __future__ import annotations
+
+import json
+from typing import Any
+
+from workers.store.records import (
+    RELEASED_LEASE_AGE_S,
+    BatchRecord,
+    CheckRecord,
+    summarize_verdict,
+)
+from workers.store.sqlite_backend.reads import SqliteCheckReads
+
+
+class SqliteCheckLifecycle(SqliteCheckReads):
+    """Claims and leases, completion, failure, cancellation; expired leases, undelivered checks
+    and the purge of what is older than the retention."""
+
+    def claim(self, check_id: str, lease_s: float, max_attempts: int) -> CheckRecord | None:
+        now = self.clock()
+        with self._write() as db:
+            row = db.execute(
+                "SELECT status, attempts, lease_expires_at FROM checks WHERE id = ?", (check_id,)
+            ).fetchone()
+            if row is None:
+                return None
+            status, attempts, lease = row["status"], row["attempts"], row["lease_expires_at"]
+            expired = status == "running" and (lease is None or lease < now)
+            if status != "queued" and not expired:
+                return None
+            if attempts >= max_attempts:
+                db.execute(
+                    "UPDATE checks SET status = 'failed', error = ?, finished_at = ?, "
+                    "updated_at = ?, lease_expires_at = NULL WHERE id = ? AND status = ?",
+                    (f"gave up after {attempts} attempts: every attempt ended its worker or "
+                     "outlived its lease", now, now, check_id, status),
+                )
+                return None
+            cur = db.execute(
+                "UPDATE checks SET status = 'running', attempts = attempts + 1, started_at = ?, "
+                "updated_at = ?, lease_expires_at = ? "
+                "WHERE id = ? AND status = ? AND attempts = ?",
+                (now, now, now + lease_s, check_id, status, attempts),
+            )
+            if cur.rowcount != 1:
+                return None
+        return self.get_check_any(check_id)
+
+    def complete(self, check_id: str, verdict: dict[str, Any]) -> bool:
+        now = self.clock()
+        summary = summarize_verdict(verdict)
+        assert summary is not None
+        with self._write() as db:
+            cur = db.execute(
+                "UPDATE checks SET status = 'done', verdict = ?, verdict_name = ?, "
+                "unstable_count = ?, first_frequency_hz = ?, first_node = ?, finished_at = ?, "
+                "updated_at = ?, lease_expires_at = NULL WHERE id = ? AND status = 'running'",
+                (json.dumps(verdict), summary.verdict, summary.unstable_count,
+                 summary.first_frequency_hz, summary.first_node, now, now, check_id),
+            )
+            return cur.rowcount == 1
+
+    def fail(self, check_id: str, reason: str) -> bool:
+        now = self.clock()
+        with self._write() as db:
+            cur = db.execute(
+                "UPDATE checks SET status = 'failed', error = ?, finished_at = ?, updated_at = ?, "
+                "lease_expires_at = NULL WHERE id = ? AND status IN ('queued', 'running')",
+                (reason, now, now, check_id),
+            )
+            return cur.rowcount == 1
+
+    def release(self, check_id: str) -> bool:
+        now = self.clock()
+        with self._write() as db:
+            cur = db.execute(
+                "UPDATE checks SET lease_expires_at = ?, updated_at = ? "
+                "WHERE id = ? AND status = 'running'",
+                (now - RELEASED_LEASE_AGE_S, now, check_id),
+            )
+            return cur.rowcount == 1
+
+    def cancel_check(self, tenant: str, check_id: str) -> CheckRecord | None:
+        now = self.clock()
+        with self._write() as db:
+            db.execute(
+                "UPDATE checks SET status = 'cancelled', finished_at = ?, updated_at = ?, "
+                "lease_expires_at = NULL "
+                "WHERE id = ? AND tenant = ? AND status IN ('queued', 'running')",
+                (now, now, check_id, tenant),
+            )
+        return self.get_check(tenant, check_id)
+
+    def cancel_batch(self, tenant: str, batch_id: str) -> BatchRecord | None:
+        now = self.clock()
+        with self._write() as db:
+            db.execute(
+                "UPDATE checks SET status = 'cancelled', finished_at = ?, updated_at = ?, "
+                "lease_expires_at = NULL "
+                "WHERE batch_id = ? AND tenant = ? AND status IN ('queued', 'running')",
+                (now, now, batch_id, tenant),
+            )
+        return self.get_batch(tenant, batch_id)
+
+    def expired_leases(self, now: float) -> list[str]:
+        return [r[0] for r in self._conn().execute(
+            "SELECT id FROM checks WHERE status = 'running' AND lease_expires_at < ?", (now,)
+        )]
+
+    def queued_ids(self, older_than: float) -> list[str]:
+        return [r[0] for r in self._conn().execute(
+            "SELECT id FROM checks WHERE status = 'queued' AND queued_at < ? ORDER BY queued_at",
+            (older_than,),
+        )]
+
+    def touch_queued(self, check_ids: list[str], now: float) -> None:
+        with self._write() as db:
+            db.executemany(
+                "UPDATE checks SET queued_at = ? WHERE id = ? AND status = 'queued'",
+                [(now, cid) for cid in check_ids],
+            )
+
+    def purge(self, now: float) -> int:
+        """Checks (and then batches) last changed before the retention, and shared bytes that
+        old that no check refers to any more."""
+        cutoff = now - self.retention_s
+        with self._write() as db:
+            gone = db.execute("DELETE FROM checks WHERE updated_at < ?", (cutoff,)).rowcount
+            db.execute(
+                "DELETE FROM batches WHERE created_at < ? AND NOT EXISTS "
+                "(SELECT 1 FROM checks WHERE checks.batch_id = batches.id)",
+                (cutoff,),
+            )
+            db.execute(
+                "DELETE FROM blobs WHERE created_at < ? AND NOT EXISTS (SELECT 1 FROM checks "
+                "WHERE instr(checks.shared, blobs.hash) > 0)",
+                (cutoff,),
+            )
+        return gone
