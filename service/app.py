@@ -12,7 +12,7 @@ from service.api import ProblemApi, batches, checks, health
 from service.api.body_limit import BodyLimitMiddleware
 from service.config import app_config
 from service.problems import PROBLEM_CONTENT_TYPE
-from service.store.base import Store
+from workers.store import Stores
 
 log = logging.getLogger("ballast.api")
 
@@ -34,16 +34,16 @@ _SPEC_OPTIONS = {
 }
 
 
-def _open_store(config: dict[str, Any]) -> Store:
-    from service.store import open_store
+def _open_stores(config: dict[str, Any]) -> Stores:
+    from workers.store import open_stores
 
     url = config.get("BALLAST_STORE_URL")
     if not url:
         from workers.runtime_config import load_config
 
         url = load_config().store_url
-    return open_store(url, retention_s=float(config["BALLAST_RETENTION_S"]),
-                      prefix=config["BALLAST_STORE_PREFIX"])
+    return open_stores(url, retention_s=float(config["BALLAST_RETENTION_S"]),
+                       prefix=config["BALLAST_STORE_PREFIX"])
 
 
 def _queue_functions(config: dict[str, Any]) -> dict[str, Callable[..., Any]]:
@@ -91,10 +91,10 @@ def create_app(config: dict[str, Any] | None = None) -> Flask:
         "MAX_FORM_PARTS": int(app.config["BALLAST_MAX_VARIANTS"]) + 16,
     })
     app.json.sort_keys = False  # the verdict goes out exactly as the engine ordered it
-    store = app.config["BALLAST_STORE"] or _open_store(app.config)
+    stores = app.config["BALLAST_STORES"] or _open_stores(app.config)
     functions = _queue_functions(app.config)
     app.extensions["ballast"] = {
-        "store": store,
+        "stores": stores,
         "enqueue": _safe_enqueue(functions["enqueue"]),
         "workers_alive": functions["workers_alive"],
         "queue_reachable": functions["queue_reachable"],

@@ -12,7 +12,7 @@ import hmac
 import re
 import secrets
 
-from service.store.base import Store
+from workers.store import AccessStore
 
 TOKEN_PREFIX = "blst_"
 _TOKEN_SHAPE = re.compile(r"^blst_[A-Za-z0-9_-]{43}$")
@@ -37,7 +37,7 @@ def valid_tenant_name(name: str) -> bool:
     return bool(_TENANT_SHAPE.match(name))
 
 
-def create_token(store: Store, tenant: str) -> str:
+def create_token(store: AccessStore, tenant: str) -> str:
     """Make a token for ``tenant``, store its hash, and return the token (shown once)."""
     if not valid_tenant_name(tenant):
         raise ValueError("tenant names are 1-64 letters, digits, '.', '_' or '-'")
@@ -46,7 +46,7 @@ def create_token(store: Store, tenant: str) -> str:
     return token
 
 
-def tenant_of(store: Store, token: str) -> str | None:
+def tenant_of(store: AccessStore, token: str) -> str | None:
     """The tenant of a presented token, or None (unknown, revoked or malformed)."""
     if not looks_like_token(token):
         return None
@@ -57,7 +57,7 @@ def tenant_of(store: Store, token: str) -> str | None:
     return record.tenant
 
 
-def ensure_token(store: Store, token: str | None, tenant: str = DEFAULT_TENANT) -> str:
+def ensure_token(store: AccessStore, token: str | None, tenant: str = DEFAULT_TENANT) -> str:
     """The embedded default's token: ``token`` (e.g. ``BALLAST_TOKEN``) registered for ``tenant``
     if it is not yet known, or a new one when ``token`` is None. Returns the usable token."""
     if token is None:

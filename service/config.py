@@ -2,8 +2,9 @@
 
 Keys (all upper case, in the Flask config):
 
-- ``BALLAST_STORE``: a ``Store`` instance; else ``BALLAST_STORE_URL`` is opened (default: the
-  queue's runtime configuration, i.e. Redis when ``BALLAST_REDIS_URL`` is set, else SQLite).
+- ``BALLAST_STORES``: a ``workers.store.Stores`` pair; else ``BALLAST_STORE_URL`` is opened
+  (default: the queue's runtime configuration, i.e. Redis when ``BALLAST_REDIS_URL`` is set, else
+  SQLite).
 - ``BALLAST_ENQUEUE`` (``list[str] -> None``), ``BALLAST_WORKERS_ALIVE`` and
   ``BALLAST_QUEUE_REACHABLE`` (``() -> bool``): the queue's functions, injectable for tests.
 - ``BALLAST_MAX_BODY_BYTES``: largest request body accepted (413 above, chunked bodies too).
@@ -22,7 +23,7 @@ import os
 from typing import Any
 
 DEFAULTS: dict[str, Any] = {
-    "BALLAST_STORE": None,
+    "BALLAST_STORES": None,
     "BALLAST_STORE_URL": None,
     "BALLAST_STORE_PREFIX": "ballast:",
     "BALLAST_ENQUEUE": None,

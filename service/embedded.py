@@ -112,13 +112,13 @@ def local_token(config: RuntimeConfig) -> str | None:
 def prepare_token(config: RuntimeConfig) -> str:
     """Register the token the service prints (creating one if needed) and keep it for restarts."""
     from service.auth import ensure_token
-    from workers.store_access import open_configured_store
+    from workers.store_access import open_configured_stores
 
-    store = open_configured_store(config)
+    stores = open_configured_stores(config)
     try:
-        token = ensure_token(store, local_token(config))
+        token = ensure_token(stores.access, local_token(config))
     finally:
-        store.close()
+        stores.close()
     if config.layout == "embedded" and not os.environ.get("BALLAST_TOKEN"):
         path = config.data_dir / TOKEN_FILE
         tmp = path.with_suffix(f".{secrets.token_hex(4)}")

@@ -23,15 +23,20 @@ class _NoStore:
     def ping(self) -> bool:
         return False
 
+    def close(self) -> None:
+        pass
+
 
 def generate() -> dict[str, Any]:
     from service.app import create_app
+    from workers.store import Stores
 
     def unused(*_: Any) -> bool:
         return False
 
     app = create_app({
-        "BALLAST_STORE": _NoStore(), "BALLAST_ENQUEUE": unused,
+        "BALLAST_STORES": Stores(_NoStore(), _NoStore()),  # type: ignore[arg-type]
+        "BALLAST_ENQUEUE": unused,
         "BALLAST_WORKERS_ALIVE": unused, "BALLAST_QUEUE_REACHABLE": unused,
     })
     with app.app_context():

@@ -1,23 +1,21 @@
-"""Run one JSON check request through the engine and return the verdict JSON.
+"""Run one check request through the engine and return the verdict JSON.
 
-Used by the ``ballast check`` command and by the queue's task, so that both return exactly the
-engine's verdict.
+Used by the ``ballast check`` command, the reports and the tests, so that they all return exactly
+the engine's verdict; workers run stored requests the same way (``workers.tasks``).
 """
 
 from __future__ import annotations
 
+from collections.abc import Mapping
 from typing import Any
 
-from service.schemas.request import CheckRequestSchema
+from service.intake import load_request
 from workers.engine import run_check
-from workers.engine.request import CheckRequest
+from workers.store import StoredRequest
+
+__all__ = ["load_request", "run_check_json"]
 
 
-def load_request(payload: dict[str, Any]) -> CheckRequest:
-    """Validate a JSON check request (raises marshmallow.ValidationError naming the field)."""
-    return CheckRequestSchema().load(payload)
-
-
-def run_check_json(payload: dict[str, Any]) -> dict[str, Any]:
-    """Validate, run, and return the verdict as plain JSON types."""
+def run_check_json(payload: Mapping[str, Any] | StoredRequest) -> dict[str, Any]:
+    """Validate (or read back), run, and return the verdict as plain JSON types."""
     return run_check(load_request(payload)).to_dict()

@@ -1,8 +1,8 @@
-"""Fixtures for the HTTP API tests: an app on a SQLite store with a fake queue, tokens, helpers.
+"""Fixtures for the HTTP API tests: an app on SQLite stores with a fake queue, tokens, helpers.
 
 The fake queue records what the API enqueued and says what /readyz should see; ``run_worker``
-does what a worker does with a check id (claim, run the engine on the stored request, complete),
-so verdicts in these tests are the engine's own.
+does what a worker does with a check id (claim, decode the stored request, run the engine,
+complete), so verdicts in these tests are the engine's own.
 """
 
 from __future__ import annotations
@@ -16,8 +16,10 @@ import pytest
 
 from service.app import create_app
 from service.auth import create_token
-from service.runner import run_check_json
-from service.store.sqlite_store import SqliteStore
+from workers.engine import run_check
+from workers.intake import decode_stored
+from workers.store import CheckStore, Stores
+from workers.store.sqlite_backend import SqliteAccessStore, SqliteCheckStore, SqliteDatabase
 
 
 @dataclass
@@ -30,9 +32,9 @@ class FakeQueue:
         self.enqueued += check_ids
 
 
-def api_config(store: Any, queue: FakeQueue, **overrides: Any) -> dict[str, Any]:
+def api_config(stores: Stores, queue: FakeQueue, **overrides: Any) -> dict[str, Any]:
     return {
-        "BALLAST_STORE": store,
+        "BALLAST_STORES": stores,
         "BALLAST_ENQUEUE": queue.enqueue,
         "BALLAST_WORKERS_ALIVE": lambda: queue.alive,
         "BALLAST_QUEUE_REACHABLE": lambda: queue.reachable,
@@ -40,11 +42,17 @@ def api_config(store: Any, queue: FakeQueue, **overrides: Any) -> dict[str, Any]
     }
 
 
+def sqlite_file_stores(path: Any) -> Stores:
+    """Both stores on one SQLite file, on the real clock."""
+    database = SqliteDatabase(path)
+    return Stores(SqliteCheckStore(database=database), SqliteAccessStore(database=database))
+
+
 @pytest.fixture
-def api_store(tmp_path) -> Iterator[SqliteStore]:
-    store = SqliteStore(tmp_path / "api.sqlite3")
-    yield store
-    store.close()
+def api_stores(tmp_path) -> Iterator[Stores]:
+    stores = sqlite_file_stores(tmp_path / "api.sqlite3")
+    yield stores
+    stores.close()
 
 
 @pytest.fixture
@@ -53,8 +61,8 @@ def fake_queue() -> FakeQueue:
 
 
 @pytest.fixture
-def app(api_store, fake_queue):
-    return create_app(api_config(api_store, fake_queue))
+def app(api_stores, fake_queue):
+    return create_app(api_config(api_stores, fake_queue))
 
 
 @pytest.fixture
@@ -63,22 +71,23 @@ def client(app):
 
 
 @pytest.fixture
-def auth(api_store) -> dict[str, str]:
-    return {"Authorization": f"Bearer {create_token(api_store, 'acme')}"}
+def auth(api_stores) -> dict[str, str]:
+    return {"Authorization": f"Bearer {create_token(api_stores.access, 'acme')}"}
 
 
 @pytest.fixture
-def rival_auth(api_store) -> dict[str, str]:
-    return {"Authorization": f"Bearer {create_token(api_store, 'rival')}"}
+def rival_auth(api_stores) -> dict[str, str]:
+    return {"Authorization": f"Bearer {create_token(api_stores.access, 'rival')}"}
 
 
-def run_worker(store: Any, check_ids: list[str]) -> list[dict[str, Any]]:
-    """Claim each check, run the engine on its stored request and complete it."""
+def run_worker(checks: CheckStore, check_ids: list[str]) -> list[dict[str, Any]]:
+    """Claim each check, run the engine on its stored request and complete it (what
+    ``workers.tasks`` does)."""
     verdicts = []
     for check_id in check_ids:
-        assert store.claim(check_id, lease_s=60, max_attempts=3) is not None
-        verdict = run_check_json(store.get_request(check_id))
-        assert store.complete(check_id, verdict)
+        assert checks.claim(check_id, lease_s=60, max_attempts=3) is not None
+        verdict = run_check(decode_stored(checks.get_request(check_id))).to_dict()
+        assert checks.complete(check_id, verdict)
         verdicts.append(verdict)
     return verdicts
 

@@ -21,14 +21,16 @@ from werkzeug.serving import WSGIRequestHandler, make_server
 
 from service.app import create_app
 from service.auth import create_token
-from service.runner import run_check_json
-from service.store.sqlite_store import SqliteStore
+from tests.api_fixtures import sqlite_file_stores
+from workers.engine import run_check
+from workers.intake import decode_stored
+from workers.store import CheckStore, Stores
 
 
 class InlineQueue:
     """Runs enqueued checks one after another on a daemon thread."""
 
-    def __init__(self, store: SqliteStore) -> None:
+    def __init__(self, store: CheckStore) -> None:
         self.store = store
         self._ids: queue.Queue[str | None] = queue.Queue()
         self._running = threading.Event()
@@ -61,7 +63,10 @@ class InlineQueue:
             if record is None:  # cancelled meanwhile, or already final
                 continue
             try:
-                verdict = run_check_json(self.store.get_request(check_id) or {})
+                stored = self.store.get_request(check_id)
+                if stored is None:
+                    raise LookupError("the check's request is missing from the store")
+                verdict = run_check(decode_stored(stored)).to_dict()
             except Exception as exc:
                 self.store.fail(check_id, f"{type(exc).__name__}: {exc}")
             else:
@@ -77,7 +82,7 @@ class _QuietHandler(WSGIRequestHandler):
 class LiveServer:
     url: str
     token: str
-    store: SqliteStore
+    stores: Stores
     queue: InlineQueue
     app: Any
 
@@ -85,23 +90,23 @@ class LiveServer:
 @contextmanager
 def live_server(folder: Path, **config: Any) -> Iterator[LiveServer]:
     """Serve ``create_app`` on 127.0.0.1 (a free port) until the block ends."""
-    store = SqliteStore(folder / "store.sqlite3")
-    inline = InlineQueue(store)
+    stores = sqlite_file_stores(folder / "store.sqlite3")
+    inline = InlineQueue(stores.checks)
     app = create_app({
-        "BALLAST_STORE": store,
+        "BALLAST_STORES": stores,
         "BALLAST_ENQUEUE": inline.enqueue,
         "BALLAST_WORKERS_ALIVE": lambda: True,
         "BALLAST_QUEUE_REACHABLE": lambda: True,
         **config,
     })
-    token = create_token(store, "acme")
+    token = create_token(stores.access, "acme")
     server = make_server("127.0.0.1", 0, app, threaded=True, request_handler=_QuietHandler)
     thread = threading.Thread(target=server.serve_forever, name="live-server", daemon=True)
     thread.start()
     try:
-        yield LiveServer(f"http://127.0.0.1:{server.server_port}", token, store, inline, app)
+        yield LiveServer(f"http://127.0.0.1:{server.server_port}", token, stores, inline, app)
     finally:
         server.shutdown()
         thread.join(timeout=10)
         inline.stop()
-        store.close()
+        stores.close()

@@ -12,8 +12,6 @@ from collections.abc import Iterator
 
 import pytest
 
-from service.store.redis_store import RedisStore
-from service.store.sqlite_store import SqliteStore
 from workers.store import Stores
 from workers.store.redis_backend import RedisAccessStore, RedisCheckStore, connect
 from workers.store.sqlite_backend import SqliteAccessStore, SqliteCheckStore, SqliteDatabase
@@ -36,32 +34,6 @@ class FakeClock:
 @pytest.fixture
 def clock() -> FakeClock:
     return FakeClock()
-
-
-def _redis_store(clock: FakeClock) -> Iterator[RedisStore]:
-    prefix = f"ballast-test:{uuid.uuid4().hex}:"
-    store = RedisStore(TEST_REDIS_URL, prefix=prefix, clock=clock)
-    if not store.ping():
-        pytest.fail(f"no Redis at {TEST_REDIS_URL} (the store tests need a real Redis)")
-    try:
-        yield store
-    finally:
-        keys = list(store.r.scan_iter(match=prefix + "*", count=1000))
-        if keys:
-            store.r.delete(*keys)
-        store.close()
-
-
-@pytest.fixture(params=["sqlite", "redis"])
-def store(request: pytest.FixtureRequest, tmp_path, clock: FakeClock) -> Iterator[object]:
-    """The same tests run on both store implementations."""
-    if request.param == "sqlite":
-        s = SqliteStore(tmp_path / "store.sqlite3", clock=clock)
-        yield s
-        s.close()
-    else:
-        yield from _redis_store(clock)
-
 
 
 def redis_stores(clock: FakeClock) -> Iterator[Stores]:

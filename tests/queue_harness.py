@@ -21,10 +21,12 @@ from typing import Any
 
 import redis
 
-from service.store import NewCheck, Store
+from service.intake import load_request, new_check
 from workers.celery_app import make_app
+from workers.intake import SharedArrays
 from workers.queue import publish
 from workers.runtime_config import load_config
+from workers.store import CheckStore
 from workers.worker_process import worker_argv
 
 REDIS_SERVER = shutil.which("redis-server")
@@ -186,11 +188,19 @@ def engine_verdicts(requests: list[dict], env: dict[str, str]) -> list[dict]:
     return json.loads(done.stdout)
 
 
-def submit(store: Store, env: dict[str, str], requests: list[tuple[str, dict]],
+def stored_batch(store: CheckStore, requests: list[tuple[str, dict]],
+                 tenant: str = "t") -> list[str]:
+    """Store checks as the API does: validated, as one batch with its shared arrays."""
+    arrays = SharedArrays()
+    checks = [new_check(load_request(r), label, arrays) for label, r in requests]
+    _, ids = store.create_checks(tenant, checks, as_batch=True, shared=arrays.blobs)
+    return ids
+
+
+def submit(store: CheckStore, env: dict[str, str], requests: list[tuple[str, dict]],
            tenant: str = "t") -> list[str]:
     """Store checks as the API does (one batch) and publish their ids to the env's broker."""
-    _, ids = store.create_checks(tenant, [NewCheck(r, label=label) for label, r in requests],
-                                 as_batch=True)
+    ids = stored_batch(store, requests, tenant)
     app = make_app(load_config(env))
     try:
         publish(app, ids)
@@ -199,7 +209,7 @@ def submit(store: Store, env: dict[str, str], requests: list[tuple[str, dict]],
     return ids
 
 
-def statuses(store: Store, ids: list[str]) -> dict[str, int]:
+def statuses(store: CheckStore, ids: list[str]) -> dict[str, int]:
     counts: dict[str, int] = {}
     for check_id in ids:
         record = store.get_check_any(check_id)
@@ -208,6 +218,6 @@ def statuses(store: Store, ids: list[str]) -> dict[str, int]:
     return counts
 
 
-def all_final(store: Store, ids: list[str]) -> bool:
+def all_final(store: CheckStore, ids: list[str]) -> bool:
     counts = statuses(store, ids)
     return counts.get("done", 0) + counts.get("failed", 0) + counts.get("cancelled", 0) == len(ids)

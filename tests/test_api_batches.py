@@ -17,8 +17,9 @@ import re
 import numpy as np
 import pytest
 
-from service.store.base import content_hash
+from service.runner import load_request
 from tests.api_fixtures import rlc_request, run_worker, tiny_request
+from tests.request_equality import assert_same_request
 
 PROBLEM = "application/problem+json"
 L_H, C_F, G_NEG_S = 1e-9, 2e-12, -3e-3
@@ -43,37 +44,37 @@ def _link_next(response) -> str | None:
     return match.group(1) if match else None
 
 
-def test_json_batch_runs_and_counts_by_status_and_verdict(client, auth, api_store, fake_queue):
+def test_json_batch_runs_and_counts_by_status_and_verdict(client, auth, api_stores, fake_queue):
     batch = _rlc_batch()
     response = client.post("/v1/batches", json=batch, headers=auth)
     assert response.status_code == 202
     body = response.get_json()
     assert response.headers["Location"] == f"/v1/batches/{body['id']}"
     assert len(body["check_ids"]) == 4 and fake_queue.enqueued == body["check_ids"]
-    # each stored request is the shared map merged with its variant (and the map is stored once)
+    # each stored request is the shared map merged with its variant, as the schema validated it
     for variant, check_id in zip(batch["variants"], body["check_ids"], strict=True):
         member = {k: v for k, v in variant.items() if k != "label"}
-        assert api_store.get_request(check_id) == {**batch["map"], **member}
-    # the variant's own text is kept as sent (with its label), not serialised again
-    stored = api_store._conn().execute(
-        "SELECT request FROM checks WHERE id = ?", (body["check_ids"][0],)).fetchone()[0]
-    assert json.loads(stored)["label"] == "R=200"
-    blobs = api_store._conn().execute("SELECT hash FROM blobs").fetchall()
-    assert [b[0] for b in blobs] == [content_hash(batch["map"])]
+        assert_same_request(load_request(api_stores.checks.get_request(check_id)),
+                            load_request({**batch["map"], **member}))
+    # what the map gives every variant (its 4001 frequencies) is stored once, beside the checks
+    grid = np.asarray(batch["map"]["frequency_hz"], dtype="<f8").tobytes()
+    db = api_stores.checks._conn()
+    assert grid in [row[0] for row in db.execute("SELECT body FROM blobs")]
+    assert not any(grid in row[0] for row in db.execute("SELECT request FROM checks"))
 
     summary = client.get(f"/v1/batches/{body['id']}", headers=auth).get_json()
     assert summary["size"] == 4 and summary["finished"] is False
     assert summary["counts_by_status"] == {"queued": 4, "running": 0, "done": 0, "failed": 0,
                                            "cancelled": 0}
-    run_worker(api_store, body["check_ids"])
+    run_worker(api_stores.checks, body["check_ids"])
     summary = client.get(f"/v1/batches/{body['id']}", headers=auth).get_json()
     assert summary["finished"] is True and summary["counts_by_status"]["done"] == 4
     assert summary["counts_by_verdict"] == {"stable": 2, "unstable": 2, "indeterminate": 0}
 
 
-def test_listing_shows_the_first_offending_mode_and_filters(client, auth, api_store):
+def test_listing_shows_the_first_offending_mode_and_filters(client, auth, api_stores):
     body = client.post("/v1/batches", json=_rlc_batch(), headers=auth).get_json()
-    run_worker(api_store, body["check_ids"])
+    run_worker(api_stores.checks, body["check_ids"])
     page = client.get(f"/v1/batches/{body['id']}/checks?verdict=unstable", headers=auth)
     items = page.get_json()["items"]
     assert [i["label"] for i in items] == ["R=500", "R=1000"]
@@ -107,7 +108,7 @@ def test_cursor_pagination_with_link_next(client, auth):
 
 
 def test_invalid_variant_names_index_label_and_field_and_stores_nothing(
-        client, auth, api_store, fake_queue):
+        client, auth, api_stores, fake_queue):
     batch = _rlc_batch()
     batch["variants"][2]["data"]["re"] = batch["variants"][2]["data"]["re"][:-1]  # F − 1 rows
     batch["variants"][3]["wobble"] = 1
@@ -123,7 +124,7 @@ def test_invalid_variant_names_index_label_and_field_and_stores_nothing(
     problem = client.post("/v1/batches", json=batch, headers=auth).get_json()
     assert [e["field"][:len("variants.2.data")] for e in problem["errors"]] == ["variants.2.data"]
     assert "variant 2 ('R=500')" in problem["errors"][0]["detail"]
-    assert api_store.list_batches("acme") == [] and fake_queue.enqueued == []
+    assert api_stores.checks.list_batches("acme") == [] and fake_queue.enqueued == []
 
 
 def test_error_in_the_shared_map_is_attributed_to_the_map(client, auth):
@@ -134,7 +135,7 @@ def test_error_in_the_shared_map_is_attributed_to_the_map(client, auth):
     assert "4 of 4 variants" in problem["detail"]
 
 
-def test_a_thousand_variants_in_one_batch(client, auth, api_store):
+def test_a_thousand_variants_in_one_batch(client, auth, api_stores):
     rng = np.random.default_rng(7)
     variants = []
     for i, g in enumerate(rng.uniform(0.01, 0.05, size=1000)):
@@ -148,7 +149,10 @@ def test_a_thousand_variants_in_one_batch(client, auth, api_store):
     assert len(set(ids)) == 1000
     summary = client.get(f"/v1/batches/{response.get_json()['id']}", headers=auth).get_json()
     assert summary["counts_by_status"]["queued"] == 1000
-    assert api_store.get_request(ids[999])["data"] == variants[999]["data"]
+    stored = load_request(api_stores.checks.get_request(ids[999]))
+    data = variants[999]["data"]
+    sent = np.asarray(data["re"]) + 1j * np.asarray(data["im"])
+    assert np.array_equal(stored.network.values, sent)
 
 
 UPLOAD_FREQUENCY_HZ = np.geomspace(1e7, 1e12, 401)
@@ -163,7 +167,7 @@ def _touchstone(r_ohm: float) -> str:
     return to_touchstone(UPLOAD_FREQUENCY_HZ, s, z0=50.0)
 
 
-def test_multipart_upload_of_touchstone_files(client, auth, api_store):
+def test_multipart_upload_of_touchstone_files(client, auth, api_stores):
     base = rlc_request(200.0)
     shared = {"ports": base["ports"], "devices": base["devices"]}
 
@@ -174,10 +178,11 @@ def test_multipart_upload_of_touchstone_files(client, auth, api_store):
     )
     assert response.status_code == 202, response.get_json()
     ids = response.get_json()["check_ids"]
-    verdicts = run_worker(api_store, ids)
-    # each stored request is the map plus that file's text (run_worker ran the engine on it)
+    verdicts = run_worker(api_stores.checks, ids)
+    # each stored request is the map plus that file, parsed (run_worker ran the engine on it)
     for check_id, r in zip(ids, (200.0, 250.0), strict=True):
-        assert api_store.get_request(check_id) == {**shared, "touchstone": _touchstone(r)}
+        assert_same_request(load_request(api_stores.checks.get_request(check_id)),
+                            load_request({**shared, "touchstone": _touchstone(r)}))
     items = client.get(f"/v1/batches/{response.get_json()['id']}/checks",
                        headers=auth).get_json()["items"]
     assert [i["label"] for i in items] == ["tank-200.s1p", "tank-250.s1p"]
@@ -200,9 +205,9 @@ def test_multipart_errors_name_the_file(client, auth):
     assert [e["field"] for e in missing["errors"]] == ["map"]
 
 
-def test_cancel_batch_and_recent_batches(client, auth, rival_auth, api_store):
+def test_cancel_batch_and_recent_batches(client, auth, rival_auth, api_stores):
     first = client.post("/v1/batches", json=_rlc_batch(), headers=auth).get_json()
-    run_worker(api_store, first["check_ids"][:1])
+    run_worker(api_stores.checks, first["check_ids"][:1])
     response = client.delete(f"/v1/batches/{first['id']}", headers=auth)
     assert response.status_code == 200
     assert response.get_json()["counts_by_status"]["cancelled"] == 3
@@ -241,15 +246,16 @@ def test_on_redis_an_invalid_late_variant_unqueues_the_early_ones(clock, monkeyp
     from service.app import create_app
     from service.auth import create_token
     from tests.api_fixtures import FakeQueue, api_config
-    from tests.conftest import _redis_store
+    from tests.conftest import redis_stores
 
-    monkeypatch.setattr("service.store.redis_store.STORE_CHUNK_CHECKS", 2)
-    gen = _redis_store(clock)
-    store = next(gen)
+    monkeypatch.setattr("workers.store.redis_backend.checks.STORE_CHUNK_CHECKS", 2)
+    gen = redis_stores(clock)
+    stores = next(gen)
+    store = stores.checks
     try:
         queue = FakeQueue()
-        client = create_app(api_config(store, queue)).test_client()
-        auth = {"Authorization": f"Bearer {create_token(store, 'acme')}"}
+        client = create_app(api_config(stores, queue)).test_client()
+        auth = {"Authorization": f"Bearer {create_token(stores.access, 'acme')}"}
         batch = _rlc_batch()
         batch["variants"][3]["data"]["re"] = batch["variants"][3]["data"]["re"][:-1]
         response = client.post("/v1/batches", json=batch, headers=auth)
@@ -269,29 +275,30 @@ def test_on_redis_an_invalid_late_variant_unqueues_the_early_ones(clock, monkeyp
         gen.close()
 
 
-def test_packed_variants_are_stored_in_binary_and_give_the_same_verdicts(
-        client, auth, api_store):
+def test_packed_variants_are_stored_as_the_lists_give_the_same_verdicts(
+        client, auth, api_stores):
     # The same four closed-form tanks with their data packed (base64 of little-endian
-    # complex128, RFC 4648): stored as MessagePack with the bytes (service.store.payload), the
-    # verdicts equal those of the list form, and so the closed-form counts.
+    # complex128, RFC 4648): validated into the same requests, so stored as the same bytes
+    # (workers.intake), and the verdicts equal those of the list form: the closed-form counts.
     from service.schemas.request import pack_array
 
+    def stored(ids: list[str]) -> list[bytes]:
+        return [api_stores.checks.get_request(cid).payload for cid in ids]
+
     batch = _rlc_batch()
-    lists_verdicts = run_worker(api_store, client.post(
-        "/v1/batches", json=batch, headers=auth).get_json()["check_ids"])
+    lists_ids = client.post("/v1/batches", json=batch, headers=auth).get_json()["check_ids"]
+    lists_verdicts = run_worker(api_stores.checks, lists_ids)
     for variant in batch["variants"]:
         data = np.asarray(variant["data"]["re"]) + 1j * np.asarray(variant["data"]["im"])
         variant["data"] = pack_array(data)
     ids = client.post("/v1/batches", json=batch, headers=auth).get_json()["check_ids"]
-    kinds = [api_store._conn().execute("SELECT typeof(request) FROM checks WHERE id = ?",
-                                       (cid,)).fetchone()[0] for cid in ids]
-    assert kinds == ["blob"] * 4
-    assert run_worker(api_store, ids) == lists_verdicts
+    assert stored(ids) == stored(lists_ids)
+    assert run_worker(api_stores.checks, ids) == lists_verdicts
     assert [v["verdict"] for v in lists_verdicts] == ["stable", "stable", "unstable", "unstable"]
 
 
 @pytest.mark.parametrize("text", ["@@@@", "\u0080", "QUJ"])
-def test_packed_variant_with_bad_base64_is_named(client, auth, api_store, text):
+def test_packed_variant_with_bad_base64_is_named(client, auth, api_stores, text):
     # RFC 4648 §4: only its alphabet, in complete 4-character groups; a JSON string may hold
     # anything, non-ASCII included.
     from service.schemas.request import pack_array
@@ -305,4 +312,4 @@ def test_packed_variant_with_bad_base64_is_named(client, auth, api_store, text):
     assert response.status_code == 422 and response.mimetype == PROBLEM
     assert [e["field"] for e in problem["errors"]] == ["variants.1.data.base64"]
     assert "base64" in problem["errors"][0]["detail"]
-    assert api_store.list_batches("acme") == []
+    assert api_stores.checks.list_batches("acme") == []

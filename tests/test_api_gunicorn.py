@@ -19,7 +19,7 @@ import time
 import pytest
 
 from service.auth import create_token
-from service.store.sqlite_store import SqliteStore
+from tests.api_fixtures import sqlite_file_stores
 
 CAP = 4096
 
@@ -34,8 +34,8 @@ def _free_port() -> int:
 def gunicorn(tmp_path_factory: pytest.TempPathFactory):
     tmp_path = tmp_path_factory.mktemp("gunicorn")
     store_path = tmp_path / "store.sqlite3"
-    setup_store = SqliteStore(store_path)
-    token = create_token(setup_store, "acme")
+    setup_store = sqlite_file_stores(store_path)
+    token = create_token(setup_store.access, "acme")
     setup_store.close()
     port = _free_port()
     env = {**os.environ, "BALLAST_STORE_URL": f"sqlite:///{store_path}",

@@ -42,7 +42,7 @@ def test_unknown_path_is_a_problem(client, auth):
     _is_problem(client.get("/v2/nothing", headers=auth), 404)
 
 
-def test_401_without_or_with_a_bad_token(client, api_store):
+def test_401_without_or_with_a_bad_token(client, api_stores):
     missing = client.get("/v1/batches")
     _is_problem(missing, 401)
     assert missing.headers["WWW-Authenticate"].startswith("Bearer")
@@ -51,18 +51,18 @@ def test_401_without_or_with_a_bad_token(client, api_store):
     assert 'error="invalid_token"' in wrong.headers["WWW-Authenticate"]
     basic = client.get("/v1/batches", headers={"Authorization": "Basic dXNlcjpwYXNz"})
     _is_problem(basic, 401)
-    token = create_token(api_store, "acme")
+    token = create_token(api_stores.access, "acme")
     assert client.get("/v1/batches", headers={"Authorization": f"Bearer {token}"}
                       ).status_code == 200
     from service.auth import hash_token
 
-    api_store.revoke_token(hash_token(token))
+    api_stores.access.revoke_token(hash_token(token))
     _is_problem(client.get("/v1/batches", headers={"Authorization": f"Bearer {token}"}), 401)
 
 
 @pytest.fixture
-def small_app(api_store, fake_queue):
-    return create_app(api_config(api_store, fake_queue, BALLAST_MAX_BODY_BYTES=4096))
+def small_app(api_stores, fake_queue):
+    return create_app(api_config(api_stores, fake_queue, BALLAST_MAX_BODY_BYTES=4096))
 
 
 def test_413_when_content_length_is_over_the_cap(small_app, auth):
@@ -103,8 +103,8 @@ def test_chunked_body_on_a_server_that_does_not_dechunk_answers_411(small_app, a
     _is_problem(response, 411)
 
 
-def test_rate_limit_answers_429_with_retry_after(api_store, fake_queue, auth):
-    app = create_app(api_config(api_store, fake_queue, BALLAST_RATE_LIMIT=3,
+def test_rate_limit_answers_429_with_retry_after(api_stores, fake_queue, auth):
+    app = create_app(api_config(api_stores, fake_queue, BALLAST_RATE_LIMIT=3,
                                 BALLAST_RATE_WINDOW_S=3600.0))
     client = app.test_client()
     statuses = [client.get("/v1/batches", headers=auth).status_code for _ in range(4)]
@@ -114,8 +114,8 @@ def test_rate_limit_answers_429_with_retry_after(api_store, fake_queue, auth):
     assert 1 <= int(response.headers["Retry-After"]) <= 3600
 
 
-def test_unfinished_quota_answers_429(api_store, fake_queue, auth):
-    app = create_app(api_config(api_store, fake_queue,
+def test_unfinished_quota_answers_429(api_stores, fake_queue, auth):
+    app = create_app(api_config(api_stores, fake_queue,
                                 BALLAST_TENANT_LIMITS={"acme": {"max_unfinished": 3}}))
     client = app.test_client()
     batch = {"map": tiny_request(), "variants": [{"label": "a"}, {"label": "b"}]}
@@ -127,7 +127,7 @@ def test_unfinished_quota_answers_429(api_store, fake_queue, auth):
     _is_problem(client.post("/v1/checks", json=tiny_request(), headers=auth), 429)
 
 
-def test_healthz_and_readyz(client, fake_queue, api_store):
+def test_healthz_and_readyz(client, fake_queue, api_stores):
     assert client.get("/healthz").get_json() == {"status": "ok"}
     ready = client.get("/readyz")
     assert ready.status_code == 200 and ready.get_json()["status"] == "ready"
@@ -141,9 +141,9 @@ def test_healthz_and_readyz(client, fake_queue, api_store):
 
 
 def test_readyz_when_the_store_is_down(fake_queue, tmp_path):
-    from service.store.redis_store import RedisStore
+    from workers.store import open_stores
 
-    dead = RedisStore("redis://127.0.0.1:1/0")  # nothing listens on port 1
+    dead = open_stores("redis://127.0.0.1:1/0")  # nothing listens on port 1
     client = create_app(api_config(dead, fake_queue)).test_client()
     response = client.get("/readyz")
     assert response.status_code == 503 and response.get_json()["store"] is False
@@ -160,8 +160,8 @@ def test_settings_from_the_environment():
     assert tenant_limit(config, "big", "max_unfinished") == config["BALLAST_MAX_UNFINISHED"]
 
 
-def test_an_unexpected_error_is_a_500_problem_without_details(api_store, fake_queue):
-    app = create_app(api_config(api_store, fake_queue))
+def test_an_unexpected_error_is_a_500_problem_without_details(api_stores, fake_queue):
+    app = create_app(api_config(api_stores, fake_queue))
 
     @app.get("/boom")
     def boom():

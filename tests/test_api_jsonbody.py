@@ -16,7 +16,7 @@ from hypothesis import given, settings
 from hypothesis import strategies as st
 
 from service.api.jsonbody import outline_batch, parse_with_variant_texts, reject_constant
-from service.store.jsontext import loads_json
+from service.api.jsontext import loads_json
 
 scalars = (st.none() | st.booleans() | st.integers(-10**20, 10**20)
            | st.sampled_from([2**63 - 1, -(2**63), 2**64 - 1, 2**64 + 1, -(2**63) - 1,

@@ -32,8 +32,7 @@ from schemathesis.checks import (
 from service.app import create_app
 from service.auth import create_token
 from service.openapi_export import OPENAPI_PATH, generate, render
-from service.store.sqlite_store import SqliteStore
-from tests.api_fixtures import FakeQueue, api_config
+from tests.api_fixtures import FakeQueue, api_config, sqlite_file_stores
 
 
 def test_committed_document_is_the_generated_one():
@@ -64,8 +63,8 @@ def test_served_document_matches_the_committed_one(client):
 # schemathesis's lazy fixture loader does not work with this pytest, so the fuzzed app is built at
 # import, on a store in a temporary directory that the module's teardown removes.
 _FUZZ_DIR = Path(tempfile.mkdtemp(prefix="ballast-fuzz-"))
-_FUZZ_STORE = SqliteStore(_FUZZ_DIR / "fuzz.sqlite3")
-_FUZZ_TOKEN = create_token(_FUZZ_STORE, "fuzz")
+_FUZZ_STORE = sqlite_file_stores(_FUZZ_DIR / "fuzz.sqlite3")
+_FUZZ_TOKEN = create_token(_FUZZ_STORE.access, "fuzz")
 _FUZZ_APP = create_app(api_config(_FUZZ_STORE, FakeQueue(), BALLAST_RATE_LIMIT=10**9,
                                   BALLAST_MAX_BODY_BYTES=1 << 20))
 schema = schemathesis.openapi.from_wsgi("/openapi.json", _FUZZ_APP)

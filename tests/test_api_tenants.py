@@ -22,8 +22,9 @@ from service.auth import (
     tenant_of,
 )
 from service.cli import main as ballast
-from service.store.sqlite_store import SqliteStore
-from tests.api_fixtures import FakeQueue, api_config, run_worker, tiny_request
+from service.runner import load_request
+from tests.api_fixtures import FakeQueue, api_config, run_worker, sqlite_file_stores, tiny_request
+from tests.request_equality import assert_same_request
 
 
 def test_tokens_have_the_prefix_and_256_random_bits():
@@ -34,35 +35,36 @@ def test_tokens_have_the_prefix_and_256_random_bits():
         assert re.fullmatch(TOKEN_PREFIX + r"[A-Za-z0-9_-]{43}", token)
 
 
-def test_only_the_sha256_digest_is_stored(api_store):
+def test_only_the_sha256_digest_is_stored(api_stores):
+    access = api_stores.access
     # FIPS 180-4 appendix B.1 test vector: SHA-256("abc")
     assert hash_token("abc") == (
         "ba7816bf8f01cfea414140de5dae2223b00361a396177a9cb410ff61f20015ad")
-    token = create_token(api_store, "acme")
-    (record,) = api_store.list_tokens()
+    token = create_token(access, "acme")
+    (record,) = access.list_tokens()
     assert record.token_hash == hash_token(token) and token not in repr(record)
-    dump = "\n".join(api_store._conn().iterdump())
+    dump = "\n".join(access._conn().iterdump())
     assert token not in dump and hash_token(token) in dump
-    assert tenant_of(api_store, token) == "acme"
-    assert tenant_of(api_store, token[:-1] + ("A" if token[-1] != "A" else "B")) is None
+    assert tenant_of(access, token) == "acme"
+    assert tenant_of(access, token[:-1] + ("A" if token[-1] != "A" else "B")) is None
 
 
-def test_ensure_token_uses_the_given_token_or_makes_one(api_store):
+def test_ensure_token_uses_the_given_token_or_makes_one(api_stores):
     given = new_token()
-    assert ensure_token(api_store, given) == given
-    assert ensure_token(api_store, given) == given  # idempotent across restarts
-    assert tenant_of(api_store, given) == "local"
-    made = ensure_token(api_store, None)
-    assert made != given and tenant_of(api_store, made) == "local"
+    assert ensure_token(api_stores.access, given) == given
+    assert ensure_token(api_stores.access, given) == given  # idempotent across restarts
+    assert tenant_of(api_stores.access, given) == "local"
+    made = ensure_token(api_stores.access, None)
+    assert made != given and tenant_of(api_stores.access, made) == "local"
     with pytest.raises(ValueError, match=TOKEN_PREFIX):
-        ensure_token(api_store, "not-a-token")  # a malformed BALLAST_TOKEN is refused
+        ensure_token(api_stores.access, "not-a-token")  # a malformed BALLAST_TOKEN is refused
 
 
 def test_admin_command_creates_lists_and_revokes(tmp_path, capsys):
     url = f"sqlite:///{tmp_path / 'admin.sqlite3'}"
     assert ballast(["token", "--store", url, "create", "--tenant", "acme"]) == 0
     token = capsys.readouterr().out.strip()
-    store = SqliteStore(tmp_path / "admin.sqlite3")
+    store = sqlite_file_stores(tmp_path / "admin.sqlite3").access
     assert tenant_of(store, token) == "acme"
     assert ballast(["token", "--store", url, "list"]) == 0
     listing = capsys.readouterr().out
@@ -73,15 +75,15 @@ def test_admin_command_creates_lists_and_revokes(tmp_path, capsys):
     assert ballast(["token", "--store", url, "create", "--tenant", "bad name!"]) == 3
 
 
-def test_api_on_both_stores_keeps_tenants_apart(store, clock):
-    """The same flow on both back ends (the ``store`` fixture runs SQLite and a real Redis)."""
+def test_api_on_both_stores_keeps_tenants_apart(stores, clock):
+    """The same flow on both back ends (the ``stores`` fixture runs SQLite and a real Redis)."""
     queue = FakeQueue()
-    client = create_app(api_config(store, queue)).test_client()
-    acme = {"Authorization": f"Bearer {create_token(store, 'acme')}"}
-    rival = {"Authorization": f"Bearer {create_token(store, 'rival')}"}
+    client = create_app(api_config(stores, queue)).test_client()
+    acme = {"Authorization": f"Bearer {create_token(stores.access, 'acme')}"}
+    rival = {"Authorization": f"Bearer {create_token(stores.access, 'rival')}"}
     batch = {"map": tiny_request(), "variants": [{"label": "a"}, {"label": "b"}]}
     accepted = client.post("/v1/batches", json=batch, headers=acme).get_json()
-    (verdict, _) = run_worker(store, accepted["check_ids"])
+    (verdict, _) = run_worker(stores.checks, accepted["check_ids"])
     first = accepted["check_ids"][0]
     assert client.get(f"/v1/checks/{first}", headers=acme).get_json()["verdict"] == verdict
     assert client.get(f"/v1/checks/{first}", headers=rival).status_code == 404
@@ -106,13 +108,14 @@ def test_api_on_both_stores_keeps_tenants_apart(store, clock):
 
 def test_accepted_checks_survive_a_restart_of_the_sqlite_store(tmp_path):
     path = tmp_path / "restart.sqlite3"
-    store = SqliteStore(path)
-    headers = {"Authorization": f"Bearer {create_token(store, 'acme')}"}
-    client = create_app(api_config(store, FakeQueue())).test_client()
+    stores = sqlite_file_stores(path)
+    headers = {"Authorization": f"Bearer {create_token(stores.access, 'acme')}"}
+    client = create_app(api_config(stores, FakeQueue())).test_client()
     check_id = client.post("/v1/checks", json=tiny_request(), headers=headers).get_json()["id"]
-    store.close()
-    reopened = SqliteStore(path)
+    stores.close()
+    reopened = sqlite_file_stores(path)
     client = create_app(api_config(reopened, FakeQueue())).test_client()
     body = client.get(f"/v1/checks/{check_id}", headers=headers).get_json()
     assert body["status"] == "queued"
-    assert reopened.get_request(check_id) == tiny_request()
+    assert_same_request(load_request(reopened.checks.get_request(check_id)),
+                        load_request(tiny_request()))

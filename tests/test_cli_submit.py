@@ -171,11 +171,11 @@ def test_cancel_and_failed_checks_are_errors(server, tmp_path, capsys):
                                              "c": tank_request(-8e-3)})
     assert main(["submit", str(folder)]) == 0
     batch_id = capsys.readouterr().out.strip()
-    client_items = server.store.list_batch_checks("acme", batch_id, after=None, limit=10)[0]
+    client_items = server.stores.checks.list_batch_checks("acme", batch_id, after=None, limit=10)[0]
     ids = {r.label: r.id for r in client_items}
     # a worker gives up on "b" (as after a time limit) and "c" runs: unstable outranks failed
-    assert server.store.claim(ids["b.json"], 60.0, 3) is not None
-    assert server.store.fail(ids["b.json"], "time limit exceeded")
+    assert server.stores.checks.claim(ids["b.json"], 60.0, 3) is not None
+    assert server.stores.checks.fail(ids["b.json"], "time limit exceeded")
     assert main(["cancel", ids["a.json"]]) == 0
     assert "cancelled" in capsys.readouterr().out
     assert main(["results", batch_id, "--format", "junit", "-o", str(tmp_path / "j.xml")]) == 3

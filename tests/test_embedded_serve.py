@@ -23,9 +23,9 @@ import pytest
 
 from service.auth import DEFAULT_TENANT
 from service.client import BallastClient, ClientConfig
-from service.store.sqlite_store import SqliteStore
 from tests.queue_harness import engine_verdicts, free_port
 from tests.queue_variants import variants
+from workers.store import open_stores
 
 pytestmark = pytest.mark.integration
 
@@ -127,7 +127,7 @@ def test_readme_demo_command_prints_the_engines_verdicts(tmp_path: Path):
     # Every printed verdict is the stored verdict of that file's check (the store survives the
     # stop), and for one file per topology the stored verdict is the engine's own, recomputed
     # here (all of them would double the test's time: the engine dominates it).
-    store = SqliteStore(tmp_path / "data" / "store.sqlite3")
+    store = open_stores(str(tmp_path / "data" / "store.sqlite3")).checks
     stored = {}
     for batch in store.list_batches(DEFAULT_TENANT):
         page, _ = store.list_batch_checks(DEFAULT_TENANT, batch.id, after=None, limit=1000)

@@ -125,7 +125,7 @@ def test_unknown_forms_and_damaged_payloads_are_named():
 
 
 def test_reading_a_request_loads_neither_marshmallow_nor_flask():
-    code = ("import sys, workers.intake; "
+    code = ("import sys, workers.intake, workers.tasks; "
             "print(sorted(m for m in ('marshmallow', 'flask') if m in sys.modules))")
     done = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True,
                           check=True, cwd=Path(__file__).parent.parent)

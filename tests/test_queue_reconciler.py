@@ -1,6 +1,6 @@
 """The reconciler against the real SQLite store, with a controlled clock and a recording publisher.
 
-What it must do follows from the store contract (service/store/base.py) and from Celery's
+What it must do follows from the store contract (workers/store/protocols.py) and from Celery's
 late-acknowledgement semantics (docs.celeryq.dev, "Should I use retry or acks_late?"): a check
 whose lease ran out is handed out again, and a check that sat queued while the broker's queue was
 empty was never delivered.
@@ -12,10 +12,10 @@ from pathlib import Path
 
 import pytest
 
-from service.store import NewCheck
-from service.store.sqlite_store import SqliteStore
 from workers.reconciler import Reconciler
 from workers.runtime_config import load_config
+from workers.store import NewCheck
+from workers.store.sqlite_backend import SqliteCheckStore
 
 
 class Clock:
@@ -31,13 +31,13 @@ def setup(tmp_path: Path):
     config = load_config({"BALLAST_DATA_DIR": str(tmp_path), "BALLAST_SOFT_TIME_LIMIT_S": "10",
                           "BALLAST_HARD_TIME_LIMIT_S": "20", "BALLAST_RECONCILE_INTERVAL_S": "1"})
     clock = Clock()
-    store = SqliteStore(tmp_path / "store.sqlite3", clock=clock)
+    store = SqliteCheckStore(tmp_path / "store.sqlite3", clock=clock)
     published: list[list[str]] = []
     queue_size = {"n": 0}
     reconciler = Reconciler(config, store, published.append, lambda: queue_size["n"],
                             stale_after_s=30.0)
-    _, ids = store.create_checks("t", [NewCheck({"x": i}, label=f"c{i}") for i in range(3)],
-                                 as_batch=True)
+    new = [NewCheck(b"request %d" % i, "test/opaque", f"c{i}") for i in range(3)]
+    _, ids = store.create_checks("t", new, as_batch=True)
     yield config, clock, store, published, queue_size, reconciler, ids
     store.close()
 

@@ -5,7 +5,7 @@ the workers' environment (``engine_verdicts``): the queue must hand back exactly
 computes. The failure semantics tested are
 Celery's documented late-acknowledgement behaviour (docs.celeryq.dev, configuration:
 task_acks_late, task_reject_on_worker_lost, task_time_limit / task_soft_time_limit) and the
-store's claim contract (service/store/base.py).
+store's claim contract (workers/store/protocols.py).
 """
 
 from __future__ import annotations
@@ -14,7 +14,6 @@ from pathlib import Path
 
 import pytest
 
-from service.store import NewCheck, open_store
 from tests.queue_harness import (
     REDIS_SERVER,
     RedisServer,
@@ -22,6 +21,7 @@ from tests.queue_harness import (
     all_final,
     engine_verdicts,
     statuses,
+    stored_batch,
     submit,
     wait_until,
     worker_env,
@@ -29,6 +29,7 @@ from tests.queue_harness import (
 from tests.queue_variants import variants
 from workers.celery_app import make_app
 from workers.runtime_config import CHECK_QUEUE, RUN_CHECK_TASK, load_config
+from workers.store import open_stores
 
 pytestmark = [
     pytest.mark.integration,
@@ -49,7 +50,7 @@ def redis_server(tmp_path: Path):
 
 @pytest.fixture
 def store(redis_server: RedisServer):
-    store = open_store(redis_server.url)
+    store = open_stores(redis_server.url).checks
     yield store
     store.close()
 
@@ -110,7 +111,7 @@ def test_killed_worker_check_completes_on_another(layout, redis_server, workers,
     env = worker_env(redis_url, tmp_path / "data", BALLAST_SOFT_TIME_LIMIT_S="5",
                      BALLAST_HARD_TIME_LIMIT_S="6", BALLAST_TEST_PAUSE_LABEL="slow",
                      BALLAST_TEST_PAUSE_S="3")
-    store = open_store(load_config(env).store_url)
+    store = open_stores(load_config(env).store_url).checks
     pool = [workers(env, name="first"), workers(env, name="second")]
     (variant,) = variants(1, points=101)
     (want,) = engine_verdicts([variant.request], env)
@@ -138,8 +139,7 @@ def test_stored_but_unpublished_checks_are_delivered_by_the_reconciler(
     workers(env)
     batch = variants(3, points=101)
     expected = engine_verdicts([v.request for v in batch], env)
-    _, ids = store.create_checks("t", [NewCheck(v.request, label=v.label) for v in batch],
-                                 as_batch=True)  # stored, never published
+    ids = stored_batch(store, [(v.label, v.request) for v in batch])  # never published
     wait_until(lambda: all_final(store, ids), 60, "the reconciler to deliver them")
     for check_id, want in zip(ids, expected, strict=True):
         record = store.get_check_any(check_id)
@@ -239,7 +239,7 @@ def test_pickle_message_is_refused(redis_server, store, workers, tmp_path):
     env = worker_env(redis_server.url, tmp_path)
     worker = workers(env)
     (variant,) = variants(1, points=101)
-    _, (check_id,) = store.create_checks("t", [NewCheck(variant.request, label="pickled")])
+    (check_id,) = stored_batch(store, [("pickled", variant.request)])
     app = make_app(load_config(env))
     app.send_task(RUN_CHECK_TASK, args=[check_id], queue=CHECK_QUEUE, serializer="pickle")
     wait_until(lambda: "pickle" in worker.log_text(), 30, "the worker to refuse the message")

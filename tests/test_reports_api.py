@@ -85,7 +85,7 @@ def test_unknown_things_are_problems(served, path, status):
 
 def test_other_tenants_and_strangers_see_nothing(served):
     live, _, batch_id, check_id = served
-    other = create_token(live.store, "rival")
+    other = create_token(live.stores.access, "rival")
     for path in (f"/v1/checks/{check_id}/plots/ndf.svg", f"/v1/checks/{check_id}/report",
                  f"/v1/batches/{batch_id}/report"):
         response = requests.get(live.url + path, timeout=60,

@@ -18,7 +18,7 @@ from workers.heartbeat import beat, forget
 from workers.queue import enqueue
 from workers.reconciler import Reconciler
 from workers.runtime_config import CHECK_QUEUE
-from workers.store_access import open_configured_store
+from workers.store_access import open_configured_stores
 
 log = logging.getLogger("ballast.worker")
 
@@ -65,8 +65,9 @@ def _start_services(sender: Any = None, **_: Any) -> None:
     name = str(getattr(sender, "hostname", None) or "worker")
     heartbeat = _Heartbeat(name)
     heartbeat.start()
-    store = open_configured_store(config)
-    reconciler = Reconciler(config, store, enqueue, broker_queue_size, owner=name)
+    stores = open_configured_stores(config)
+    reconciler = Reconciler(config, stores.checks, enqueue, broker_queue_size, owner=name,
+                            access=stores.access)
     reconciler.start()
     _running.update(heartbeat=heartbeat, reconciler=reconciler)
     log.info("ballast worker %s ready (layout %s, max attempts %d, limits %g/%g s)", name,

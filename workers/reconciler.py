@@ -7,7 +7,8 @@ Every ``reconcile_interval_s`` one reconciler (a leader lock elects one per tick
 * when the broker's check queue is empty, re-queues ``queued`` checks older than
   ``stale_after_s``: with nothing waiting in the queue, such a check was never delivered (a
   publish that failed, a message dropped with a killed worker's prefetch);
-* once an hour, purges what is older than the store's retention.
+* once an hour, purges what is older than the stores' retention (checks, batches, their shared
+  bytes; expired idempotency keys).
 
 Re-queuing twice is harmless (the claim is a compare-and-set), but a check is re-queued at most
 once per back-off period (the lease for expired checks; ``stale_after_s`` for queued ones, whose
@@ -27,8 +28,8 @@ from typing import IO
 
 import redis
 
-from service.store.base import Store
 from workers.runtime_config import RuntimeConfig
+from workers.store import AccessStore, CheckStore
 
 log = logging.getLogger("ballast.reconciler")
 
@@ -86,15 +87,17 @@ class Reconciler:
     def __init__(
         self,
         config: RuntimeConfig,
-        store: Store,
+        store: CheckStore,
         publish: Callable[[list[str]], None],
         queue_size: Callable[[], int],
         *,
         owner: str = "reconciler",
         stale_after_s: float | None = None,
+        access: AccessStore | None = None,
     ) -> None:
         self.config = config
         self.store = store
+        self.access = access
         self.publish = publish
         self.queue_size = queue_size
         self.owner = owner
@@ -138,6 +141,8 @@ class Reconciler:
             if now - self._last_purge >= PURGE_EVERY_S:
                 self._last_purge = now
                 purged = self.store.purge(now)
+                if self.access is not None:
+                    self.access.purge(now)
                 if purged:
                     log.info("purged %d check(s) older than the retention", purged)
             return TickReport(expired=tuple(expired), undelivered=tuple(undelivered))

@@ -1,6 +1,7 @@
 """The check task: thin and idempotent. It receives a check id and nothing else.
 
-claim (compare-and-set, attempts += 1, lease) → load the request → run the engine → complete.
+claim (compare-and-set, attempts += 1, lease) → read the stored request (validated by the API when
+it was accepted: only decoded here, ``workers.intake``) → run the engine → complete.
 A duplicate or late message finds the check already claimed or final and does nothing; a check
 that has used up its attempts is marked ``failed`` by the claim itself, so a check that kills its
 worker every time stops after ``BALLAST_MAX_ATTEMPTS`` deliveries.
@@ -19,13 +20,13 @@ import redis.exceptions
 from billiard.einfo import ExceptionWithTraceback
 from billiard.exceptions import SoftTimeLimitExceeded, WorkerLostError
 from celery.worker.request import Request
-from marshmallow import ValidationError
 
-from service.runner import run_check_json  # loaded by the worker before it forks its pool
 from workers.celery_app import app, config
 from workers.collector import collector_paused
+from workers.engine import run_check as run_engine  # loaded before the worker forks its pool
+from workers.intake import StoredRequestError, decode_stored
 from workers.runtime_config import RUN_CHECK_TASK
-from workers.store_access import process_store
+from workers.store_access import process_stores
 
 log = logging.getLogger("ballast.worker")
 
@@ -105,7 +106,7 @@ class CheckRequest(Request):
         if isinstance(exc, WorkerLostError) and self.args:
             check_id = str(self.args[0])
             try:
-                _with_store_retry(lambda: process_store().release(check_id),
+                _with_store_retry(lambda: process_stores().checks.release(check_id),
                                   "release " + check_id)
             except Exception:  # the lease then runs out and the reconciler re-queues it
                 log.exception("could not release the lease of %s", check_id)
@@ -118,7 +119,8 @@ class CheckRequest(Request):
         check_id = str(self.args[0])
         reason = f"time limit exceeded: the check ran longer than {timeout:g} s (hard limit)"
         try:
-            _with_store_retry(lambda: process_store().fail(check_id, reason), "fail " + check_id)
+            _with_store_retry(lambda: process_stores().checks.fail(check_id, reason),
+                              "fail " + check_id)
         except Exception:  # the lease expiry path still ends the check
             log.exception("could not record the hard time-out of %s", check_id)
 
@@ -136,8 +138,8 @@ class CheckRequest(Request):
 def run_check(self: Any, check_id: str) -> str:
     """Run one stored check; returns what happened (for the worker log): done/failed/skipped.
 
-    The cyclic garbage collector is paused for the task: the loaded request (some ten thousand
-    small lists) is freed by reference counting when the task ends, unscanned
+    The cyclic garbage collector is paused for the task: the request and the engine's
+    intermediate objects are freed by reference counting when the task ends, unscanned
     (``workers.collector.collector_paused``).
     """
     with collector_paused():
@@ -145,26 +147,30 @@ def run_check(self: Any, check_id: str) -> str:
 
 
 def _run_check(check_id: str) -> str:
-    store = process_store()
+    store = process_stores().checks
     record = _with_store_retry(
         lambda: store.claim(check_id, config.lease_s, config.max_attempts), "claim " + check_id
     )
     if record is None or record.status != "running":
         return "skipped"
-    request = _with_store_retry(lambda: store.get_request(check_id), "load " + check_id)
-    if request is None:
+    stored = _with_store_retry(lambda: store.get_request(check_id), "load " + check_id)
+    if stored is None:
         store.fail(check_id, "the check's request is missing from the store")
         return "failed"
     try:
         _test_hooks(record.label)
-        verdict = run_check_json(request)
+        verdict = run_engine(decode_stored(stored)).to_dict()
     except SoftTimeLimitExceeded:
         reason = (
             f"time limit exceeded: the check ran longer than {config.soft_time_limit_s:g} s"
         )
         _with_store_retry(lambda: store.fail(check_id, reason), "fail " + check_id)
         return "failed"
-    except (ValueError, ValidationError) as exc:  # engine InputError/TouchstoneError, schema
+    except StoredRequestError as exc:  # a damaged record, or one stored by another version
+        reason = f"the stored request cannot be read: {exc}"
+        _with_store_retry(lambda: store.fail(check_id, reason), "fail " + check_id)
+        return "failed"
+    except ValueError as exc:  # the engine's InputError and TouchstoneError
         reason = f"invalid check request: {exc}"
         _with_store_retry(lambda: store.fail(check_id, reason), "fail " + check_id)
         return "failed"

@@ -1,7 +1,7 @@
 """/v1/batches: many variants of one circuit sharing a port/device map.
 
 A JSON batch is ``{"label"?, "map"?, "variants": [...]}``; each variant's members are merged over
-the map (``service.store.base.merge_request``) and the result must be a valid check request.
+the map (:func:`merge_request`) and the result must be a valid check request.
 A multipart batch carries the map as a JSON part named ``map`` and one Touchstone file per variant
 in parts named ``files`` (the file name is the variant's label). Every variant is validated before
 anything is stored; the map is stored once.
@@ -11,6 +11,7 @@ from __future__ import annotations
 
 import base64
 import binascii
+import hashlib
 import json
 from collections.abc import Iterator
 from typing import Any
@@ -32,7 +33,9 @@ from service.api.common import (
     store_checks,
 )
 from service.api.jsonbody import BatchOutline, outline_batch
-from service.api.tenancy import authenticate, store, tenant
+from service.api.jsontext import loads_json
+from service.api.tenancy import authenticate, check_store, tenant
+from service.intake import new_check
 from service.problems import abort_problem, field_errors
 from service.schemas.api import (
     MAX_LABEL,
@@ -48,7 +51,10 @@ from service.schemas.api import (
 )
 from service.schemas.errors import flatten_errors
 from service.schemas.request import CheckRequestSchema
-from service.store.base import (
+from workers.collector import collector_paused
+from workers.engine.request import CheckRequest
+from workers.intake import SharedArrays
+from workers.store import (
     CHECK_STATUSES,
     UNFINISHED_STATUSES,
     VERDICT_NAMES,
@@ -56,12 +62,7 @@ from service.store.base import (
     CheckRecord,
     CheckSource,
     NewCheck,
-    content_hash,
-    merge_request,
 )
-from service.store.jsontext import loads_json
-from service.store.payload import encode_binary, with_packed_bytes
-from workers.collector import collector_paused
 
 blp = Blueprint("batches", __name__, url_prefix="/v1/batches",
                 description="Batches of variants sharing one port/device map")
@@ -72,6 +73,17 @@ _BATCH_KEYS = {"label", "map", "variants"}
 _VARIANT_KEYS = {*REQUEST_FIELDS, "label"}
 
 Variant = tuple[str | None, dict[str, Any]]
+
+
+def merge_request(shared: dict[str, Any] | None, variant: dict[str, Any]) -> dict[str, Any]:
+    """The check request of one batch variant: the shared map's members, then the variant's."""
+    return {**(shared or {}), **variant}
+
+
+def content_hash(value: Any) -> str:
+    """SHA-256 hex digest of ``value``'s canonical JSON (sorted keys, no spaces)."""
+    text = json.dumps(value, sort_keys=True, separators=(",", ":"), allow_nan=False)
+    return hashlib.sha256(text.encode()).hexdigest()
 
 
 class _Invalid:
@@ -168,10 +180,10 @@ def _parse_multipart_batch() -> tuple[str | None, dict[str, Any], list[Variant]]
 
 def _validate_variant(schema: CheckRequestSchema, shared: dict[str, Any], index: int,
                       label: str | None, member: dict[str, Any], where: str,
-                      invalid: _Invalid) -> None:
+                      invalid: _Invalid) -> CheckRequest | None:
     """One merged variant through CheckRequestSchema; errors name the variant and the field."""
     try:
-        schema.load(merge_request(shared, member))
+        return schema.load(merge_request(shared, member))
     except ValidationError as exc:
         invalid.bad_variants += 1
         name = f" ({label!r})" if label else ""
@@ -182,15 +194,21 @@ def _validate_variant(schema: CheckRequestSchema, shared: dict[str, Any], index:
                             f"variant {index}{name}: {message}")
             else:
                 invalid.add(f"map.{field}", f"variant {index}{name}: {message}")
+        return None
 
 
-def _validate_variants(shared: dict[str, Any], variants: list[Variant], where: str) -> None:
+def _validate_variants(shared: dict[str, Any], variants: list[Variant], where: str,
+                       arrays: SharedArrays) -> list[NewCheck]:
     """Every merged variant through CheckRequestSchema; errors name the variant and the field."""
     schema = CheckRequestSchema()
     invalid = _Invalid()
+    checks = []
     for i, (label, member) in enumerate(variants):
-        _validate_variant(schema, shared, i, label, member, where, invalid)
+        request = _validate_variant(schema, shared, i, label, member, where, invalid)
+        if request is not None:
+            checks.append(new_check(request, label, arrays))
     invalid.raise_if_any(len(variants))
+    return checks
 
 
 def _check_variant_count(n_variants: int, where: str) -> None:
@@ -226,9 +244,11 @@ class _OutlineChecks:
     variants while later ones are still being validated, and deletes them again if one fails.
     """
 
-    def __init__(self, outline: BatchOutline, shared: dict[str, Any]) -> None:
+    def __init__(self, outline: BatchOutline, shared: dict[str, Any],
+                 arrays: SharedArrays) -> None:
         self._texts = outline.variants
         self._shared = shared
+        self._arrays = arrays
 
     def __len__(self) -> int:
         return len(self._texts)
@@ -254,23 +274,12 @@ class _OutlineChecks:
             invalid.bad_variants += 1
             return None
         member = {k: v for k, v in raw.items() if k != "label"}
-        try:  # packed arrays decoded once: the schema then checks their bytes
-            member, packed = with_packed_bytes(member)
-        except ValueError:  # not base64 (binascii.Error) or not ASCII: the schema names it
-            packed = 0
-        bad_before = invalid.bad_variants
-        _validate_variant(schema, self._shared, i, label, member, "variants", invalid)
-        if invalid.bad_variants != bad_before:
-            return None
-        # stored as MessagePack with the bytes, a quarter smaller, when its arrays came packed
-        binary = encode_binary(member) if packed else None
-        if binary is not None:
-            return NewCheck(None, label=label, request_binary=binary)
-        return NewCheck(None, label=label, request_json=text)
+        request = _validate_variant(schema, self._shared, i, label, member, "variants", invalid)
+        return new_check(request, label, self._arrays) if request is not None else None
 
 
 def _accepted(batch_id: str) -> tuple[dict[str, Any], int, dict[str, str]]:
-    record = store().get_batch(tenant(), batch_id)
+    record = check_store().get_batch(tenant(), batch_id)
     if record is None:  # retention ran out between the two requests of an idempotent retry
         abort_problem(404, f"no batch {batch_id!r}", kind="not-found")
     location = url_for("batches.get_batch", batch_id=batch_id)
@@ -304,14 +313,14 @@ def submit_batch():
 
 def _submit_batch() -> tuple[dict[str, Any], int, dict[str, str]]:
     checks: CheckSource
+    arrays = SharedArrays()  # what the variants have in common is stored once
     if request.mimetype == "multipart/form-data":
         label, shared, variants = _parse_multipart_batch()
         fingerprint = content_hash({"label": label, "map": shared,
                                     "variants": [[n, m] for n, m in variants]}) \
             if request.headers.get(IDEMPOTENCY_HEADER) is not None else None
         _check_variant_count(len(variants), "files")
-        _validate_variants(shared, variants, "files")
-        checks = [NewCheck(member, label=name) for name, member in variants]
+        checks = _validate_variants(shared, variants, "files", arrays)
     else:
         raw = json_body_bytes()
         fingerprint = g.body_digest
@@ -319,19 +328,16 @@ def _submit_batch() -> tuple[dict[str, Any], int, dict[str, str]]:
         if outline is not None:
             del raw
             label, shared = _outline_head(outline)
-            checks = _OutlineChecks(outline, shared)  # validated while being stored
+            checks = _OutlineChecks(outline, shared, arrays)  # validated while being stored
         else:  # not of the usual shape: parsed whole, so that every problem is named
             body = json_object_body(raw)
             del raw
             label, shared, variants = _parse_json_batch(body)
             _check_variant_count(len(variants), "variants")
-            _validate_variants(shared, variants, "variants")
-            texts = g.variant_texts
-            checks = [NewCheck(member, label=name, request_json=texts[i] if texts else None)
-                      for i, (name, member) in enumerate(variants)]
+            checks = _validate_variants(shared, variants, "variants", arrays)
 
     def create() -> str:
-        batch_id, _ = store_checks(checks, as_batch=True, batch_label=label, shared=shared)
+        batch_id, _ = store_checks(checks, as_batch=True, batch_label=label, shared=arrays.blobs)
         assert batch_id is not None
         return batch_id
 
@@ -360,11 +366,11 @@ def batch_view(record: BatchRecord, size: int | None = None) -> dict[str, Any]:
 @document_errors(blp, 401, 422, 429)
 def list_batches(limit: int = 50):
     """The tenant's most recent batches, newest first."""
-    return {"items": [batch_view(b) for b in store().list_batches(tenant(), limit=limit)]}
+    return {"items": [batch_view(b) for b in check_store().list_batches(tenant(), limit=limit)]}
 
 
 def _found(batch_id: str) -> BatchRecord:
-    record = store().get_batch(tenant(), batch_id)
+    record = check_store().get_batch(tenant(), batch_id)
     if record is None:
         abort_problem(404, f"no batch {batch_id!r}", kind="not-found")
     return record
@@ -387,7 +393,7 @@ def get_batch(batch_id: str):
 def cancel_batch(batch_id: str):
     """Cancel every check of the batch that has not finished."""
     _found(batch_id)
-    record = store().cancel_batch(tenant(), batch_id)
+    record = check_store().cancel_batch(tenant(), batch_id)
     if record is None:
         abort_problem(404, f"no batch {batch_id!r}", kind="not-found")
     return batch_view(record, size=len(record.check_ids))
@@ -431,13 +437,13 @@ def item_view(record: CheckRecord) -> dict[str, Any]:
 @document_errors(blp, 400, 401, 404, 422, 429)
 def list_batch_checks(batch_id: str, **query: Any):
     """One page of the batch's checks in submission order, optionally filtered."""
-    if store().get_batch(tenant(), batch_id) is None:
+    if check_store().get_batch(tenant(), batch_id) is None:
         abort_problem(404, f"no batch {batch_id!r}", kind="not-found")
     cfg = current_app.config
     limit = min(int(query.get("limit") or cfg["BALLAST_PAGE_SIZE"]),
                 int(cfg["BALLAST_MAX_PAGE_SIZE"]))
     after = decode_cursor(query["cursor"]) if query.get("cursor") else None
-    page, next_after = store().list_batch_checks(
+    page, next_after = check_store().list_batch_checks(
         tenant(), batch_id, after=after, limit=limit,
         status=query.get("status"), verdict=query.get("verdict"),
     )

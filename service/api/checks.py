@@ -18,12 +18,14 @@ from service.api.common import (
     store_checks,
     validation_problem,
 )
-from service.api.tenancy import authenticate, store, tenant
+from service.api.tenancy import authenticate, check_store, tenant
+from service.intake import new_check
 from service.problems import abort_problem
 from service.schemas.api import CheckAcceptedSchema, CheckSchema
 from service.schemas.request import CheckRequestSchema
-from service.store.base import UNFINISHED_STATUSES, NewCheck
 from workers.collector import collector_paused
+from workers.engine.request import CheckRequest
+from workers.store import UNFINISHED_STATUSES
 
 blp = Blueprint("checks", __name__, url_prefix="/v1/checks",
                 description="Single stability checks")
@@ -50,9 +52,10 @@ def accepted(check_id: str) -> tuple[dict[str, Any], int, dict[str, str]]:
     )
 
 
-def validate_request(body: dict[str, Any]) -> None:
+def validate_request(body: dict[str, Any]) -> CheckRequest:
+    """The request validated (Touchstone text parsed), or the 422 naming every field."""
     try:
-        CheckRequestSchema().load(body)
+        return CheckRequestSchema().load(body)
     except ValidationError as exc:
         validation_problem(exc)
 
@@ -74,11 +77,10 @@ def submit_check():
 
 
 def _submit_check() -> tuple[dict[str, Any], int, dict[str, str]]:
-    body = json_object_body()
-    validate_request(body)
+    check = new_check(validate_request(json_object_body()))  # stored as validated
 
     def create() -> str:
-        _, (check_id,) = store_checks([NewCheck(body, request_json=g.parsed_body.raw)])
+        _, (check_id,) = store_checks([check])
         return check_id
 
     check_id = accept_once(idempotency_key(), g.body_digest, create, replay=lambda found: found)
@@ -86,7 +88,7 @@ def _submit_check() -> tuple[dict[str, Any], int, dict[str, str]]:
 
 
 def _found(check_id: str):
-    record = store().get_check(tenant(), check_id)
+    record = check_store().get_check(tenant(), check_id)
     if record is None:
         abort_problem(404, f"no check {check_id!r}", kind="not-found")
     return record
@@ -114,7 +116,7 @@ def get_check(check_id: str):
 def cancel_check(check_id: str):
     """Cancel a check that has not finished."""
     _found(check_id)
-    record = store().cancel_check(tenant(), check_id)
+    record = check_store().cancel_check(tenant(), check_id)
     if record is None:
         abort_problem(404, f"no check {check_id!r}", kind="not-found")
     return check_view(record)

@@ -14,11 +14,11 @@ from marshmallow import ValidationError
 
 from service.api.body_limit import BODY_BYTES_KEY
 from service.api.jsonbody import parse_with_variant_texts, reject_constant
-from service.api.tenancy import retry_after, store, tenant
+from service.api.tenancy import access_store, check_store, retry_after, tenant
 from service.config import tenant_limit
 from service.problems import PROBLEM_CONTENT_TYPE, ProblemSchema, abort_problem, field_errors
 from service.schemas.errors import flatten_errors
-from service.store.base import CheckRecord, NewCheck, QuotaExceededError
+from workers.store import CheckRecord, CheckSource, QuotaExceededError
 
 IDEMPOTENCY_HEADER = "Idempotency-Key"
 _RETRY_AFTER = {"Retry-After": {"schema": {"type": "integer"},
@@ -142,7 +142,7 @@ def accept_once(key: str | None, fingerprint: str | None, create: Callable[[], s
     if fingerprint is None:
         raise ValueError("an idempotent request needs the fingerprint of its payload")
     cfg = current_app.config
-    state, existing = store().idempotency_begin(
+    state, existing = access_store().idempotency_begin(
         tenant(), key, fingerprint, float(cfg["BALLAST_IDEMPOTENCY_PENDING_S"]))
     if state == "done" and existing is not None:
         return replay(existing)
@@ -155,9 +155,9 @@ def accept_once(key: str | None, fingerprint: str | None, create: Callable[[], s
     try:
         created = create_with_quota(create)
     except BaseException:
-        store().idempotency_release(tenant(), key)
+        access_store().idempotency_release(tenant(), key)
         raise
-    store().idempotency_finish(tenant(), key, created)
+    access_store().idempotency_finish(tenant(), key, created)
     return created
 
 
@@ -169,12 +169,12 @@ def create_with_quota(create: Callable[[], str]) -> str:
                       headers={"Retry-After": retry_after(30)})
 
 
-def store_checks(checks: list[NewCheck], **kwargs: Any) -> tuple[str | None, list[str]]:
+def store_checks(checks: CheckSource, **kwargs: Any) -> tuple[str | None, list[str]]:
     """Store for the current tenant under its unfinished-checks quota; the ids are queued as the
     store reports them stored (chunk by chunk for a large batch in Redis)."""
     limit = int(tenant_limit(current_app.config, tenant(), "max_unfinished"))
     enqueue = current_app.extensions["ballast"]["enqueue"]
-    return store().create_checks(tenant(), checks, max_unfinished=limit, on_stored=enqueue,
+    return check_store().create_checks(tenant(), checks, max_unfinished=limit, on_stored=enqueue,
                                  **kwargs)
 
 

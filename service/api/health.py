@@ -7,7 +7,7 @@ import logging
 from flask import current_app
 from flask_smorest import Blueprint
 
-from service.api.tenancy import queue_function, store
+from service.api.tenancy import check_store, queue_function
 from service.schemas.api import HealthSchema, ReadySchema
 
 log = logging.getLogger("ballast.api")
@@ -38,7 +38,7 @@ def healthz():
                   headers={"Retry-After": {"schema": {"type": "integer"}}})
 def readyz():
     """Ready when the store and the queue answer and at least one worker is alive."""
-    store_ok = store().ping()
+    store_ok = check_store().ping()
     queue_ok = _probe("queue_reachable")
     workers_ok = _probe("workers_alive")
     ready = store_ok and queue_ok and workers_ok

@@ -8,7 +8,7 @@ A body orjson refuses goes to ``json.loads``, which either refuses it too (NaN a
 included), with its message naming the line, column and what is wrong, or reads what orjson does
 not (a UTF-8 byte order mark, lone surrogate escapes, ``1e400`` read as infinity for the schema
 to refuse). The garbage collector is paused while orjson builds the value (see
-``service.store.jsontext``). One difference remains: an integer outside [-2**63, 2**64) is read
+``service.api.jsontext``). One difference remains: an integer outside [-2**63, 2**64) is read
 as the nearest float, as the check request schema reads every number anyway.
 """
 
@@ -22,7 +22,7 @@ from typing import Any
 import msgspec
 import orjson
 
-from service.store.jsontext import orjson_loads
+from service.api.jsontext import orjson_loads
 
 
 def reject_constant(name: str) -> Any:

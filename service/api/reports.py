@@ -19,7 +19,7 @@ from typing import Any
 from flask import Blueprint, Response, request, url_for
 
 from service.api.common import check_view
-from service.api.tenancy import authenticate, store, tenant
+from service.api.tenancy import authenticate, check_store, tenant
 from service.problems import abort_problem
 
 blp = Blueprint("reports", __name__)
@@ -59,13 +59,13 @@ _CACHE = _ImageCache(CACHE_SIZE)
 
 def _done_check(check_id: str) -> tuple[Any, dict[str, Any]]:
     """The tenant's finished check and its stored request; 404 unknown, 409 not done."""
-    record = store().get_check(tenant(), check_id)
+    record = check_store().get_check(tenant(), check_id)
     if record is None:
         abort_problem(404, f"no check {check_id!r}", kind="not-found")
     if record.status != "done" or not record.verdict:
         abort_problem(409, f"check {check_id!r} is {record.status}; plots exist once it is done",
                       kind="not-done", headers={"Retry-After": "2"})
-    payload = store().get_request(check_id)
+    payload = check_store().get_request(check_id)
     if payload is None:
         abort_problem(404, f"the request of check {check_id!r} is no longer stored",
                       kind="not-found")
@@ -116,7 +116,7 @@ def check_report(check_id: str) -> Response:
     """The HTML page of one check (plots embedded when it is done)."""
     from service.reports.pages import check_page
 
-    record = store().get_check(tenant(), check_id)
+    record = check_store().get_check(tenant(), check_id)
     if record is None:
         abort_problem(404, f"no check {check_id!r}", kind="not-found")
     images: dict[str, bytes | None] = {}
@@ -134,13 +134,13 @@ def batch_report(batch_id: str) -> Response:
     from service.api.batches import batch_view, item_view
     from service.reports.pages import batch_page
 
-    record = store().get_batch(tenant(), batch_id)
+    record = check_store().get_batch(tenant(), batch_id)
     if record is None:
         abort_problem(404, f"no batch {batch_id!r}", kind="not-found")
     items: list[dict[str, Any]] = []
     after = None
     while len(items) < MAX_BATCH_PAGE_CHECKS:
-        page, after = store().list_batch_checks(tenant(), batch_id, after=after, limit=1000)
+        page, after = check_store().list_batch_checks(tenant(), batch_id, after=after, limit=1000)
         items.extend(item_view(r) for r in page)
         if after is None:
             break

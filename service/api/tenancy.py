@@ -1,4 +1,4 @@
-"""Who is asking: the bearer token's tenant, its request rate, and the app's store and queue."""
+"""Who is asking: the bearer token's tenant, its request rate, and the app's stores and queue."""
 
 from __future__ import annotations
 
@@ -11,13 +11,17 @@ from flask import current_app, g, request
 from service.auth import tenant_of
 from service.config import tenant_limit
 from service.problems import abort_problem
-from service.store.base import Store
+from workers.store import AccessStore, CheckStore
 
 BEARER_CHALLENGE = 'Bearer realm="ballast"'
 
 
-def store() -> Store:
-    return current_app.extensions["ballast"]["store"]
+def check_store() -> CheckStore:
+    return current_app.extensions["ballast"]["stores"].checks
+
+
+def access_store() -> AccessStore:
+    return current_app.extensions["ballast"]["stores"].access
 
 
 def queue_function(name: str) -> Callable[..., Any]:
@@ -39,7 +43,7 @@ def authenticate() -> None:
     if scheme.lower() != "bearer" or not token.strip():
         abort_problem(401, "send the API token as 'Authorization: Bearer <token>'",
                       kind="unauthenticated", headers={"WWW-Authenticate": BEARER_CHALLENGE})
-    found = tenant_of(store(), token.strip())
+    found = tenant_of(access_store(), token.strip())
     if found is None:
         abort_problem(401, "the token is unknown or revoked", kind="unauthenticated",
                       headers={"WWW-Authenticate": BEARER_CHALLENGE + ', error="invalid_token"'})
@@ -47,7 +51,7 @@ def authenticate() -> None:
     config = current_app.config
     limit = int(tenant_limit(config, found, "rate_limit"))
     window = float(config["BALLAST_RATE_WINDOW_S"])
-    wait = store().hit_rate(found, window, limit)
+    wait = access_store().hit_rate(found, window, limit)
     if wait > 0:
         abort_problem(429, f"more than {limit} requests in {window:g} s; slow down",
                       kind="rate-limited", headers={"Retry-After": retry_after(wait)})

@@ -12,20 +12,20 @@ import sys
 from datetime import UTC, datetime
 
 from service.auth import create_token, hash_token, looks_like_token
-from service.store.base import Store
+from workers.store import AccessStore
 
 ID_LENGTH = 12
 
 
-def _store(args: argparse.Namespace) -> Store:
-    from service.store import open_store
+def _store(args: argparse.Namespace) -> AccessStore:
+    from workers.store import open_stores
 
     url = args.store
     if not url:
         from workers.runtime_config import load_config
 
         url = load_config().store_url
-    return open_store(url)
+    return open_stores(url).access
 
 
 def _create(args: argparse.Namespace) -> int:

@@ -12,7 +12,7 @@ import copy
 from marshmallow import RAISE, Schema, fields, validate
 
 from service.schemas.request import CheckRequestSchema
-from service.store.base import CHECK_STATUSES, VERDICT_NAMES
+from workers.store import CHECK_STATUSES, VERDICT_NAMES
 
 # Check request members a batch's shared map or one of its variants may give.
 REQUEST_FIELDS: tuple[str, ...] = tuple(CheckRequestSchema._declared_fields)

@@ -76,10 +76,7 @@ def is_packed(value: Any) -> bool:
 
 def unpack_array(value: dict[str, Any], dtype: str, ndim: int) -> np.ndarray:
     """A packed array → ndarray: ``base64`` holds the ``dtype`` values of an array of ``shape``,
-    little-endian, row-major; errors name the member (``base64``, ``shape``, ``dtype``).
-
-    ``base64`` may also be the bytes themselves: the store's binary form of a request
-    (``service.store.payload``); a JSON document cannot carry bytes."""
+    little-endian, row-major; errors name the member (``base64``, ``shape``, ``dtype``)."""
     if value["dtype"] != dtype:
         raise ValidationError({"dtype": [f'must be "{dtype}" here']})
     shape = value["shape"]
@@ -87,15 +84,12 @@ def unpack_array(value: dict[str, Any], dtype: str, ndim: int) -> np.ndarray:
             isinstance(n, int) and not isinstance(n, bool) and n >= 0 for n in shape)):
         raise ValidationError({"shape": [f"must be a list of {ndim} non-negative integers"]})
     text = value["base64"]
-    if isinstance(text, bytes):
-        raw = text
-    elif not isinstance(text, str):
+    if not isinstance(text, str):
         raise ValidationError({"base64": ["must be a string"]})
-    else:
-        try:
-            raw = b64decode(text, validate=True)
-        except (binascii.Error, ValueError) as exc:
-            raise ValidationError({"base64": [f"is not base64 (RFC 4648): {exc}"]}) from exc
+    try:
+        raw = b64decode(text, validate=True)
+    except (binascii.Error, ValueError) as exc:
+        raise ValidationError({"base64": [f"is not base64 (RFC 4648): {exc}"]}) from exc
     item = PACKED_DTYPES[dtype].itemsize
     expected = math.prod(shape) * item  # exact: numpy's int64 product could wrap to a match
     if len(raw) != expected:

@@ -5,8 +5,9 @@ from workers.intake.codec import (
     SharedArrays,
     StoredRequestError,
     decode_request,
+    decode_stored,
     encode_request,
 )
 
 __all__ = ["REQUEST_ENCODING", "SharedArrays", "StoredRequestError", "decode_request",
-           "encode_request"]
+           "decode_stored", "encode_request"]

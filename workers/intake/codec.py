@@ -23,12 +23,15 @@ from __future__ import annotations
 import hashlib
 import math
 from collections.abc import Mapping
-from typing import Any
+from typing import TYPE_CHECKING, Any
 
 import msgspec
 import numpy as np
 
 from workers.engine.request import CheckRequest
+
+if TYPE_CHECKING:
+    from workers.store.records import StoredRequest
 
 REQUEST_ENCODING = "ballast.check-request/msgpack-1"
 ARRAY_DTYPES = {"<f8": np.dtype("<f8"), "<c16": np.dtype("<c16")}
@@ -135,3 +138,8 @@ def decode_request(payload: bytes, encoding: str = REQUEST_ENCODING,
         return msgspec.msgpack.decode(payload, type=CheckRequest, dec_hook=decode_value)
     except (msgspec.DecodeError, msgspec.ValidationError) as exc:
         raise StoredRequestError(f"the stored request cannot be read: {exc}") from exc
+
+
+def decode_stored(stored: StoredRequest) -> CheckRequest:
+    """The request of a check as ``CheckStore.get_request`` gives it back."""
+    return decode_request(stored.payload, stored.encoding, stored.shared)

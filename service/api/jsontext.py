@@ -1,6 +1,6 @@
-"""Read stored JSON text with orjson, falling back to the standard library where orjson refuses.
+"""Read JSON text (bodies, batch variants) with orjson, falling back to the standard library.
 
-orjson (RFC 8259) reads a ~450 KB stored check request two to three times as fast as
+orjson (RFC 8259) reads a ~450 KB check request two to three times as fast as
 ``json.loads`` and gives the same value, except that
 
 - it refuses NaN/Infinity literals, numbers such as ``1e400`` (``json.loads``: infinity), lone
