@@ -313,3 +313,75 @@ def test_packed_variant_with_bad_base64_is_named(client, auth, api_stores, text)
     assert [e["field"] for e in problem["errors"]] == ["variants.1.data.base64"]
     assert "base64" in problem["errors"][0]["detail"]
     assert api_stores.checks.list_batches("acme") == []
+
+
+@pytest.mark.parametrize(("change", "field"), [
+    ({"map": {"colour": "blue"}}, "map.colour"),  # not a member BatchMap documents
+    ({"map": [1]}, "map"),
+    ({"label": "x" * 201}, "label"),  # maxLength 200 in the document
+    ({"label": None}, "label"),  # a string, not null
+    ({"variants": {"a": 1}}, "variants"),  # an array
+    ({"variants": [{"label": 7}]}, "variants.0.label"),
+    ({"variants": [{"label": "a", "colour": "blue"}]}, "variants.0.colour"),
+    ({"variants": [3]}, "variants.0"),  # each variant is an object
+])
+def test_batch_fields_are_checked_as_the_openapi_document_describes_them(
+        client, auth, api_stores, change, field):
+    # The document's BatchRequest, BatchMap and BatchVariant (openapi/openapi.json) are the
+    # contract: a body that breaks them is refused, naming the field, and nothing is stored.
+    body = {"map": tiny_request(), "variants": [{"label": "a"}], **change}
+    response = client.post("/v1/batches", json=body, headers=auth)
+    assert response.status_code == 422 and response.mimetype == PROBLEM
+    assert [e["field"] for e in response.get_json()["errors"]] == [field]
+    assert api_stores.checks.list_batches("acme") == []
+
+
+def test_a_map_with_the_data_is_stored_once_for_all_its_variants(client, auth, api_stores):
+    # Variants that change only a device's transconductance share the map's network data: the
+    # data (4001 x 1 x 1 complex128, 64 kB) is kept once beside the checks, not in each.
+    base = rlc_request(200.0)
+    variants = [{"label": f"gm={gm}", "devices": [{**base["devices"][0], "gm_s": gm}]}
+                for gm in (-1e-3, -2e-3, -4e-3)]
+    response = client.post("/v1/batches", json={"map": base, "variants": variants},
+                           headers=auth)
+    assert response.status_code == 202
+    data = np.asarray(base["data"]["re"]) + 1j * np.asarray(base["data"]["im"])
+    raw = data.astype("<c16").tobytes()
+    for check_id, variant in zip(response.get_json()["check_ids"], variants, strict=True):
+        stored = api_stores.checks.get_request(check_id)
+        assert raw not in stored.payload and raw in stored.shared.values()
+        request = load_request(stored)
+        assert_same_request(request, load_request({**base, "devices": variant["devices"]}))
+        assert np.array_equal(request.network.values, data)
+
+
+def test_multipart_envelope_problems(client, auth):
+    good = [(io.BytesIO(_touchstone(200.0).encode()), "good.s1p")]
+    shared = json.dumps({"ports": [{"name": "tank", "role": "probe"}],
+                         "devices": rlc_request(200.0)["devices"]})
+
+    def post(data):
+        return client.post("/v1/batches", headers=auth, content_type="multipart/form-data",
+                           data=data)
+
+    malformed = post({"map": "{", "files": good})
+    assert malformed.status_code == 400 and "'map' part" in malformed.get_json()["detail"]
+    unknown = post({"map": shared, "colour": "blue",
+                    "files": [(io.BytesIO(_touchstone(200.0).encode()), "good.s1p")]})
+    assert [e["field"] for e in unknown.get_json()["errors"]] == ["colour"]
+    latin1 = post({"map": shared, "files": [(io.BytesIO("! 25 °C\n".encode("latin-1")),
+                                            "latin1.s1p")]})
+    assert [e["field"] for e in latin1.get_json()["errors"]] == ["files.0"]
+    assert "UTF-8" in latin1.get_json()["errors"][0]["detail"]
+    missing = post({"map": shared})
+    assert [e["field"] for e in missing.get_json()["errors"]] == ["files"]
+
+
+def test_a_json_batch_with_a_byte_order_mark_is_read(client, auth):
+    # json.loads reads UTF-8 bytes that start with a byte order mark (RFC 8259 §8.1 lets a
+    # parser ignore it); the batch is taken in as without it.
+    body = "\ufeff".encode() + json.dumps({"map": tiny_request(),
+                                           "variants": [{"label": "a"}]}).encode()
+    response = client.post("/v1/batches", data=body, content_type="application/json",
+                           headers=auth)
+    assert response.status_code == 202 and len(response.get_json()["check_ids"]) == 1

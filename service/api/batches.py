@@ -1,282 +1,57 @@
 """/v1/batches: many variants of one circuit sharing a port/device map.
 
 A JSON batch is ``{"label"?, "map"?, "variants": [...]}``; each variant's members are merged over
-the map (:func:`merge_request`) and the result must be a valid check request.
-A multipart batch carries the map as a JSON part named ``map`` and one Touchstone file per variant
-in parts named ``files`` (the file name is the variant's label). Every variant is validated before
-anything is stored; the map is stored once.
+the map and the result must be a valid check request. A multipart batch carries the map as a JSON
+part named ``map`` and one Touchstone file per variant in parts named ``files`` (the file name is
+the variant's label). Both are validated by the schemas the OpenAPI document shows
+(``service.api.batch_intake``): the envelope first, then each variant while the first ones are
+already being stored and queued; an invalid variant answers 422 naming every problem, and nothing
+of the batch stays stored. What the variants have in common is stored once.
 """
 
 from __future__ import annotations
 
 import base64
 import binascii
-import hashlib
 import json
-from collections.abc import Iterator
 from typing import Any
 
-from flask import current_app, g, request, url_for
+from flask import current_app, request, url_for
 from flask_smorest import Blueprint
-from marshmallow import RAISE, ValidationError
+from marshmallow import RAISE
 
+from service.api.batch_intake import json_batch, multipart_batch
 from service.api.checks import IDEMPOTENCY_PARAMETER
 from service.api.common import (
-    IDEMPOTENCY_HEADER,
     accept_once,
     document_errors,
     idempotency_key,
     iso,
-    json_body_bytes,
-    json_object_body,
-    parse_json,
     store_checks,
 )
-from service.api.jsonbody import BatchOutline, outline_batch
-from service.api.jsontext import loads_json
 from service.api.tenancy import authenticate, check_store, tenant
-from service.intake import new_check
 from service.problems import abort_problem, field_errors
 from service.schemas.api import (
-    MAX_LABEL,
-    REQUEST_FIELDS,
     BatchAcceptedSchema,
     BatchChecksPageSchema,
     BatchChecksQuerySchema,
     BatchListQuerySchema,
     BatchListSchema,
-    BatchRequestSchema,
     BatchSchema,
-    BatchUploadSchema,
 )
-from service.schemas.errors import flatten_errors
-from service.schemas.request import CheckRequestSchema
+from service.schemas.batch import BatchRequestSchema, BatchUploadSchema
 from workers.collector import collector_paused
-from workers.engine.request import CheckRequest
-from workers.intake import SharedArrays
 from workers.store import (
     CHECK_STATUSES,
     UNFINISHED_STATUSES,
     VERDICT_NAMES,
     BatchRecord,
     CheckRecord,
-    CheckSource,
-    NewCheck,
 )
 
 blp = Blueprint("batches", __name__, url_prefix="/v1/batches",
                 description="Batches of variants sharing one port/device map")
 blp.before_request(authenticate)
-
-MAX_REPORTED_ERRORS = 100
-_BATCH_KEYS = {"label", "map", "variants"}
-_VARIANT_KEYS = {*REQUEST_FIELDS, "label"}
-
-Variant = tuple[str | None, dict[str, Any]]
-
-
-def merge_request(shared: dict[str, Any] | None, variant: dict[str, Any]) -> dict[str, Any]:
-    """The check request of one batch variant: the shared map's members, then the variant's."""
-    return {**(shared or {}), **variant}
-
-
-def content_hash(value: Any) -> str:
-    """SHA-256 hex digest of ``value``'s canonical JSON (sorted keys, no spaces)."""
-    text = json.dumps(value, sort_keys=True, separators=(",", ":"), allow_nan=False)
-    return hashlib.sha256(text.encode()).hexdigest()
-
-
-class _Invalid:
-    """Collects (field, message) pairs across the whole batch."""
-
-    def __init__(self) -> None:
-        self.pairs: list[tuple[str, str]] = []
-        self.bad_variants = 0
-
-    def add(self, field: str, message: str) -> None:
-        self.pairs.append((field, message))
-
-    def raise_if_any(self, n_variants: int) -> None:
-        if not self.pairs:
-            return
-        first = f"{self.pairs[0][0]}: {self.pairs[0][1]}"
-        detail = (f"{self.bad_variants} of {n_variants} variants are invalid; nothing was stored."
-                  f" First: {first}" if self.bad_variants else first)
-        more = len(self.pairs) - MAX_REPORTED_ERRORS
-        errors = field_errors(self.pairs[:MAX_REPORTED_ERRORS])
-        if more > 0:
-            detail += f" ({more} further errors not listed)"
-        abort_problem(422, detail, kind="invalid-request", errors=errors)
-
-
-def _check_keys(value: Any, allowed: set[str], where: str, invalid: _Invalid) -> bool:
-    if not isinstance(value, dict):
-        invalid.add(where or "body", "must be a JSON object")
-        return False
-    for key in sorted(set(value) - allowed):
-        invalid.add(f"{where}.{key}" if where else key, "Unknown field.")
-    return True
-
-
-def _check_label(value: Any, where: str, invalid: _Invalid) -> None:
-    if value is not None and (not isinstance(value, str) or len(value) > MAX_LABEL):
-        invalid.add(where, f"must be a string of at most {MAX_LABEL} characters")
-
-
-def _parse_json_batch(body: dict[str, Any]) -> tuple[str | None, dict[str, Any], list[Variant]]:
-    invalid = _Invalid()
-    _check_keys(body, _BATCH_KEYS, "", invalid)
-    _check_label(body.get("label"), "label", invalid)
-    shared = body.get("map", {})
-    _check_keys(shared, set(REQUEST_FIELDS), "map", invalid)
-    raw_variants = body.get("variants")
-    if not isinstance(raw_variants, list) or not raw_variants:
-        invalid.add("variants", "must be a non-empty list of variants")
-        raw_variants = []
-    variants: list[Variant] = []
-    for i, raw in enumerate(raw_variants):
-        if _check_keys(raw, _VARIANT_KEYS, f"variants.{i}", invalid):
-            _check_label(raw.get("label"), f"variants.{i}.label", invalid)
-            member = {k: v for k, v in raw.items() if k != "label"}
-            variants.append((raw.get("label"), member))
-    invalid.raise_if_any(len(raw_variants))
-    return body.get("label"), shared, variants
-
-
-def _parse_multipart_batch() -> tuple[str | None, dict[str, Any], list[Variant]]:
-    invalid = _Invalid()
-    if "map" in request.files:
-        map_text: Any = request.files["map"].read()
-    else:
-        map_text = request.form.get("map")
-    shared: dict[str, Any] = {}
-    if map_text is None:
-        invalid.add("map", "missing: send the shared map as a JSON part named 'map'")
-    else:
-        parsed = parse_json(map_text, "the 'map' part")
-        if _check_keys(parsed, set(REQUEST_FIELDS), "map", invalid):
-            shared = parsed
-    label = request.form.get("label")
-    _check_label(label, "label", invalid)
-    unknown = (set(request.form) | set(request.files)) - {"map", "label", "files"}
-    for name in sorted(unknown):
-        invalid.add(name, "Unknown field.")
-    variants: list[Variant] = []
-    files = request.files.getlist("files")
-    if not files:
-        invalid.add("files", "send one Touchstone file per variant in parts named 'files'")
-    for i, upload in enumerate(files):
-        try:
-            text = upload.read().decode("utf-8")
-        except UnicodeDecodeError:
-            invalid.add(f"files.{i}", "is not UTF-8 text")
-            continue
-        name = upload.filename or None
-        _check_label(name, f"files.{i}", invalid)
-        variants.append((name, {"touchstone": text}))
-    invalid.raise_if_any(len(files))
-    return label, shared, variants
-
-
-def _validate_variant(schema: CheckRequestSchema, shared: dict[str, Any], index: int,
-                      label: str | None, member: dict[str, Any], where: str,
-                      invalid: _Invalid) -> CheckRequest | None:
-    """One merged variant through CheckRequestSchema; errors name the variant and the field."""
-    try:
-        return schema.load(merge_request(shared, member))
-    except ValidationError as exc:
-        invalid.bad_variants += 1
-        name = f" ({label!r})" if label else ""
-        for field, message in flatten_errors(exc.messages):
-            top = field.split(".", 1)[0]
-            if top in member or top not in shared:
-                invalid.add(f"{where}.{index}.{field}" if field != "body" else f"{where}.{index}",
-                            f"variant {index}{name}: {message}")
-            else:
-                invalid.add(f"map.{field}", f"variant {index}{name}: {message}")
-        return None
-
-
-def _validate_variants(shared: dict[str, Any], variants: list[Variant], where: str,
-                       arrays: SharedArrays) -> list[NewCheck]:
-    """Every merged variant through CheckRequestSchema; errors name the variant and the field."""
-    schema = CheckRequestSchema()
-    invalid = _Invalid()
-    checks = []
-    for i, (label, member) in enumerate(variants):
-        request = _validate_variant(schema, shared, i, label, member, where, invalid)
-        if request is not None:
-            checks.append(new_check(request, label, arrays))
-    invalid.raise_if_any(len(variants))
-    return checks
-
-
-def _check_variant_count(n_variants: int, where: str) -> None:
-    limit = int(current_app.config["BALLAST_MAX_VARIANTS"])
-    if n_variants > limit:
-        abort_problem(422, f"{n_variants} variants; the limit is {limit} per batch",
-                      kind="invalid-request",
-                      errors=field_errors([(where, f"at most {limit} variants")]))
-
-
-def _outline_head(outline: BatchOutline) -> tuple[str | None, dict[str, Any]]:
-    """The batch's label and shared map, checked, and the number of variants checked."""
-    invalid = _Invalid()
-    label = loads_json(outline.label) if outline.label is not None else None
-    _check_label(label, "label", invalid)
-    shared = loads_json(outline.map) if outline.map is not None else {}
-    if not _check_keys(shared, set(REQUEST_FIELDS), "map", invalid):
-        shared = {}
-    if not outline.variants:
-        invalid.add("variants", "must be a non-empty list of variants")
-    invalid.raise_if_any(len(outline.variants))
-    _check_variant_count(len(outline.variants), "variants")
-    return label, shared
-
-
-class _OutlineChecks:
-    """The outline's variants as checks to store, each parsed and validated when it is reached
-    and dropped before the next (the same checks and error fields as the whole-body path).
-
-    Iterating yields the valid variants in order until the first invalid one; it then validates
-    the rest without yielding them and raises the 422 that names every problem, so the store
-    (``Store.create_checks``, which takes a lazy ``CheckSource``) can write and queue the first
-    variants while later ones are still being validated, and deletes them again if one fails.
-    """
-
-    def __init__(self, outline: BatchOutline, shared: dict[str, Any],
-                 arrays: SharedArrays) -> None:
-        self._texts = outline.variants
-        self._shared = shared
-        self._arrays = arrays
-
-    def __len__(self) -> int:
-        return len(self._texts)
-
-    def __iter__(self) -> Iterator[NewCheck]:
-        schema = CheckRequestSchema()
-        invalid = _Invalid()
-        for i in range(len(self._texts)):
-            check = self._check(i, schema, invalid)
-            if check is not None and not invalid.pairs:
-                yield check
-        invalid.raise_if_any(len(self._texts))
-
-    def _check(self, i: int, schema: CheckRequestSchema, invalid: _Invalid) -> NewCheck | None:
-        text = self._texts[i]
-        before = len(invalid.pairs)
-        raw = loads_json(text)
-        if _check_keys(raw, _VARIANT_KEYS, f"variants.{i}", invalid):
-            _check_label(raw.get("label"), f"variants.{i}.label", invalid)
-        name = raw.get("label") if isinstance(raw, dict) else None
-        label = name if isinstance(name, str) else None
-        if len(invalid.pairs) != before:  # not an object, unknown members or a bad label
-            invalid.bad_variants += 1
-            return None
-        member = {k: v for k, v in raw.items() if k != "label"}
-        request = _validate_variant(schema, self._shared, i, label, member, "variants", invalid)
-        return new_check(request, label, self._arrays) if request is not None else None
-
 
 def _accepted(batch_id: str) -> tuple[dict[str, Any], int, dict[str, str]]:
     record = check_store().get_batch(tenant(), batch_id)
@@ -312,36 +87,15 @@ def submit_batch():
 
 
 def _submit_batch() -> tuple[dict[str, Any], int, dict[str, str]]:
-    checks: CheckSource
-    arrays = SharedArrays()  # what the variants have in common is stored once
-    if request.mimetype == "multipart/form-data":
-        label, shared, variants = _parse_multipart_batch()
-        fingerprint = content_hash({"label": label, "map": shared,
-                                    "variants": [[n, m] for n, m in variants]}) \
-            if request.headers.get(IDEMPOTENCY_HEADER) is not None else None
-        _check_variant_count(len(variants), "files")
-        checks = _validate_variants(shared, variants, "files", arrays)
-    else:
-        raw = json_body_bytes()
-        fingerprint = g.body_digest
-        outline = outline_batch(raw)
-        if outline is not None:
-            del raw
-            label, shared = _outline_head(outline)
-            checks = _OutlineChecks(outline, shared, arrays)  # validated while being stored
-        else:  # not of the usual shape: parsed whole, so that every problem is named
-            body = json_object_body(raw)
-            del raw
-            label, shared, variants = _parse_json_batch(body)
-            _check_variant_count(len(variants), "variants")
-            checks = _validate_variants(shared, variants, "variants", arrays)
+    intake = multipart_batch() if request.mimetype == "multipart/form-data" else json_batch()
 
     def create() -> str:
-        batch_id, _ = store_checks(checks, as_batch=True, batch_label=label, shared=arrays.blobs)
+        batch_id, _ = store_checks(intake.checks, as_batch=True, batch_label=intake.label,
+                                   shared=intake.checks.arrays.blobs)
         assert batch_id is not None
         return batch_id
 
-    batch_id = accept_once(idempotency_key(), fingerprint, create, replay=lambda b: b)
+    batch_id = accept_once(idempotency_key(), intake.fingerprint, create, replay=lambda b: b)
     return _accepted(batch_id)
 
 

@@ -13,7 +13,7 @@ from flask_smorest import Blueprint
 from marshmallow import ValidationError
 
 from service.api.body_limit import BODY_BYTES_KEY
-from service.api.jsonbody import parse_with_variant_texts, reject_constant
+from service.api.jsonbody import parse_body, reject_constant
 from service.api.tenancy import access_store, check_store, retry_after, tenant
 from service.config import tenant_limit
 from service.problems import PROBLEM_CONTENT_TYPE, ProblemSchema, abort_problem, field_errors
@@ -88,25 +88,20 @@ def json_body_bytes() -> bytes:
     return raw
 
 
-def json_object_body(raw: bytes | None = None) -> dict[str, Any]:
-    """The request's JSON object (``raw``: its bytes when already read by
-    :func:`json_body_bytes`), or a problem: 415 (not JSON), 400 (malformed), 422 (not an
-    object). Also sets ``g.body_digest`` (see :func:`json_body_bytes`),
-    ``g.parsed_body`` (its ``text`` is the body as a str) and ``g.variant_texts`` (JSON texts
-    the store can keep as they are)."""
-    if raw is None:
-        raw = json_body_bytes()
+def json_object_body(parse: Callable[[bytes], Any] = parse_body) -> dict[str, Any]:
+    """The request's JSON object as ``parse`` reads its bytes, or a problem: 415 (not JSON),
+    400 (malformed), 422 (not an object). Also sets ``g.body_digest`` (see
+    :func:`json_body_bytes`)."""
+    raw = json_body_bytes()
     try:
-        parsed = parse_with_variant_texts(raw)
+        value = parse(raw)
     except (ValueError, RecursionError) as exc:
         abort_problem(400, f"the request body is not valid JSON: {exc}", kind="malformed-json")
-    del raw  # ``parsed.raw`` keeps it when orjson read it
-    if not isinstance(parsed.value, dict):
+    del raw
+    if not isinstance(value, dict):
         abort_problem(422, "the request body must be a JSON object", kind="invalid-request",
                       errors=field_errors([("body", "must be a JSON object")]))
-    g.parsed_body = parsed
-    g.variant_texts = parsed.variant_texts
-    return parsed.value
+    return value
 
 
 def validation_problem(exc: ValidationError, prefix: str = "", detail: str | None = None

@@ -1,28 +1,22 @@
-"""Parse a JSON request body with orjson and give each batch variant as JSON text for the store.
+"""JSON request bodies: parsed with orjson, and a batch body cut into its variants first.
 
-orjson reads the body (RFC 8259) and writes each element of a top-level ``"variants"`` array back
-as compact JSON text (shortest round-trip floats), so that neither the parse nor the store runs the
-standard library's decoder or encoder over large numeric arrays.
-
-A body orjson refuses goes to ``json.loads``, which either refuses it too (NaN and Infinity
-included), with its message naming the line, column and what is wrong, or reads what orjson does
-not (a UTF-8 byte order mark, lone surrogate escapes, ``1e400`` read as infinity for the schema
-to refuse). The garbage collector is paused while orjson builds the value (see
-``service.api.jsontext``). One difference remains: an integer outside [-2**63, 2**64) is read
-as the nearest float, as the check request schema reads every number anyway.
+orjson reads a body (RFC 8259). A body orjson refuses goes to ``json.loads``, which either refuses
+it too (NaN and Infinity included), with its message naming the line, column and what is wrong,
+or reads what orjson does not (a UTF-8 byte order mark, lone surrogate escapes, ``1e400`` read as
+infinity for the schema to refuse). The garbage collector is paused while orjson builds the value
+(``service.api.jsontext``). One difference remains: an integer outside [-2**63, 2**64) is read as
+the nearest float, as the check request schema reads every number anyway.
 """
 
 from __future__ import annotations
 
 import json
-from collections.abc import Callable
-from dataclasses import dataclass
 from typing import Any
 
 import msgspec
 import orjson
 
-from service.api.jsontext import orjson_loads
+from service.api.jsontext import loads_json, orjson_loads
 
 
 def reject_constant(name: str) -> Any:
@@ -30,42 +24,12 @@ def reject_constant(name: str) -> Any:
     raise ValueError(f"{name} is not a JSON number")
 
 
-@dataclass(frozen=True)
-class ParsedBody:
-    """``value``: the parsed body; ``raw``: the body's bytes when orjson read them (None after a
-    fallback to ``json.loads``); ``variant_texts``: one UTF-8 JSON text per element of a
-    top-level ``"variants"`` array, reading back to that element (None when there is none)."""
-
-    value: Any
-    raw: bytes | None
-    variant_texts: list[bytes] | None
-
-    @property
-    def text(self) -> str | None:
-        """The body as a str that reads back to ``value`` (None after a fallback)."""
-        return self.raw.decode("utf-8") if self.raw is not None else None
-
-
-def _stdlib_text(value: Any) -> bytes:
-    return json.dumps(value, separators=(",", ":")).encode()
-
-
-def _variant_texts(value: Any, dump: Callable[[Any], bytes]) -> list[bytes] | None:
-    if not isinstance(value, dict) or not isinstance(value.get("variants"), list):
-        return None
-    return [dump(v) for v in value["variants"]]
-
-
-def parse_with_variant_texts(raw: bytes) -> ParsedBody:
-    """Parse a request body; raises ValueError (``json.loads``'s message) when it is not JSON."""
+def parse_body(raw: bytes | str) -> Any:
+    """The body's value; raises ValueError (``json.loads``'s message) when it is not JSON."""
     try:
-        value = orjson_loads(raw)
+        return orjson_loads(raw)
     except orjson.JSONDecodeError:
-        value = json.loads(raw, parse_constant=reject_constant)
-        # What orjson refuses may read as infinity here (``1e400``): only json.dumps writes it back.
-        return ParsedBody(value, None, _variant_texts(value, _stdlib_text))
-    # orjson gives finite floats and 64-bit integers only, all of which it writes back as read.
-    return ParsedBody(value, raw, _variant_texts(value, orjson.dumps))
+        return json.loads(raw, parse_constant=reject_constant)
 
 
 class _BatchOutline(msgspec.Struct, forbid_unknown_fields=True):
@@ -74,34 +38,58 @@ class _BatchOutline(msgspec.Struct, forbid_unknown_fields=True):
     map: msgspec.Raw | msgspec.UnsetType = msgspec.UNSET
 
 
-@dataclass(frozen=True)
-class BatchOutline:
-    """A JSON batch body cut into its members' JSON texts (None: member absent), one text per
-    element of ``variants``; none of them parsed yet."""
-
-    label: bytes | None
-    map: bytes | None
-    variants: list[bytes]
+def _text(raw: msgspec.Raw) -> bytes:
+    return bytes(memoryview(raw))
 
 
-def _text(raw: msgspec.Raw | msgspec.UnsetType) -> bytes | None:
-    return None if isinstance(raw, msgspec.UnsetType) else bytes(memoryview(raw))
+def cut_batch(raw: bytes) -> Any:
+    """A batch body as ``service.schemas.batch.BatchRequestSchema`` loads it: each element of
+    its ``variants`` array left as its JSON text (bytes, to be parsed when its turn comes), every
+    other member parsed. Raises ValueError (``json.loads``'s message) when the body is not JSON.
 
-
-def outline_batch(raw: bytes) -> BatchOutline | None:
-    """Cut a batch body into the JSON texts of its members and of each variant, or None.
-
-    msgspec checks the whole body's syntax and skips over each member's value without building
-    it (``msgspec.Raw``), so that the variants can then be parsed and validated one at a time:
-    parsing a 227 MB body of 500 variants in one piece took 3.0 s (the interpreter touching
-    fresh memory for ten million floats), one variant after the other 0.4 s. None when the body
-    is not an object with only ``label``, ``map`` and a ``variants`` array (or not JSON, or
-    holds what msgspec refuses, such as NaN): the caller then parses it whole, which names
-    every problem.
+    msgspec checks the whole body's syntax and skips over each variant without building it
+    (``msgspec.Raw``): parsing a 227 MB body of 500 variants in one piece took 3.0 s (the
+    interpreter touching fresh memory for ten million floats), one variant after the other
+    0.4 s. A body of another shape is cut member by member; one that msgspec refuses (NaN, a
+    byte order mark …) is parsed whole by :func:`parse_body`, which names the problem or reads
+    what orjson and msgspec do not.
     """
     try:
         outline = msgspec.json.decode(raw, type=_BatchOutline)
-    except msgspec.DecodeError:  # malformed JSON, or not of this shape (ValidationError)
-        return None
-    return BatchOutline(_text(outline.label), _text(outline.map),
-                        [bytes(memoryview(v)) for v in outline.variants])
+    except msgspec.ValidationError:  # JSON, but not an object of label, map and variants
+        return _cut_loosely(raw)
+    except msgspec.DecodeError:
+        return _parsed_whole(raw)
+    body: dict[str, Any] = {"variants": [_text(v) for v in outline.variants]}
+    for name in ("label", "map"):
+        member = getattr(outline, name)
+        if not isinstance(member, msgspec.UnsetType):
+            body[name] = loads_json(_text(member))
+    return body
+
+
+def _cut_loosely(raw: bytes) -> Any:
+    try:
+        members = msgspec.json.decode(raw, type=dict[str, msgspec.Raw])
+    except msgspec.ValidationError:  # not an object: the caller refuses it by its type
+        return parse_body(raw)
+    except msgspec.DecodeError:  # a member of another shape ended the first pass early
+        return _parsed_whole(raw)
+    body: dict[str, Any] = {}
+    for name, member in members.items():
+        if name == "variants":
+            try:
+                body[name] = [_text(v) for v in msgspec.json.decode(member, type=list[msgspec.Raw])]
+                continue
+            except msgspec.ValidationError:  # not an array: the schema names it
+                pass
+        body[name] = loads_json(_text(member))
+    return body
+
+
+def _parsed_whole(raw: bytes) -> Any:
+    value = parse_body(raw)
+    if isinstance(value, dict) and isinstance(value.get("variants"), list):
+        # json.dumps writes back what json.loads read (an infinity too, for the schema to refuse)
+        value = {**value, "variants": [json.dumps(v).encode() for v in value["variants"]]}
+    return value

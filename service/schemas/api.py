@@ -1,74 +1,14 @@
-"""Schemas of the API's own documents (the check request itself is ``service.schemas.request``).
+"""Schemas of the API's own documents (the check request itself is ``service.schemas.request``,
+the batch bodies ``service.schemas.batch``).
 
-Response schemas serialise what the API returns and document it in the OpenAPI file; the batch
-request schemas document the JSON and multipart batch bodies, whose variants are validated one by
-one with ``CheckRequestSchema`` after merging the shared map.
+Response schemas serialise what the API returns and document it in the OpenAPI file.
 """
 
 from __future__ import annotations
 
-import copy
-
 from marshmallow import RAISE, Schema, fields, validate
 
-from service.schemas.request import CheckRequestSchema
 from workers.store import CHECK_STATUSES, VERDICT_NAMES
-
-# Check request members a batch's shared map or one of its variants may give.
-REQUEST_FIELDS: tuple[str, ...] = tuple(CheckRequestSchema._declared_fields)
-MAX_LABEL = 200
-
-
-def _optional_request_fields() -> dict[str, fields.Field]:
-    out = {}
-    for name, field in CheckRequestSchema._declared_fields.items():
-        clone = copy.deepcopy(field)
-        clone.required = False
-        out[name] = clone
-    return out
-
-
-class _Strict(Schema):
-    class Meta:
-        unknown = RAISE
-
-
-BatchMapSchema = _Strict.from_dict(
-    _optional_request_fields(), name="BatchMapSchema",
-)
-BatchMapSchema.__doc__ = "Check request members shared by every variant of a batch."
-
-BatchVariantSchema = _Strict.from_dict(
-    {
-        **_optional_request_fields(),
-        "label": fields.String(validate=validate.Length(max=MAX_LABEL),
-                               metadata={"description": "the variant's name in listings"}),
-    },
-    name="BatchVariantSchema",
-)
-BatchVariantSchema.__doc__ = (
-    "One variant: check request members merged over the shared map (the variant's win)."
-)
-
-
-class BatchRequestSchema(_Strict):
-    """A batch: one shared map, many variants (the merged result of each is a check request)."""
-
-    label = fields.String(validate=validate.Length(max=MAX_LABEL))
-    map = fields.Nested(BatchMapSchema, metadata={"description": "shared members, stored once"})
-    variants = fields.List(fields.Nested(BatchVariantSchema), required=True,
-                           validate=validate.Length(min=1))
-
-
-class BatchUploadSchema(Schema):
-    """Multipart form: the shared map as a JSON part and one Touchstone file per variant."""
-
-    map = fields.String(required=True, metadata={
-        "description": "JSON object: the shared map (ports, devices, options …)"})
-    label = fields.String(metadata={"description": "the batch's label"})
-    files = fields.List(fields.Raw(metadata={"type": "string", "format": "binary"}),
-                        required=True, metadata={
-                            "description": "Touchstone files; each file's name is its label"})
 
 
 class CheckAcceptedSchema(Schema):
@@ -138,6 +78,11 @@ class BatchCheckItemSchema(Schema):
 class BatchChecksPageSchema(Schema):
     items = fields.List(fields.Nested(BatchCheckItemSchema), required=True)
     next_cursor = fields.String(allow_none=True, required=True)
+
+
+class _Strict(Schema):
+    class Meta:
+        unknown = RAISE
 
 
 class BatchChecksQuerySchema(_Strict):
