@@ -531,3 +531,32 @@ def test_a_request_whose_shared_bytes_are_gone_reads_as_missing(clock):
         assert checks.get_request(cid) is None
     finally:
         gen.close()
+
+
+def test_a_worker_store_rides_out_a_redis_restart(tmp_path, clock):
+    # redis-py's Retry (workers.store.redis_backend.patient_retry) on a private redis-server that
+    # is down for a second while a claim is sent: the claim waits and succeeds.
+    from tests.queue_harness import REDIS_SERVER, RedisServer
+    from workers.store import open_stores
+    from workers.store.redis_backend import patient_retry
+
+    if REDIS_SERVER is None:
+        pytest.fail("redis-server is not installed (apt-get install redis-server)")
+    server = RedisServer(tmp_path / "redis")
+    server.start()
+    try:
+        checks = open_stores(server.url, redis_retry=patient_retry()).checks
+        _, (cid,) = checks.create_checks("acme", [_new(0)])
+        server.process.terminate()  # SIGTERM: Redis writes its append-only file and exits
+        server.process.wait(timeout=30)
+        restart = threading.Timer(1.0, server.start)
+        restart.start()
+        try:
+            assert checks.claim(cid, lease_s=60, max_attempts=3).attempts == 1
+        finally:
+            restart.join()
+        assert checks.get_check("acme", cid).status == "running"
+        checks.close()
+    finally:
+        server.process.terminate()
+        server.process.wait(timeout=30)

@@ -4,19 +4,19 @@ claim (compare-and-set, attempts += 1, lease) → read the stored request (valid
 it was accepted: only decoded here, ``workers.intake``) → run the engine → complete.
 A duplicate or late message finds the check already claimed or final and does nothing; a check
 that has used up its attempts is marked ``failed`` by the claim itself, so a check that kills its
-worker every time stops after ``BALLAST_MAX_ATTEMPTS`` deliveries.
+worker every time stops after ``BALLAST_MAX_ATTEMPTS`` deliveries. Store calls ride out a short
+Redis outage: the worker's store client retries them (redis-py's ``Retry``, see
+``workers.store_access``); should one still fail, the check stays ``running`` until its lease
+expires and the reconciler queues it again.
 """
 
 from __future__ import annotations
 
 import logging
 import os
-import sqlite3
 import time
-from collections.abc import Callable
-from typing import Any, TypeVar
+from typing import Any
 
-import redis.exceptions
 from billiard.einfo import ExceptionWithTraceback
 from billiard.exceptions import SoftTimeLimitExceeded, WorkerLostError
 from celery.worker.request import Request
@@ -29,37 +29,6 @@ from workers.runtime_config import RUN_CHECK_TASK
 from workers.store_access import process_stores
 
 log = logging.getLogger("ballast.worker")
-
-T = TypeVar("T")
-
-STORE_WRITE_RETRY_S = 15.0
-TRANSIENT_STORE_ERRORS: tuple[type[BaseException], ...] = (
-    ConnectionError,
-    TimeoutError,
-    redis.exceptions.ConnectionError,  # includes BusyLoadingError while Redis replays its AOF
-    redis.exceptions.TimeoutError,
-    sqlite3.OperationalError,  # "database is locked" under write contention
-)
-
-
-def _with_store_retry(write: Callable[[], T], what: str) -> T:
-    """Retry a store write through a short outage (e.g. a Redis restart) before giving up.
-
-    Giving up is safe: the check stays ``running`` until its lease expires and the reconciler
-    queues it again.
-    """
-    deadline = time.monotonic() + STORE_WRITE_RETRY_S
-    delay = 0.1
-    while True:
-        try:
-            return write()
-        except TRANSIENT_STORE_ERRORS as exc:
-            if time.monotonic() >= deadline:
-                log.error("giving up on %s: %s", what, exc)
-                raise
-            log.warning("store unavailable during %s (%s); retrying", what, exc)
-        time.sleep(delay)
-        delay = min(delay * 2, 2.0)
 
 
 def _test_hooks(label: str | None) -> None:
@@ -106,8 +75,7 @@ class CheckRequest(Request):
         if isinstance(exc, WorkerLostError) and self.args:
             check_id = str(self.args[0])
             try:
-                _with_store_retry(lambda: process_stores().checks.release(check_id),
-                                  "release " + check_id)
+                process_stores().checks.release(check_id)
             except Exception:  # the lease then runs out and the reconciler re-queues it
                 log.exception("could not release the lease of %s", check_id)
         super().on_failure(exc_info, send_failed_event=send_failed_event, return_ok=return_ok)
@@ -119,8 +87,7 @@ class CheckRequest(Request):
         check_id = str(self.args[0])
         reason = f"time limit exceeded: the check ran longer than {timeout:g} s (hard limit)"
         try:
-            _with_store_retry(lambda: process_stores().checks.fail(check_id, reason),
-                              "fail " + check_id)
+            process_stores().checks.fail(check_id, reason)
         except Exception:  # the lease expiry path still ends the check
             log.exception("could not record the hard time-out of %s", check_id)
 
@@ -148,12 +115,10 @@ def run_check(self: Any, check_id: str) -> str:
 
 def _run_check(check_id: str) -> str:
     store = process_stores().checks
-    record = _with_store_retry(
-        lambda: store.claim(check_id, config.lease_s, config.max_attempts), "claim " + check_id
-    )
+    record = store.claim(check_id, config.lease_s, config.max_attempts)
     if record is None or record.status != "running":
         return "skipped"
-    stored = _with_store_retry(lambda: store.get_request(check_id), "load " + check_id)
+    stored = store.get_request(check_id)
     if stored is None:
         store.fail(check_id, "the check's request is missing from the store")
         return "failed"
@@ -164,20 +129,20 @@ def _run_check(check_id: str) -> str:
         reason = (
             f"time limit exceeded: the check ran longer than {config.soft_time_limit_s:g} s"
         )
-        _with_store_retry(lambda: store.fail(check_id, reason), "fail " + check_id)
+        store.fail(check_id, reason)
         return "failed"
     except StoredRequestError as exc:  # a damaged record, or one stored by another version
         reason = f"the stored request cannot be read: {exc}"
-        _with_store_retry(lambda: store.fail(check_id, reason), "fail " + check_id)
+        store.fail(check_id, reason)
         return "failed"
     except ValueError as exc:  # the engine's InputError and TouchstoneError
         reason = f"invalid check request: {exc}"
-        _with_store_retry(lambda: store.fail(check_id, reason), "fail " + check_id)
+        store.fail(check_id, reason)
         return "failed"
     except Exception as exc:
         log.exception("engine error on check %s", check_id)
         reason = f"engine error: {type(exc).__name__}: {exc}"
-        _with_store_retry(lambda: store.fail(check_id, reason), "fail " + check_id)
+        store.fail(check_id, reason)
         return "failed"
-    _with_store_retry(lambda: store.complete(check_id, verdict), "complete " + check_id)
+    store.complete(check_id, verdict)
     return "done"

@@ -4,6 +4,7 @@ Redis or the SQLite implementation (``workers.store.protocols``), sharing one co
 from __future__ import annotations
 
 from dataclasses import dataclass
+from typing import TYPE_CHECKING
 
 from workers.store.protocols import AccessStore, CheckStore
 from workers.store.records import (
@@ -21,6 +22,9 @@ from workers.store.records import (
     TokenRecord,
     VerdictSummary,
 )
+
+if TYPE_CHECKING:
+    from redis.retry import Retry
 
 __all__ = [
     "CHECK_STATUSES",
@@ -57,13 +61,15 @@ class Stores:
 
 def open_stores(
     url: str, *, retention_s: float = DEFAULT_RETENTION_S, prefix: str = "ballast:",
+    redis_retry: Retry | None = None,
 ) -> Stores:
-    """A Redis URL (redis://, rediss://, unix://) → the Redis stores on one client;
-    sqlite:///path or a path → the SQLite stores on one file."""
+    """A Redis URL (redis://, rediss://, unix://) → the Redis stores on one client (retrying as
+    ``redis_retry`` says, see ``redis_backend.connect``); sqlite:///path or a path → the SQLite
+    stores on one file (whose busy timeout waits for other writers)."""
     if url.startswith(("redis://", "rediss://", "unix://")):
         from workers.store.redis_backend import RedisAccessStore, RedisCheckStore, connect
 
-        client = connect(url)
+        client = connect(url, redis_retry)
         return Stores(
             RedisCheckStore(prefix=prefix, retention_s=retention_s, client=client),
             RedisAccessStore(prefix=prefix, retention_s=retention_s, client=client),

@@ -12,6 +12,6 @@ change. Access store keys: see ``access``.
 
 from workers.store.redis_backend.access import RedisAccessStore
 from workers.store.redis_backend.checks import RedisCheckStore
-from workers.store.redis_backend.connection import connect
+from workers.store.redis_backend.connection import connect, patient_retry
 
-__all__ = ["RedisAccessStore", "RedisCheckStore", "connect"]
+__all__ = ["RedisAccessStore", "RedisCheckStore", "connect", "patient_retry"]
