@@ -11,18 +11,17 @@ Where the settings come from, first match wins: explicit arguments; the environm
 ``http://127.0.0.1:8000``.
 
 Every request has a (connect, read) timeout. Transient answers (429, 502, 503, 504) and connection
-failures are retried with exponential backoff (full jitter) that waits at least as long as the
-server's ``Retry-After`` says. A POST is retried after a connection failure only when it carries
-an ``Idempotency-Key`` (the client sets one on every check it submits), because otherwise the
-server may have accepted the first attempt.
+failures are retried by urllib3's ``Retry`` (mounted on the session): exponential backoff with
+jitter, or as long as the server's ``Retry-After`` says (RFC 9110 §10.2.3; at most
+``RetryPolicy.max_retry_after_s``). Every POST carries an ``Idempotency-Key`` (one is made when the
+caller gives none), so a POST whose answer was lost is safe to send again: the server accepts it
+once.
 """
 
 from __future__ import annotations
 
-import email.utils
 import json
 import os
-import random
 import time
 import tomllib
 import uuid
@@ -32,6 +31,9 @@ from pathlib import Path
 from typing import Any
 
 import requests
+from requests.adapters import HTTPAdapter
+from urllib3.exceptions import InvalidHeader
+from urllib3.util.retry import Retry
 
 DEFAULT_URL = "http://127.0.0.1:8000"
 CONFIG_ENV = "BALLAST_CONFIG"
@@ -58,21 +60,45 @@ class ApiError(ClientError):
 
 @dataclass(frozen=True)
 class RetryPolicy:
-    """Exponential backoff with full jitter, never shorter than the server's Retry-After.
-
-    Wait before retry n (n = 1, 2, ...): max(Retry-After, uniform(0, min(cap, base·2^(n-1)))).
-    """
+    """How patient the client is: ``attempts`` tries in all; between them urllib3's backoff,
+    min(cap, base·2^(n−1)) plus up to ``base_s`` of jitter before retry n (none before the
+    first), or the server's Retry-After, at most ``max_retry_after_s``."""
 
     attempts: int = 5
     base_s: float = 0.25
     cap_s: float = 8.0
     max_retry_after_s: float = 60.0
 
-    def delay(self, retry: int, retry_after_s: float | None, rng: random.Random) -> float:
-        jitter = rng.uniform(0.0, min(self.cap_s, self.base_s * 2 ** (retry - 1)))
-        if retry_after_s is None:
-            return jitter
-        return max(min(retry_after_s, self.max_retry_after_s), jitter)
+    def urllib3_retry(self) -> Retry:
+        return _Retry(
+            total=self.attempts - 1, status_forcelist=RETRY_STATUSES,
+            allowed_methods=None,  # any method: every POST carries an Idempotency-Key
+            backoff_factor=self.base_s, backoff_max=self.cap_s, backoff_jitter=self.base_s,
+            respect_retry_after_header=True, raise_on_status=False,
+            max_retry_after_s=self.max_retry_after_s,
+        )
+
+
+class _Retry(Retry):
+    """urllib3's Retry with the server's Retry-After capped, and a Retry-After that is neither
+    delta-seconds nor an HTTP-date ignored (urllib3 raises ``InvalidHeader``): then it backs
+    off as without one."""
+
+    def __init__(self, *args: Any, max_retry_after_s: float = 60.0, **kwargs: Any) -> None:
+        super().__init__(*args, **kwargs)
+        self.max_retry_after_s = max_retry_after_s
+
+    def new(self, **kwargs: Any) -> _Retry:
+        return super().new(max_retry_after_s=self.max_retry_after_s, **kwargs)
+
+    def parse_retry_after(self, retry_after: str) -> float:
+        return min(super().parse_retry_after(retry_after), self.max_retry_after_s)
+
+    def get_retry_after(self, response: Any) -> float | None:
+        try:
+            return super().get_retry_after(response)
+        except InvalidHeader:
+            return None
 
 
 @dataclass(frozen=True)
@@ -111,20 +137,6 @@ def load_config(url: str | None = None, token: str | None = None,
                         token=str(chosen_token) if chosen_token else None)
 
 
-def parse_retry_after(value: str | None, now: float | None = None) -> float | None:
-    """Seconds to wait from Retry-After: delta-seconds or an HTTP-date (RFC 9110 §10.2.3)."""
-    if not value:
-        return None
-    value = value.strip()
-    if value.isdigit():
-        return float(value)
-    try:
-        when = email.utils.parsedate_to_datetime(value)
-    except (TypeError, ValueError):
-        return None
-    return max(0.0, when.timestamp() - (time.time() if now is None else now))
-
-
 def next_link(header: str | None) -> str | None:
     """The target of ``rel="next"`` in a Link header (RFC 8288), or None."""
     if not header:
@@ -156,14 +168,17 @@ class BallastClient:
     """Calls the v1 API; every method returns the decoded JSON body."""
 
     def __init__(self, config: ClientConfig, session: requests.Session | None = None,
-                 rng: random.Random | None = None,
                  sleep: Callable[[float], None] = time.sleep) -> None:
+        """``session`` gets the retrying adapters mounted for http:// and https://;
+        ``sleep`` paces :meth:`wait_batch`'s polling."""
         self.config = config
         self.session = session or requests.Session()
         self.session.headers["User-Agent"] = "ballast-client/1"
         if config.token:
             self.session.headers["Authorization"] = f"Bearer {config.token}"
-        self._rng = rng or random.Random()
+        adapter = HTTPAdapter(max_retries=config.retry.urllib3_retry())
+        for scheme in ("http://", "https://"):
+            self.session.mount(scheme, adapter)
         self._sleep = sleep
 
     @classmethod
@@ -172,7 +187,7 @@ class BallastClient:
 
     def with_timeouts(self, connect_s: float, read_s: float) -> BallastClient:
         config = replace(self.config, connect_timeout_s=connect_s, read_timeout_s=read_s)
-        return BallastClient(config, self.session, self._rng, self._sleep)
+        return BallastClient(config, self.session, self._sleep)
 
     # --- transport -------------------------------------------------------------------------
 
@@ -182,30 +197,20 @@ class BallastClient:
         return self.config.url + path_or_url
 
     def request(self, method: str, path: str, **kwargs: Any) -> requests.Response:
-        """Send one request with retries; raise :class:`ApiError` on a non-2xx final answer."""
-        policy = self.config.retry
+        """Send one request (retried by the session's urllib3 ``Retry``); raise
+        :class:`ApiError` on a non-2xx final answer, :class:`ClientError` when none came."""
         headers = dict(kwargs.pop("headers", None) or {})
-        replayable = method in ("GET", "HEAD", "DELETE", "PUT") or "Idempotency-Key" in headers
+        if method.upper() == "POST":
+            headers.setdefault("Idempotency-Key", uuid.uuid4().hex)  # safe to send again
         timeout = (self.config.connect_timeout_s, self.config.read_timeout_s)
-        for attempt in range(1, policy.attempts + 1):
-            last = attempt == policy.attempts
-            try:
-                response = self.session.request(method, self._url(path), headers=headers,
-                                                timeout=timeout, **kwargs)
-            except (requests.ConnectionError, requests.Timeout) as exc:
-                never_sent = isinstance(exc, requests.ConnectTimeout)
-                if last or not (replayable or never_sent):
-                    raise ClientError(f"{method} {self._url(path)}: {exc}") from exc
-                self._sleep(policy.delay(attempt, None, self._rng))
-                continue
-            if response.status_code in RETRY_STATUSES and not last:
-                wait = parse_retry_after(response.headers.get("Retry-After"))
-                self._sleep(policy.delay(attempt, wait, self._rng))
-                continue
-            if response.status_code >= 400:
-                raise _api_error(response)
-            return response
-        raise AssertionError("unreachable")  # pragma: no cover
+        try:
+            response = self.session.request(method, self._url(path), headers=headers,
+                                            timeout=timeout, **kwargs)
+        except requests.RequestException as exc:  # connection, time-out, retries used up
+            raise ClientError(f"{method} {self._url(path)}: {exc}") from exc
+        if response.status_code >= 400:
+            raise _api_error(response)
+        return response
 
     def _json(self, method: str, path: str, **kwargs: Any) -> Any:
         response = self.request(method, path, **kwargs)

@@ -12,7 +12,9 @@ so with R = 200 Ω it is stable for g = −3 mS and oscillates for g = −8 mS a
 from __future__ import annotations
 
 import math
-import random
+import socket
+import threading
+import time
 from pathlib import Path
 
 import numpy as np
@@ -28,7 +30,6 @@ from service.client import (
     batch_progress,
     load_config,
     next_link,
-    parse_retry_after,
 )
 from tests.client_live_server import live_server
 from workers.lumped.families import parallel_rlc_negative_g
@@ -54,22 +55,31 @@ def server(tmp_path: Path):
         yield live
 
 
-def client_for(live, sleep=None) -> BallastClient:
-    config = ClientConfig(url=live.url, token=live.token)
-    return BallastClient(config, rng=random.Random(7), **({"sleep": sleep} if sleep else {}))
+def client_for(live) -> BallastClient:
+    return BallastClient(ClientConfig(url=live.url, token=live.token))
 
 
 # --- pure helpers --------------------------------------------------------------------------------
 
-@pytest.mark.parametrize(("header", "now", "expected"), [
-    ("120", None, 120.0),                                     # RFC 9110 §10.2.3 delay-seconds
-    ("Fri, 31 Dec 1999 23:59:59 GMT", 946684799.0 - 30, 30.0),  # the RFC's own HTTP-date example
-    ("Fri, 31 Dec 1999 23:59:59 GMT", 946684799.0 + 5, 0.0),    # a date in the past: no wait
-    ("soon", None, None),
-    (None, None, None),
+class _Answer:
+    """What urllib3's Retry reads of a response: its headers."""
+
+    def __init__(self, headers: dict[str, str]) -> None:
+        self.headers = headers
+
+
+@pytest.mark.parametrize(("header", "expected"), [
+    ("30", 30.0),                              # RFC 9110 §10.2.3 delay-seconds
+    ("120", 60.0),                             # capped at RetryPolicy.max_retry_after_s
+    ("Fri, 31 Dec 1999 23:59:59 GMT", 0.0),    # the RFC's own HTTP-date example, long past
+    ("soon", None),                            # neither: back off as without a Retry-After
+    (None, None),
 ])
-def test_retry_after_reads_seconds_and_http_dates(header, now, expected):
-    assert parse_retry_after(header, now=now) == expected
+def test_retry_after_reads_seconds_and_http_dates(header, expected):
+    retry = RetryPolicy(max_retry_after_s=60.0).urllib3_retry()
+    headers = {} if header is None else {"Retry-After": header}
+    assert retry.get_retry_after(_Answer(headers)) == expected
+    assert retry.new(total=1).get_retry_after(_Answer(headers)) == expected  # kept on retries
 
 
 @pytest.mark.parametrize(("header", "expected"), [
@@ -84,15 +94,19 @@ def test_next_link_follows_rfc8288(header, expected):
     assert next_link(header) == expected
 
 
-def test_backoff_is_bounded_and_never_shorter_than_retry_after():
-    policy = RetryPolicy(attempts=6, base_s=0.5, cap_s=4.0)
-    rng = random.Random(1)
-    for retry in range(1, 6):
-        ceiling = min(4.0, 0.5 * 2 ** (retry - 1))
-        draws = [policy.delay(retry, None, rng) for _ in range(200)]
-        assert 0.0 <= min(draws) and max(draws) <= ceiling
-        assert max(draws) > 0.5 * ceiling  # full jitter spreads over the whole range
-        assert all(policy.delay(retry, 3.0, rng) >= 3.0 for _ in range(50))
+def test_backoff_grows_exponentially_up_to_the_cap():
+    # urllib3's documented backoff: factor·2^(n−1) after the n-th consecutive error (none after
+    # the first), plus up to backoff_jitter, at most backoff_max.
+    retry = RetryPolicy(attempts=8, base_s=0.5, cap_s=4.0).urllib3_retry()
+    waits = []
+    for _ in range(6):
+        retry = retry.increment(method="GET", url="/v1/batches", error=ConnectionError("down"))
+        waits.append(retry.get_backoff_time())
+    assert waits[0] == 0.0
+    for n, wait in enumerate(waits[1:], start=2):
+        low = min(4.0, 0.5 * 2 ** (n - 1))
+        assert low <= wait <= min(4.0, low + 0.5)
+    assert waits[-1] == 4.0
 
 
 def test_configuration_precedence(tmp_path: Path, monkeypatch: pytest.MonkeyPatch):
@@ -196,27 +210,58 @@ def test_single_check_cancel_and_errors(server):
 
 def test_rate_limit_answer_is_retried_after_the_servers_delay(tmp_path: Path):
     """RFC 9110 §10.2.3 / RFC 6585 §4: 429 with Retry-After; the client waits at least that."""
-    waits: list[float] = []
-
-    def sleep(seconds: float) -> None:
-        waits.append(seconds)
-        import time
-        time.sleep(seconds)
-
     with live_server(tmp_path, BALLAST_RATE_LIMIT=2, BALLAST_RATE_WINDOW_S=1.0) as live:
-        client = client_for(live, sleep=sleep)
+        client = client_for(live)
         accepted = client.submit_check(tank_request(-3e-3, np.geomspace(1e6, 1e12, 101)))
-        for _ in range(3):
-            assert client.get_check(accepted["id"])["id"] == accepted["id"]
-    assert waits and min(waits) >= 1.0
+        for _ in range(5):  # six requests at 2 a second: at least one is answered 429
+            start = time.monotonic()
+            response = client.request("GET", f"/v1/checks/{accepted['id']}")
+            statuses = [h.status for h in response.raw.retries.history]
+            if 429 in statuses:
+                break
+        assert statuses == [429] and response.json()["id"] == accepted["id"]
+        assert time.monotonic() - start >= 1.0  # Retry-After >= 1 s (the window's rest)
 
 
-def test_connection_failures_are_retried_then_reported():
-    waits: list[float] = []
-    with requests.Session() as session:
-        client = BallastClient(ClientConfig(url="http://127.0.0.1:9", connect_timeout_s=0.5,
-                                            retry=RetryPolicy(attempts=3, base_s=0.01)),
-                               session=session, rng=random.Random(3), sleep=waits.append)
-        with pytest.raises(ClientError, match=r"127\.0\.0\.1:9"):
-            client.get_batch("bat_x")
-    assert len(waits) == 2  # three attempts, two waits
+def _hanging_up_server() -> tuple[socket.socket, list[bytes]]:
+    """A TCP server that reads each request and closes the connection without an answer."""
+    listener = socket.create_server(("127.0.0.1", 0))
+    received: list[bytes] = []
+
+    def serve() -> None:
+        while True:
+            try:
+                conn, _ = listener.accept()
+            except OSError:
+                return
+            with conn:
+                received.append(conn.recv(65536))
+
+    threading.Thread(target=serve, daemon=True).start()
+    return listener, received
+
+
+@pytest.mark.parametrize("method", ["GET", "POST"])
+def test_lost_answers_are_retried_then_reported(method):
+    listener, received = _hanging_up_server()
+    url = f"http://127.0.0.1:{listener.getsockname()[1]}"
+    try:
+        with requests.Session() as session:
+            client = BallastClient(ClientConfig(url=url, connect_timeout_s=0.5,
+                                                retry=RetryPolicy(attempts=3, base_s=0.01)),
+                                   session=session)
+            with pytest.raises(ClientError, match=r"127\.0\.0\.1"):
+                client.request(method, "/v1/batches")
+    finally:
+        listener.close()
+    assert len(received) == 3  # three attempts
+    # a POST is sent again only with the same Idempotency-Key (the server then accepts it once)
+    keys = {line for r in received for line in r.split(b"\r\n") if line.startswith(b"Idempotency")}
+    assert len(keys) == (1 if method == "POST" else 0)
+
+
+def test_refused_connections_are_reported():
+    client = BallastClient(ClientConfig(url="http://127.0.0.1:9", connect_timeout_s=0.5,
+                                        retry=RetryPolicy(attempts=2, base_s=0.01)))
+    with pytest.raises(ClientError, match=r"127\.0\.0\.1:9"):
+        client.get_batch("bat_x")
