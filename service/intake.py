@@ -31,8 +31,3 @@ def new_check(request: CheckRequest, label: str | None = None,
               shared: SharedArrays | None = None) -> NewCheck:
     """A validated request as a check to store (``shared``: the arrays of its batch kept once)."""
     return NewCheck(encode_request(request, shared), REQUEST_ENCODING, label)
-
-
-def check_from_json(payload: Mapping[str, Any], label: str | None = None) -> NewCheck:
-    """A JSON check request, validated, as a check to store."""
-    return new_check(load_request(payload), label)
