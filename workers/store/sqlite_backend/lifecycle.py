@@ -83,26 +83,24 @@ class SqliteCheckLifecycle(SqliteCheckReads):
             )
             return cur.rowcount == 1
 
-    def cancel_check(self, tenant: str, check_id: str) -> CheckRecord | None:
+    def _cancel(self, column: str, key: str, tenant: str) -> None:
+        """The tenant's unfinished checks whose ``column`` (id or batch_id) is ``key`` →
+        cancelled."""
         now = self.clock()
         with self._write() as db:
             db.execute(
                 "UPDATE checks SET status = 'cancelled', finished_at = ?, updated_at = ?, "
-                "lease_expires_at = NULL "
-                "WHERE id = ? AND tenant = ? AND status IN ('queued', 'running')",
-                (now, now, check_id, tenant),
+                f"lease_expires_at = NULL WHERE {column} = ? AND tenant = ? "
+                "AND status IN ('queued', 'running')",
+                (now, now, key, tenant),
             )
+
+    def cancel_check(self, tenant: str, check_id: str) -> CheckRecord | None:
+        self._cancel("id", check_id, tenant)
         return self.get_check(tenant, check_id)
 
     def cancel_batch(self, tenant: str, batch_id: str) -> BatchRecord | None:
-        now = self.clock()
-        with self._write() as db:
-            db.execute(
-                "UPDATE checks SET status = 'cancelled', finished_at = ?, updated_at = ?, "
-                "lease_expires_at = NULL "
-                "WHERE batch_id = ? AND tenant = ? AND status IN ('queued', 'running')",
-                (now, now, batch_id, tenant),
-            )
+        self._cancel("batch_id", batch_id, tenant)
         return self.get_batch(tenant, batch_id)
 
     def expired_leases(self, now: float) -> list[str]:
