@@ -169,8 +169,8 @@ def store_checks(checks: CheckSource, **kwargs: Any) -> tuple[str | None, list[s
     store reports them stored (chunk by chunk for a large batch in Redis)."""
     limit = int(tenant_limit(current_app.config, tenant(), "max_unfinished"))
     enqueue = current_app.extensions["ballast"]["enqueue"]
-    return check_store().create_checks(tenant(), checks, max_unfinished=limit, on_stored=enqueue,
-                                 **kwargs)
+    return check_store().create_checks(tenant(), checks, max_unfinished=limit,
+                                       on_stored=enqueue, **kwargs)
 
 
 def check_view(record: CheckRecord) -> dict[str, Any]:

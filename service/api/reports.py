@@ -21,6 +21,7 @@ from flask import Blueprint, Response, request, url_for
 from service.api.common import check_view
 from service.api.tenancy import authenticate, check_store, tenant
 from service.problems import abort_problem
+from workers.store import StoredRequest
 
 blp = Blueprint("reports", __name__)
 blp.before_request(authenticate)
@@ -57,8 +58,9 @@ class _ImageCache:
 _CACHE = _ImageCache(CACHE_SIZE)
 
 
-def _done_check(check_id: str) -> tuple[Any, dict[str, Any]]:
-    """The tenant's finished check and its stored request; 404 unknown, 409 not done."""
+def _done_check(check_id: str) -> tuple[Any, StoredRequest]:
+    """The tenant's finished check and its stored request (``service.runner.load_request``
+    reads it back); 404 unknown, 409 not done."""
     record = check_store().get_check(tenant(), check_id)
     if record is None:
         abort_problem(404, f"no check {check_id!r}", kind="not-found")
