@@ -24,8 +24,8 @@ import pytest
 from service.auth import DEFAULT_TENANT
 from service.client import BallastClient, ClientConfig
 from service.store.sqlite_store import SqliteStore
-from tests.queue_harness import engine_verdicts, free_port
-from tests.queue_variants import variants
+from tests.support.queue_harness import engine_verdicts, free_port
+from tests.support.queue_variants import variants
 
 pytestmark = pytest.mark.integration
 

@@ -16,7 +16,7 @@ import pytest
 
 from service.runtime_config import CHECK_QUEUE, RUN_CHECK_TASK, load_config
 from service.store import NewCheck, open_store
-from tests.queue_harness import (
+from tests.support.queue_harness import (
     REDIS_SERVER,
     RedisServer,
     Worker,
@@ -27,7 +27,7 @@ from tests.queue_harness import (
     wait_until,
     worker_env,
 )
-from tests.queue_variants import variants
+from tests.support.queue_variants import variants
 from workers.celery_app import make_app
 
 pytestmark = [
