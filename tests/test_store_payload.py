@@ -19,11 +19,11 @@ from service.runner import run_check_json
 from service.store.base import NewCheck, merge_request
 from service.store.payload import binary_request, is_binary, load_request
 from service.store.sqlite_store import SqliteStore
-from tests.test_request_packed import _lists_payload, _packed_payload
+from tests.support.payloads import lists_payload, packed_payload
 
 
 def test_binary_form_holds_the_bytes_base64_encodes() -> None:
-    packed = _packed_payload()
+    packed = packed_payload()
     binary = binary_request(packed)
     assert binary is not None
     assert binary[0] == 0x80 | len(packed)  # fixmap (spec: "fixmap stores a map ... 0x8N")
@@ -46,7 +46,7 @@ def test_binary_form_holds_the_bytes_base64_encodes() -> None:
 
 
 def test_binary_form_validates_to_the_same_request_and_verdict() -> None:
-    packed = _packed_payload()
+    packed = packed_payload()
     from_json, from_binary = validated(packed), validated(load_request(binary_request(packed)))
     assert np.array_equal(from_json.frequency_hz, from_binary.frequency_hz)
     assert np.array_equal(from_json.network.values, from_binary.network.values)
@@ -55,7 +55,7 @@ def test_binary_form_validates_to_the_same_request_and_verdict() -> None:
 
 
 def test_requests_without_packed_arrays_stay_json() -> None:
-    lists = _lists_payload()
+    lists = lists_payload()
     assert binary_request(lists) is None
     text = json.dumps(lists).encode()
     for stored in (text, b" \n" + text, text.decode()):
@@ -63,8 +63,8 @@ def test_requests_without_packed_arrays_stay_json() -> None:
 
 
 def test_both_stores_keep_and_return_the_binary_form(store) -> None:
-    shared = {"ports": _packed_payload()["ports"]}
-    member = {k: v for k, v in _packed_payload().items() if k != "ports"}
+    shared = {"ports": packed_payload()["ports"]}
+    member = {k: v for k, v in packed_payload().items() if k != "ports"}
     binary = binary_request(member)
     _, (cid,) = store.create_checks("acme", [NewCheck(None, label="b", request_binary=binary)],
                                     as_batch=True, shared=shared)
