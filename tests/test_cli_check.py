@@ -15,24 +15,8 @@ from pathlib import Path
 import numpy as np
 import pytest
 
+from tests.support.json_requests import GM_TANK_F0_HZ, gm_tank_request
 from workers.lumped import s_from_y, to_touchstone
-
-L_H, C_F, G_S = 1e-9, 1e-12, 1e-3
-F0_HZ = 1 / (2 * np.pi * np.sqrt(L_H * C_F))
-
-
-def tank_request(gm: float, f_lo: float = 1e6, f_hi: float = 1e12, points: int = 3001) -> dict:
-    f = np.geomspace(f_lo, f_hi, points)
-    w = 2 * np.pi * f
-    y = (G_S - gm) + 1j * w * C_F + 1 / (1j * w * L_H)
-    return {
-        "frequency_hz": f.tolist(), "parameters": "Y",
-        "data": {"re": y.real[:, None, None].tolist(), "im": y.imag[:, None, None].tolist()},
-        "ports": [{"name": "tank", "role": "probe"}],
-        "devices": [{"name": "Q1", "gm_s": gm, "control": ["tank", None],
-                     "output": [None, "tank"]}],
-        "options": {"phase_step_limit_deg": 90},
-    }
 
 
 def ballast(*args: str) -> subprocess.CompletedProcess[str]:
@@ -45,19 +29,19 @@ def ballast(*args: str) -> subprocess.CompletedProcess[str]:
 @pytest.mark.parametrize(("gm", "verdict", "code"), [(0.5e-3, "stable", 0), (2e-3, "unstable", 1)])
 def test_exit_code_follows_verdict(tmp_path: Path, gm: float, verdict: str, code: int) -> None:
     path = tmp_path / "tank.json"
-    path.write_text(json.dumps(tank_request(gm)))
+    path.write_text(json.dumps(gm_tank_request(gm)))
     done = ballast("check", str(path))
     assert done.returncode == code, done.stderr
     body = json.loads(done.stdout)  # stdout holds the verdict JSON and nothing else
     assert body["verdict"] == verdict
     assert body["unstable_count"] == (2 if verdict == "unstable" else 0)
     if verdict == "unstable":
-        assert body["modes"][0]["frequency_hz"] == pytest.approx(F0_HZ, rel=5e-3)
+        assert body["modes"][0]["frequency_hz"] == pytest.approx(GM_TANK_F0_HZ, rel=5e-3)
 
 
 def test_band_above_the_oscillation_is_indeterminate(tmp_path: Path) -> None:
     path = tmp_path / "tank.json"
-    path.write_text(json.dumps(tank_request(2e-3, f_lo=2 * F0_HZ)))
+    path.write_text(json.dumps(gm_tank_request(2e-3, f_lo=2 * GM_TANK_F0_HZ)))
     done = ballast("check", str(path))
     assert done.returncode == 2
     body = json.loads(done.stdout)
@@ -66,7 +50,7 @@ def test_band_above_the_oscillation_is_indeterminate(tmp_path: Path) -> None:
 
 
 def test_bad_input_exit_3_with_field_on_stderr(tmp_path: Path) -> None:
-    payload = tank_request(2e-3)
+    payload = gm_tank_request(2e-3)
     payload["devices"][0]["control"] = ["gate", None]
     path = tmp_path / "bad.json"
     path.write_text(json.dumps(payload))
@@ -78,7 +62,7 @@ def test_bad_input_exit_3_with_field_on_stderr(tmp_path: Path) -> None:
 
 
 def test_touchstone_with_map(tmp_path: Path) -> None:
-    payload = tank_request(2e-3)
+    payload = gm_tank_request(2e-3)
     f = np.asarray(payload["frequency_hz"])
     y = np.asarray(payload["data"]["re"]) + 1j * np.asarray(payload["data"]["im"])
     (tmp_path / "tank.s1p").write_text(to_touchstone(f, s_from_y(y, 50.0), 50.0))

@@ -1,10 +1,10 @@
 """``ballast submit / status / cancel / results`` against the real app on a socket.
 
-Expected verdicts from closed forms (see tests/test_client.py): the parallel G, L, C tank is stable
-for g = −3 mS and oscillates for g = −8 mS at ≈ 3.557 GHz (R = 200 Ω, 1 nH, 2 pF). A band that
-stops at 3 GHz, below that oscillation, must not give a trusted verdict (issue 2's contract:
-`indeterminate`, never `stable`). JUnit XML layout: the common testsuites/testsuite/testcase
-convention read by CI systems (common practice).
+Expected verdicts from closed forms (tests/support/json_requests.py): the parallel G, L, C tank
+is stable for g = −3 mS and oscillates for g = −8 mS at ≈ 3.557 GHz (R = 200 Ω, 1 nH, 2 pF). A
+band that stops at 3 GHz, below that oscillation, must not give a trusted verdict (issue 2's
+contract: `indeterminate`, never `stable`). JUnit XML layout: the common
+testsuites/testsuite/testcase convention read by CI systems (common practice).
 """
 
 from __future__ import annotations
@@ -21,7 +21,11 @@ import pytest
 
 from service.cli import main
 from tests.client_live_server import live_server
-from tests.test_client import SHORT_BAND_HZ, tank_frequency_hz, tank_request
+from tests.support.json_requests import (
+    RLC_SHORT_BAND_HZ,
+    rlc_tank_frequency_hz,
+    rlc_tank_request,
+)
 
 LOW_BAND_HZ = np.geomspace(1e6, 3e9, 401)  # stops below the 3.557 GHz oscillation
 
@@ -59,7 +63,7 @@ def frequency_in(message: str) -> float:
 
 def test_unstable_variant_fails_the_flow_with_a_junit_failure(server, tmp_path, capsys):
     folder = write_requests(tmp_path / "variants", {
-        "tank_3mS": tank_request(-3e-3), "tank_8mS": tank_request(-8e-3)})
+        "tank_3mS": rlc_tank_request(-3e-3), "tank_8mS": rlc_tank_request(-8e-3)})
     junit = tmp_path / "out" / "junit.xml"
     code = main(["submit", str(folder), "--wait", "--junit", str(junit)])
     out, err = capsys.readouterr()
@@ -73,11 +77,12 @@ def test_unstable_variant_fails_the_flow_with_a_junit_failure(server, tmp_path, 
     assert failure is not None and failure.get("type") == "unstable"
     message = failure.get("message")
     assert "node tank" in message and "2 right-half-plane" in message
-    assert frequency_in(message) == pytest.approx(tank_frequency_hz(-8e-3), rel=0.01)
+    assert frequency_in(message) == pytest.approx(rlc_tank_frequency_hz(-8e-3), rel=0.01)
 
 
 def test_all_stable_exits_0(server, tmp_path, capsys):
-    folder = write_requests(tmp_path / "v", {"a": tank_request(-3e-3), "b": tank_request(-1e-3)})
+    folder = write_requests(tmp_path / "v", {"a": rlc_tank_request(-3e-3),
+                                             "b": rlc_tank_request(-1e-3)})
     junit = tmp_path / "junit.xml"
     assert main(["submit", str(folder), "--wait", "--junit", str(junit)]) == 0
     root, _ = parse_junit(junit)
@@ -86,7 +91,7 @@ def test_all_stable_exits_0(server, tmp_path, capsys):
 
 def test_band_below_the_oscillation_is_an_error_not_a_pass(server, tmp_path, capsys):
     folder = write_requests(tmp_path / "v", {
-        "ok": tank_request(-3e-3), "short_band": tank_request(-8e-3, LOW_BAND_HZ)})
+        "ok": rlc_tank_request(-3e-3), "short_band": rlc_tank_request(-8e-3, LOW_BAND_HZ)})
     junit = tmp_path / "junit.xml"
     assert main(["submit", str(folder), "--junit", str(junit)]) == 2  # --junit implies --wait
     root, cases = parse_junit(junit)
@@ -98,7 +103,7 @@ def test_band_below_the_oscillation_is_an_error_not_a_pass(server, tmp_path, cap
     # the engine's model already sees the zero above the band, the closed-form oscillation
     named = frequency_in(error.get("message"))
     assert (named == pytest.approx(3e9, rel=1e-3)
-            or named == pytest.approx(tank_frequency_hz(-8e-3), rel=0.01)), named
+            or named == pytest.approx(rlc_tank_frequency_hz(-8e-3), rel=0.01)), named
 
 
 def test_touchstone_folder_with_map_writes_the_html_report(server, tmp_path, capsys):
@@ -110,10 +115,10 @@ def test_touchstone_folder_with_map_writes_the_html_report(server, tmp_path, cap
     folder.mkdir()
     for r_ohm in (100.0, 200.0):  # with g = −8 mS: G = +2 mS (stable), −3 mS (unstable)
         case = parallel_rlc_negative_g(r_ohm, 1e-9, 2e-12, -8e-3)
-        y = port_admittance(case.circuit, case.port_nodes, SHORT_BAND_HZ)
+        y = port_admittance(case.circuit, case.port_nodes, RLC_SHORT_BAND_HZ)
         (folder / f"tank_{r_ohm:.0f}.s1p").write_text(
-            to_touchstone(SHORT_BAND_HZ, s_from_y(y)), encoding="utf-8")
-    request = tank_request(-8e-3)
+            to_touchstone(RLC_SHORT_BAND_HZ, s_from_y(y)), encoding="utf-8")
+    request = rlc_tank_request(-8e-3)
     map_file = folder / "tank_map.json"  # inside the folder: must not be taken for a variant
     map_file.write_text(json.dumps({"ports": request["ports"], "devices": request["devices"]}))
     report = tmp_path / "report"
@@ -132,7 +137,8 @@ def test_touchstone_folder_with_map_writes_the_html_report(server, tmp_path, cap
 
 
 def test_results_formats_status_and_exit_codes(server, tmp_path, capsys):
-    folder = write_requests(tmp_path / "v", {"s": tank_request(-3e-3), "u": tank_request(-8e-3)})
+    folder = write_requests(tmp_path / "v", {"s": rlc_tank_request(-3e-3),
+                                             "u": rlc_tank_request(-8e-3)})
     assert main(["submit", str(folder)]) == 0
     batch_id = capsys.readouterr().out.strip()
     assert batch_id.startswith("bat_")
@@ -144,7 +150,7 @@ def test_results_formats_status_and_exit_codes(server, tmp_path, capsys):
     assert {r["label"]: r["verdict"] for r in rows} == {"s.json": "stable", "u.json": "unstable"}
     unstable = next(r for r in rows if r["label"] == "u.json")
     assert float(unstable["first_unstable_frequency_hz"]) == pytest.approx(
-        tank_frequency_hz(-8e-3), rel=0.01)
+        rlc_tank_frequency_hz(-8e-3), rel=0.01)
 
     assert main(["results", batch_id, "--format", "json"]) == 1
     body = json.loads(capsys.readouterr().out)
@@ -167,8 +173,9 @@ def test_results_formats_status_and_exit_codes(server, tmp_path, capsys):
 
 def test_cancel_and_failed_checks_are_errors(server, tmp_path, capsys):
     server.queue.hold()
-    folder = write_requests(tmp_path / "v", {"a": tank_request(-3e-3), "b": tank_request(-3e-3),
-                                             "c": tank_request(-8e-3)})
+    folder = write_requests(tmp_path / "v", {"a": rlc_tank_request(-3e-3),
+                                             "b": rlc_tank_request(-3e-3),
+                                             "c": rlc_tank_request(-8e-3)})
     assert main(["submit", str(folder)]) == 0
     batch_id = capsys.readouterr().out.strip()
     client_items = server.stores.checks.list_batch_checks("acme", batch_id, after=None, limit=10)[0]
@@ -194,7 +201,7 @@ def test_cancel_and_failed_checks_are_errors(server, tmp_path, capsys):
 
 def test_unreachable_server_and_bad_input_exit_3(tmp_path, capsys, monkeypatch):
     monkeypatch.setenv("BALLAST_CONFIG", str(tmp_path / "absent.toml"))
-    folder = write_requests(tmp_path / "v", {"a": tank_request(-3e-3)})
+    folder = write_requests(tmp_path / "v", {"a": rlc_tank_request(-3e-3)})
     assert main(["submit", str(folder), "--url", "http://127.0.0.1:9", "--token", "x"]) == 3
     assert "ballast submit:" in capsys.readouterr().err
     assert main(["submit", str(tmp_path / "nowhere"), "--url", "http://127.0.0.1:9"]) == 3

@@ -11,10 +11,14 @@ so with R = 200 Ω it is stable for g = −3 mS and oscillates for g = −8 mS a
 
 from __future__ import annotations
 
+<<<<<<< HEAD
 import math
 import socket
 import threading
 import time
+=======
+import random
+>>>>>>> enginetests
 from pathlib import Path
 
 import numpy as np
@@ -32,21 +36,14 @@ from service.client import (
     next_link,
 )
 from tests.client_live_server import live_server
+from tests.support.json_requests import (
+    RLC_C_F,
+    RLC_L_H,
+    RLC_SHORT_BAND_HZ,
+    rlc_tank_frequency_hz,
+    rlc_tank_request,
+)
 from workers.lumped.families import parallel_rlc_negative_g
-
-R_OHM, L_H, C_F = 200.0, 1e-9, 2e-12
-BAND_HZ = np.geomspace(1e6, 1e12, 801)
-SHORT_BAND_HZ = np.geomspace(1e6, 1e12, 101)  # the engine refines Touchstone data slowly
-
-
-def tank_frequency_hz(g_neg_s: float) -> float:
-    """Closed form: imaginary part of the natural frequency of the parallel G, L, C tank / 2π."""
-    g = 1.0 / R_OHM + g_neg_s
-    return math.sqrt(1.0 / (L_H * C_F) - (g / (2 * C_F)) ** 2) / (2 * math.pi)
-
-
-def tank_request(g_neg_s: float, band_hz: np.ndarray = BAND_HZ) -> dict:
-    return parallel_rlc_negative_g(R_OHM, L_H, C_F, g_neg_s).check_request(band_hz)
 
 
 @pytest.fixture
@@ -139,8 +136,8 @@ def test_batch_progress_counts_final_states():
 
 def test_batch_round_trip_gives_closed_form_verdicts(server):
     client = client_for(server)
-    variants = [{"label": "g=-3mS", **tank_request(-3e-3)},
-                {"label": "g=-8mS", **tank_request(-8e-3)}]
+    variants = [{"label": "g=-3mS", **rlc_tank_request(-3e-3)},
+                {"label": "g=-8mS", **rlc_tank_request(-8e-3)}]
     accepted = client.submit_batch(None, variants, label="tank")
     seen = []
     batch = client.wait_batch(accepted["id"], on_progress=seen.append, poll_s=0.05)
@@ -150,13 +147,13 @@ def test_batch_round_trip_gives_closed_form_verdicts(server):
     assert items["g=-8mS"]["verdict"] == "unstable"
     assert items["g=-8mS"]["unstable_count"] == 2  # one complex pair
     assert items["g=-8mS"]["first_unstable_frequency_hz"] == pytest.approx(
-        tank_frequency_hz(-8e-3), rel=0.01)
+        rlc_tank_frequency_hz(-8e-3), rel=0.01)
     assert items["g=-8mS"]["first_unstable_node"] == "tank"
 
 
 def test_pages_are_followed_through_link_headers(server):
     client = client_for(server)
-    variants = [{"label": f"v{i}", **tank_request(-3e-3, np.geomspace(1e6, 1e12, 201))}
+    variants = [{"label": f"v{i}", **rlc_tank_request(-3e-3, np.geomspace(1e6, 1e12, 201))}
                 for i in range(7)]
     accepted = client.submit_batch(None, variants)
     client.wait_batch(accepted["id"], poll_s=0.05)
@@ -174,12 +171,12 @@ def test_touchstone_batch_is_multipart_and_labels_by_file_name(server, tmp_path:
 
     files = []
     for r_ohm in (100.0, 200.0):
-        case = parallel_rlc_negative_g(r_ohm, L_H, C_F, -8e-3)
-        y = port_admittance(case.circuit, case.port_nodes, SHORT_BAND_HZ)
+        case = parallel_rlc_negative_g(r_ohm, RLC_L_H, RLC_C_F, -8e-3)
+        y = port_admittance(case.circuit, case.port_nodes, RLC_SHORT_BAND_HZ)
         path = tmp_path / f"tank_{r_ohm:.0f}ohm.s1p"
-        path.write_text(to_touchstone(SHORT_BAND_HZ, s_from_y(y)), encoding="utf-8")
+        path.write_text(to_touchstone(RLC_SHORT_BAND_HZ, s_from_y(y)), encoding="utf-8")
         files.append(path)
-    request = tank_request(-8e-3)
+    request = rlc_tank_request(-8e-3)
     mapping = {"ports": request["ports"], "devices": request["devices"]}
     client = client_for(server)
     accepted = client.submit_touchstone_batch(files, mapping)
@@ -191,14 +188,14 @@ def test_touchstone_batch_is_multipart_and_labels_by_file_name(server, tmp_path:
 def test_single_check_cancel_and_errors(server):
     client = client_for(server)
     server.queue.hold()
-    accepted = client.submit_check(tank_request(-3e-3))
+    accepted = client.submit_check(rlc_tank_request(-3e-3))
     assert client.get_check(accepted["id"])["status"] == "queued"
     assert client.cancel_check(accepted["id"])["status"] == "cancelled"
     server.queue.release()
     with pytest.raises(ApiError) as missing:
         client.get_check("chk_" + "A" * 22)
     assert missing.value.status == 404 and missing.value.problem["status"] == 404
-    bad = dict(tank_request(-3e-3), frequency_hz=[3.0, 2.0, 1.0] + [0.0] * 798)
+    bad = dict(rlc_tank_request(-3e-3), frequency_hz=[3.0, 2.0, 1.0] + [0.0] * 798)
     with pytest.raises(ApiError) as invalid:
         client.submit_check(bad)
     assert invalid.value.status == 422 and "frequency_hz" in str(invalid.value.problem)
@@ -211,6 +208,7 @@ def test_single_check_cancel_and_errors(server):
 def test_rate_limit_answer_is_retried_after_the_servers_delay(tmp_path: Path):
     """RFC 9110 §10.2.3 / RFC 6585 §4: 429 with Retry-After; the client waits at least that."""
     with live_server(tmp_path, BALLAST_RATE_LIMIT=2, BALLAST_RATE_WINDOW_S=1.0) as live:
+<<<<<<< HEAD
         client = client_for(live)
         accepted = client.submit_check(tank_request(-3e-3, np.geomspace(1e6, 1e12, 101)))
         for _ in range(5):  # six requests at 2 a second: at least one is answered 429
@@ -221,6 +219,13 @@ def test_rate_limit_answer_is_retried_after_the_servers_delay(tmp_path: Path):
                 break
         assert statuses == [429] and response.json()["id"] == accepted["id"]
         assert time.monotonic() - start >= 1.0  # Retry-After >= 1 s (the window's rest)
+=======
+        client = client_for(live, sleep=sleep)
+        accepted = client.submit_check(rlc_tank_request(-3e-3, np.geomspace(1e6, 1e12, 101)))
+        for _ in range(3):
+            assert client.get_check(accepted["id"])["id"] == accepted["id"]
+    assert waits and min(waits) >= 1.0
+>>>>>>> enginetests
 
 
 def _hanging_up_server() -> tuple[socket.socket, list[bytes]]:

@@ -23,8 +23,8 @@ import pytest
 
 from service.auth import DEFAULT_TENANT
 from service.client import BallastClient, ClientConfig
-from tests.queue_harness import engine_verdicts, free_port
-from tests.queue_variants import variants
+from tests.support.queue_harness import engine_verdicts, free_port
+from tests.support.queue_variants import variants
 from workers.store import open_stores
 
 pytestmark = pytest.mark.integration

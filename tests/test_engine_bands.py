@@ -16,13 +16,17 @@ from dataclasses import dataclass
 import numpy as np
 import pytest
 
-from tests.engine_support import PortSpec, engine_request, grid_for, random_amplifier, rhp_count
-from tests.test_engine_closed_forms import (
+from tests.support.circuits import (
     EPS,
+    PortSpec,
     critical_gain,
     negative_conductance_tank,
     phase_shift_oscillator,
+    random_amplifier,
+    rhp_count,
 )
+from tests.support.grids import grid_for
+from tests.support.requests import engine_request
 from workers.engine import run_check
 from workers.lumped import Circuit, natural_frequencies
 

@@ -9,35 +9,23 @@ from __future__ import annotations
 import numpy as np
 import pytest
 
-from tests.engine_support import PortSpec, engine_request, grid_for
+from tests.support.circuits import (
+    C_F,
+    C_LADDER,
+    EPS,
+    L_H,
+    R_LADDER,
+    R_OHM,
+    critical_gain,
+    ladder_denominator,
+    tank_natural_frequencies,
+)
+from tests.support.requests import phase_shift_request, tank_request
 from workers.engine import analyse, run_check
-from workers.lumped import VCCS, Capacitor, Circuit, Inductor, Resistor
 
 # ------------------------------------------------------------------------------------------
 # Parallel RLC with a negative conductance (a transconductance from the node to itself)
 # ------------------------------------------------------------------------------------------
-
-L_H, C_F, R_OHM = 1e-9, 1e-12, 100.0  # f0 = 1/(2π√(LC)) ≈ 5.03 GHz, √(L/C) ≈ 31.6 Ω
-
-
-def negative_conductance_tank(gm_s: float) -> Circuit:
-    """R, L, C from node a to ground and a VCCS controlled by v_a whose current leaves node a,
-    i.e. a conductance gm_s (negative gm_s: a negative conductance)."""
-    return Circuit((
-        Resistor("R", "a", "0", R_OHM),
-        Inductor("L", "a", "0", L_H),
-        Capacitor("C", "a", "0", C_F),
-        VCCS("Gneg", ("a", "0"), ("a", "0"), gm_s),
-    ))
-
-
-def tank_natural_frequencies(g_net: float) -> np.ndarray:
-    # Closed form: s² + (G/C)s + 1/(LC) = 0 → s = −G/2C ± j√(1/LC − (G/2C)²) (second-order
-    # characteristic equation of the parallel RLC; common practice).
-    alpha = -g_net / (2 * C_F)
-    wd = np.sqrt(1 / (L_H * C_F) - alpha**2)
-    return np.array([alpha + 1j * wd, alpha - 1j * wd])
-
 
 TANK_CASES = [  # (gm of the device, expected right-half-plane count)
     pytest.param(-0.012, 2, id="net -2 mS: growing pair"),
@@ -45,13 +33,6 @@ TANK_CASES = [  # (gm of the device, expected right-half-plane count)
     pytest.param(-0.008, 0, id="net +2 mS: damped pair"),
     pytest.param(-0.002, 0, id="net +8 mS: well damped"),
 ]
-
-
-def tank_request(gm_s: float):
-    g_net = 1 / R_OHM + gm_s
-    poles = np.concatenate([tank_natural_frequencies(g_net), tank_natural_frequencies(1 / R_OHM)])
-    f = grid_for(poles)
-    return engine_request(negative_conductance_tank(gm_s), [PortSpec("a", "a", "probe")], f)
 
 
 @pytest.mark.parametrize(("gm_s", "expected_count"), TANK_CASES)
@@ -67,7 +48,7 @@ def test_tank_ndf_equals_closed_form(gm_s, expected_count):
 @pytest.mark.parametrize(("gm_s", "expected_count"), TANK_CASES)
 def test_tank_count_is_right_half_plane_pair(gm_s, expected_count):
     # Closed form: the pair −G/2C ± jω_d lies in the right half-plane exactly when the net
-    # conductance G = 1/R + gm is negative (tank_natural_frequencies above).
+    # conductance G = 1/R + gm is negative (tests.support.circuits.tank_natural_frequencies).
     assert int(np.sum(tank_natural_frequencies(1 / R_OHM + gm_s).real > 0)) == expected_count
     verdict = run_check(tank_request(gm_s))
     assert verdict.unstable_count == expected_count
@@ -103,51 +84,6 @@ def test_tank_kurokawa_crossing(gm_s, expected_count):
 # ------------------------------------------------------------------------------------------
 # Phase-shift oscillator: inverting gain −A driving three RC sections (series R, shunt C)
 # ------------------------------------------------------------------------------------------
-
-R_LADDER, C_LADDER = 1e3, 1e-9
-EPS = 1e-3  # R_L / R: the gain stage is a VCCS gm into R_L = EPS·R, voltage gain A = gm·R_L
-
-
-def phase_shift_oscillator(gain: float) -> Circuit:
-    r_load = EPS * R_LADDER
-    return Circuit((
-        Resistor("RL", "x", "0", r_load),
-        VCCS("A", ("n3", "0"), ("x", "0"), gain / r_load),
-        Resistor("R1", "x", "n1", R_LADDER),
-        Capacitor("C1", "n1", "0", C_LADDER),
-        Resistor("R2", "n1", "n2", R_LADDER),
-        Capacitor("C2", "n2", "0", C_LADDER),
-        Resistor("R3", "n2", "n3", R_LADDER),
-        Capacitor("C3", "n3", "0", C_LADDER),
-    ))
-
-
-def ladder_denominator(x: np.ndarray, eps: float) -> np.ndarray:
-    """v_x,open / v_3 of the ladder driven through R_L = eps·R (Thevenin form of gm into R_L).
-
-    ABCD cascade of [[1 + x·r_k, r_k], [x, 1]] sections, r = (1 + eps, 1, 1), x = sRC (Pozar,
-    Microwave Engineering, 4th ed., sec. 4.4, multiplied out by hand):
-    d(x) = 1 + (6 + 3ε)x + (5 + 4ε)x² + (1 + ε)x³; at ε = 0 the textbook 1 + 6x + 5x² + x³.
-    """
-    return 1 + (6 + 3 * eps) * x + (5 + 4 * eps) * x**2 + (1 + eps) * x**3
-
-
-def critical_gain(eps: float) -> float:
-    # Routh–Hurwitz on (1 + A) + (6 + 3ε)x + (5 + 4ε)x² + (1 + ε)x³: a₂a₁ = a₃a₀ at the boundary,
-    # so A = (6 + 3ε)(5 + 4ε)/(1 + ε) − 1 = 29 + 9ε + O(ε²). At ε = 0: A = 29 at ω = √6/RC
-    # (the classic phase-shift oscillator, e.g. Sedra & Smith, Microelectronic Circuits; quoted
-    # from memory). With ε = 1e-3 the critical gain moves up by 0.009.
-    return (6 + 3 * eps) * (5 + 4 * eps) / (1 + eps) - 1
-
-
-def phase_shift_request(gain: float):
-    # natural frequencies: roots of d(x) + A = 0 (x = sRC), and of d(x) = 0 with the gain off
-    scale = 1 / (R_LADDER * C_LADDER)
-    on = np.roots([1 + EPS, 5 + 4 * EPS, 6 + 3 * EPS, 1 + gain]) * scale
-    off = np.roots([1 + EPS, 5 + 4 * EPS, 6 + 3 * EPS, 1]) * scale
-    f = grid_for(np.concatenate([on, off]))
-    ports = [PortSpec("amp_out", "x", "probe"), PortSpec("amp_in", "n3", "probe")]
-    return engine_request(phase_shift_oscillator(gain), ports, f)
 
 
 def test_critical_gain_is_textbook_value_at_zero_load():

@@ -18,14 +18,16 @@ import pytest
 from skrf.network import s2y
 
 from service.runner import load_request
-from tests.engine_support import damping, engine_request, log_grid, random_amplifier
+from tests.support.circuits import damping, random_amplifier
+from tests.support.grids import log_grid
+from tests.support.requests import engine_request
 from workers.engine import analyse
 from workers.engine.conversions import y_from_s
 from workers.engine.loops import determinant_ratio, successive_return_differences
 from workers.engine.request import Network
 from workers.lumped import Circuit, assemble, check_request, port_admittance, s_from_y
 
-SEEDS = [0, 1, 2, 6, 12, 19]  # 2–4 devices each (tests.engine_support.random_amplifier)
+SEEDS = [0, 1, 2, 6, 12, 19]  # 2–4 devices each (tests.support.circuits.random_amplifier)
 
 
 def sample_grid(seed: int) -> np.ndarray:

@@ -11,22 +11,18 @@ from dataclasses import replace
 import numpy as np
 import pytest
 
-from tests.engine_support import (
+from tests.support.circuits import (
+    EPS,
     RandomCircuit,
+    critical_gain,
     damping,
-    engine_request,
-    grid_for,
+    negative_conductance_tank,
+    phase_shift_oscillator,
     random_amplifier,
     rhp_count,
 )
-from tests.test_engine_closed_forms import (
-    EPS,
-    critical_gain,
-    negative_conductance_tank,
-    phase_shift_oscillator,
-    phase_shift_request,
-    tank_request,
-)
+from tests.support.grids import grid_for
+from tests.support.requests import engine_request, phase_shift_request, tank_request
 from workers.engine import CheckOptions, analyse, run_check
 from workers.lumped import VCCS, Circuit, assemble
 
@@ -148,7 +144,7 @@ def random_case(seed: int):
     rc = random_amplifier(seed)
     on, off = _roots(rc)
     # log grid 2.5 decades beyond the slowest and fastest roots of det Y_on and det Y_off,
-    # refined around lightly damped roots (tests.engine_support.grid_for)
+    # refined around lightly damped roots (tests.support.grids.grid_for)
     f = grid_for(np.concatenate([on, off]))
     return rc, on, engine_request(rc.circuit, rc.ports, f)
 

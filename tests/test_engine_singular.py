@@ -9,12 +9,12 @@ from __future__ import annotations
 import numpy as np
 
 from service.runner import run_check_json
-from tests.test_cli_check import tank_request
+from tests.support.json_requests import gm_tank_request
 
 
 def _tank_s_request(short_at: int | None) -> dict:
-    """The stable tank of test_cli_check (net conductance stays positive) as S data."""
-    request = tank_request(gm=0.5e-3)
+    """The stable gm tank (net conductance stays positive) as S data."""
+    request = gm_tank_request(gm=0.5e-3)
     y = np.asarray(request["data"]["re"]) + 1j * np.asarray(request["data"]["im"])
     s = (1 - 50 * y) / (1 + 50 * y)
     if short_at is not None:

@@ -14,7 +14,7 @@ from pathlib import Path
 
 import pytest
 
-from tests.queue_harness import (
+from tests.support.queue_harness import (
     REDIS_SERVER,
     RedisServer,
     Worker,
@@ -26,7 +26,7 @@ from tests.queue_harness import (
     wait_until,
     worker_env,
 )
-from tests.queue_variants import variants
+from tests.support.queue_variants import variants
 from workers.celery_app import make_app
 from workers.runtime_config import CHECK_QUEUE, RUN_CHECK_TASK, load_config
 from workers.store import open_stores

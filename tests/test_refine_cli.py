@@ -14,7 +14,8 @@ from pathlib import Path
 import numpy as np
 import pytest
 
-from tests.test_refine_circuits import COARSE_HZ, tank
+from tests.support.grids import COARSE_HZ
+from tests.support.refine_cases import tank
 from workers.engine import run_check
 
 

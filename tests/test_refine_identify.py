@@ -9,9 +9,8 @@ from __future__ import annotations
 import numpy as np
 import pytest
 
-from tests.test_refine_circuits import (
-    COARSE_HZ,
-    DENSE_HZ,
+from tests.support.grids import COARSE_HZ, DENSE_HZ
+from tests.support.refine_cases import (
     benchmark_set,
     generated_set,
     mode_shape,

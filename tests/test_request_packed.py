@@ -9,8 +9,6 @@ be the request that the same numbers give as JSON lists.
 
 from __future__ import annotations
 
-import base64
-import copy
 from typing import Any
 
 import numpy as np
@@ -20,43 +18,9 @@ from marshmallow import ValidationError
 from service.runner import load_request
 from service.schemas.errors import flatten_errors
 from service.schemas.request import pack_array
+from tests.support.payloads import F, N, lists_payload, packed_array, packed_payload
 
 RNG = np.random.default_rng(20261202)
-F, N = 7, 3
-
-
-def _lists_payload() -> dict[str, Any]:
-    f = np.sort(RNG.uniform(1e8, 6e9, F))
-    y = RNG.normal(size=(F, N, N)) + 1j * RNG.normal(size=(F, N, N)) + 3 * np.eye(N)
-    gm = 0.04 * np.exp(-1j * RNG.uniform(0, 1, F))
-    return {
-        "frequency_hz": f.tolist(),
-        "parameters": "Y",
-        "data": {"re": y.real.tolist(), "im": y.imag.tolist()},
-        "ports": [{"name": "in", "role": "external"}, {"name": "g", "role": "probe"},
-                  {"name": "d", "role": "probe"}],
-        "devices": [{"name": "Q1", "gm_s": {"re": gm.real.tolist(), "im": gm.imag.tolist()},
-                     "control": ["g", None], "output": ["d", None]}],
-    }
-
-
-def _packed(values: np.ndarray, dtype: str) -> dict[str, Any]:
-    raw = np.asarray(values, dtype={"float64": "<f8", "complex128": "<c16"}[dtype]).tobytes()
-    return {"dtype": dtype, "shape": list(np.shape(values)),
-            "base64": base64.b64encode(raw).decode()}
-
-
-def _packed_payload(payload: dict[str, Any] | None = None) -> dict[str, Any]:
-    """``payload`` (default: a new one) with every array packed."""
-    payload = _lists_payload() if payload is None else payload
-    data = np.asarray(payload["data"]["re"]) + 1j * np.asarray(payload["data"]["im"])
-    gm = payload["devices"][0]["gm_s"]
-    packed = copy.deepcopy(payload)
-    packed["frequency_hz"] = _packed(np.asarray(payload["frequency_hz"]), "float64")
-    packed["data"] = _packed(data, "complex128")
-    packed["devices"][0]["gm_s"] = _packed(np.asarray(gm["re"]) + 1j * np.asarray(gm["im"]),
-                                           "complex128")
-    return packed
 
 
 def _errors(payload: dict[str, Any]) -> dict[str, str]:
@@ -66,8 +30,8 @@ def _errors(payload: dict[str, Any]) -> dict[str, str]:
 
 
 def test_packed_arrays_give_the_request_the_lists_give() -> None:
-    lists = _lists_payload()
-    a, b = load_request(lists), load_request(_packed_payload(lists))
+    lists = lists_payload()
+    a, b = load_request(lists), load_request(packed_payload(lists))
     assert np.array_equal(a.frequency_hz, b.frequency_hz)
     assert np.array_equal(a.network.values, b.network.values)
     assert np.array_equal(a.devices[0].gm_s, b.devices[0].gm_s)
@@ -76,13 +40,13 @@ def test_packed_arrays_give_the_request_the_lists_give() -> None:
 def test_pack_array_writes_what_numpy_and_base64_write() -> None:
     """The project's encoder against numpy's bytes and the standard library's base64."""
     values = RNG.normal(size=(4, 2, 2)) + 1j * RNG.normal(size=(4, 2, 2))
-    assert pack_array(values) == _packed(values, "complex128")
+    assert pack_array(values) == packed_array(values, "complex128")
     real = RNG.normal(size=5)
-    assert pack_array(real) == _packed(real, "float64")
+    assert pack_array(real) == packed_array(real, "float64")
 
 
 def _with(path: str, member: str, value: Any) -> dict[str, Any]:
-    payload = _packed_payload()
+    payload = packed_payload()
     node = payload
     for key in path.split("."):
         node = node[int(key)] if isinstance(node, list) else node[key]
@@ -90,7 +54,7 @@ def _with(path: str, member: str, value: Any) -> dict[str, Any]:
     return payload
 
 
-_GOOD_DATA = _packed(np.zeros((F, N, N), complex), "complex128")
+_GOOD_DATA = packed_array(np.zeros((F, N, N), complex), "complex128")
 
 
 @pytest.mark.parametrize(("path", "member", "value", "field", "words"), [
@@ -111,20 +75,20 @@ def test_packed_non_finite_value_is_refused_with_its_position() -> None:
     """NaN is a valid binary64 value but no valid number for a check (same rule as lists)."""
     data = np.ones((F, N, N), complex)
     data[2, 1, 0] = complex(np.nan, 0)
-    payload = _packed_payload()
-    payload["data"] = _packed(data, "complex128")
+    payload = packed_payload()
+    payload["data"] = packed_array(data, "complex128")
     errors = _errors(payload)
     assert "finite" in errors["data.base64"] and str(2 * N * N + N) in errors["data.base64"]
 
 
 def test_packed_shape_still_checked_against_the_ports() -> None:
-    payload = _packed_payload()
-    payload["data"] = _packed(np.ones((F, 2, 2), complex), "complex128")
+    payload = packed_payload()
+    payload["data"] = packed_array(np.ones((F, 2, 2), complex), "complex128")
     assert "ports" in _errors(payload)["data"]
 
 
 def test_packed_shape_whose_size_overflows_int64_is_refused_by_name() -> None:
     """2**120 elements: an int64 product wraps to 0 and would match an empty base64 text."""
-    payload = _packed_payload()
+    payload = packed_payload()
     payload["data"] = {"dtype": "complex128", "shape": [2**40] * 3, "base64": ""}
     assert "needs" in _errors(payload)["data.base64"]

@@ -23,7 +23,8 @@ from dataclasses import replace
 
 import numpy as np
 
-from tests.engine_support import PortSpec, engine_request
+from tests.support.circuits import PortSpec
+from tests.support.requests import engine_request
 from workers.engine import CheckOptions, run_check
 from workers.engine.request import CheckRequest
 from workers.lumped import VCCS, Capacitor, Circuit, Inductor, Resistor

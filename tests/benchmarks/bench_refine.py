@@ -2,7 +2,7 @@
 
     python -m tests.benchmarks.bench_refine [--size 20] [--seed 11] [--repeat 5]
 
-On generated lumped circuits (tests/test_refine_circuits.py ``benchmark_set``: tanks with |σ|/ω
+On generated lumped circuits (tests/support/refine_cases.py ``benchmark_set``: tanks with |σ|/ω
 from 0.1 % to 2 % of either sign and odd-mode pairs, every other one embedded in a lossy ladder
 with 3–7 more probe ports), with 201-point inputs:
 
@@ -37,7 +37,8 @@ import time
 
 import numpy as np
 
-from tests.test_refine_circuits import COARSE_HZ, DENSE_HZ, Case, benchmark_set
+from tests.support.grids import COARSE_HZ, DENSE_HZ
+from tests.support.refine_cases import Case, benchmark_set
 from workers.engine import run_check
 
 

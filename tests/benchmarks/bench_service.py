@@ -4,9 +4,10 @@
                                              [--rounds 5] [--layout redis|embedded]
                                              [--arrays packed|lists]
 
-Builds seeded invented variants (5 ports: 2 external, 3 probes; ``tests.queue_variants``), starts
-the API (gunicorn) and one Celery worker with ``--workers`` processes, exactly as ``ballast serve``
-does, and then, ``--rounds`` times: times the engine on the variants in this process
+Builds seeded invented variants (5 ports: 2 external, 3 probes;
+``tests.support.queue_variants``), starts the API (gunicorn) and one Celery worker with
+``--workers`` processes, exactly as ``ballast serve`` does, and then, ``--rounds`` times: times
+the engine on the variants in this process
 (``run_check_json``, one after the other: the engine's own compute time, measured next to each
 round because a shared machine's speed drifts), submits all variants as ONE batch
 (POST /v1/batches, JSON; the arrays packed as base64 float64, or as JSON lists with
@@ -48,8 +49,8 @@ import requests
 
 from service.runner import run_check_json
 from service.schemas.request import pack_array
-from tests.queue_harness import RedisServer, free_port, wait_until
-from tests.queue_variants import PORTS, variants
+from tests.support.queue_harness import RedisServer, free_port, wait_until
+from tests.support.queue_variants import PORTS, variants
 
 
 def engine_seconds(requests_: list[dict]) -> tuple[float, list[dict]]:

@@ -1,7 +1,8 @@
-"""Helpers for the engine tests: lumped circuits (workers.lumped) turned into engine requests.
+"""Lumped circuits for the engine tests and benchmarks (built with workers.lumped).
 
-The port data comes from the lumped MNA simulator (Schur complement of G + jωC); the independent
-oracle is the natural frequencies from scipy.linalg.eig on the MNA pencil (det(G + sC) = 0).
+The port data of each circuit comes from the lumped MNA simulator (Schur complement of G + jωC);
+the independent oracle is the natural frequencies from scipy.linalg.eig on the MNA pencil
+(det(G + sC) = 0), or the closed forms given beside the builders here.
 """
 
 from __future__ import annotations
@@ -11,7 +12,6 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from workers.engine.request import CheckOptions, CheckRequest, Device, Network, Port
 from workers.lumped import (
     GROUND,
     VCCS,
@@ -20,7 +20,6 @@ from workers.lumped import (
     Inductor,
     Resistor,
     natural_frequencies,
-    port_admittance,
 )
 
 
@@ -32,41 +31,6 @@ class PortSpec:
     node: str
     role: str  # "external" | "probe"
     termination_ohm: float | None = None
-
-
-def log_grid(f_low_hz: float, f_high_hz: float, per_decade: int) -> np.ndarray:
-    """Logarithmic frequency grid with ``per_decade`` points per decade (both ends included)."""
-    decades = np.log10(f_high_hz / f_low_hz)
-    return np.geomspace(f_low_hz, f_high_hz, int(np.ceil(decades * per_decade)) + 1)
-
-
-def engine_request(circuit: Circuit, ports: Sequence[PortSpec], frequency_hz: np.ndarray,
-                   device_names: Sequence[str] | None = None,
-                   options: CheckOptions | None = None, z0_ohm: float = 50.0) -> CheckRequest:
-    """A CheckRequest with Y data of ``circuit`` (devices on) at the ports, devices in the
-    given order (default: circuit order). Every device terminal must be a port node or ground."""
-    nodes = [p.node for p in ports]
-    index = {node: k for k, node in enumerate(nodes)}
-    vccs = circuit.devices if device_names is None else tuple(
-        circuit.element(name) for name in device_names)
-    f = np.asarray(frequency_hz, dtype=float)
-
-    def at(node: str) -> int | None:
-        return None if node == GROUND else index[node]
-
-    devices = tuple(
-        Device(name=d.name, gm_s=np.full(f.size, complex(d.gm_s)),
-               control=(at(d.control[0]), at(d.control[1])),
-               output=(at(d.output[0]), at(d.output[1])), delay_s=d.delay_s)
-        for d in vccs)
-    y = port_admittance(circuit, nodes, f)
-    return CheckRequest(
-        frequency_hz=f,
-        network=Network("Y", y, np.full(len(nodes), z0_ohm)),
-        ports=tuple(Port(p.name, p.role, p.termination_ohm) for p in ports),  # type: ignore[arg-type]
-        devices=devices,
-        options=options or CheckOptions(),
-    )
 
 
 def terminations(ports: Sequence[PortSpec], z0_ohm: float = 50.0) -> dict[str, float]:
@@ -174,24 +138,76 @@ def damping(poles: np.ndarray) -> float:
     return float(ratio.min())
 
 
-def grid_for(poles: np.ndarray, margin_decades: float = 2.5, per_decade: int = 200,
-             half_widths: float = 20.0, steps_per_width: float = 4.0) -> np.ndarray:
-    """A log grid from ``margin_decades`` below the slowest to above the fastest root, refined
-    linearly around every lightly damped root.
+# ------------------------------------------------------------------------------------------
+# Parallel RLC with a negative conductance (a transconductance from the node to itself)
+# ------------------------------------------------------------------------------------------
 
-    Near a root p = σ + jω_d, arg(jω − p) turns by π over ω_d ± a few |σ| (argument of a
-    first-order factor; common practice), so the band ω_d ± ``half_widths``·|σ| gets a step of
-    |σ|/``steps_per_width`` (phase steps below 1/steps_per_width rad per root there).
+L_H, C_F, R_OHM = 1e-9, 1e-12, 100.0  # f0 = 1/(2π√(LC)) ≈ 5.03 GHz, √(L/C) ≈ 31.6 Ω
+
+
+def negative_conductance_tank(gm_s: float) -> Circuit:
+    """R, L, C from node a to ground and a VCCS controlled by v_a whose current leaves node a,
+    i.e. a conductance gm_s (negative gm_s: a negative conductance)."""
+    return Circuit((
+        Resistor("R", "a", "0", R_OHM),
+        Inductor("L", "a", "0", L_H),
+        Capacitor("C", "a", "0", C_F),
+        VCCS("Gneg", ("a", "0"), ("a", "0"), gm_s),
+    ))
+
+
+def tank_natural_frequencies(g_net: float) -> np.ndarray:
+    # Closed form: s² + (G/C)s + 1/(LC) = 0 → s = −G/2C ± j√(1/LC − (G/2C)²) (second-order
+    # characteristic equation of the parallel RLC; common practice).
+    alpha = -g_net / (2 * C_F)
+    wd = np.sqrt(1 / (L_H * C_F) - alpha**2)
+    return np.array([alpha + 1j * wd, alpha - 1j * wd])
+
+
+# ------------------------------------------------------------------------------------------
+# Phase-shift oscillator: inverting gain −A driving three RC sections (series R, shunt C)
+# ------------------------------------------------------------------------------------------
+
+R_LADDER, C_LADDER = 1e3, 1e-9
+EPS = 1e-3  # R_L / R: the gain stage is a VCCS gm into R_L = EPS·R, voltage gain A = gm·R_L
+
+
+def phase_shift_oscillator(gain: float) -> Circuit:
+    r_load = EPS * R_LADDER
+    return Circuit((
+        Resistor("RL", "x", "0", r_load),
+        VCCS("A", ("n3", "0"), ("x", "0"), gain / r_load),
+        Resistor("R1", "x", "n1", R_LADDER),
+        Capacitor("C1", "n1", "0", C_LADDER),
+        Resistor("R2", "n1", "n2", R_LADDER),
+        Capacitor("C2", "n2", "0", C_LADDER),
+        Resistor("R3", "n2", "n3", R_LADDER),
+        Capacitor("C3", "n3", "0", C_LADDER),
+    ))
+
+
+def ladder_denominator(x: np.ndarray, eps: float) -> np.ndarray:
+    """v_x,open / v_3 of the ladder driven through R_L = eps·R (Thevenin form of gm into R_L).
+
+    ABCD cascade of [[1 + x·r_k, r_k], [x, 1]] sections, r = (1 + eps, 1, 1), x = sRC (Pozar,
+    Microwave Engineering, 4th ed., sec. 4.4, multiplied out by hand):
+    d(x) = 1 + (6 + 3ε)x + (5 + 4ε)x² + (1 + ε)x³; at ε = 0 the textbook 1 + 6x + 5x² + x³.
     """
-    magnitude = np.abs(poles) / (2 * np.pi)
-    base = log_grid(magnitude[magnitude > 0].min() * 10**-margin_decades,
-                    magnitude.max() * 10**margin_decades, per_decade)
-    pieces = [base]
-    for p in poles[poles.imag > 0]:
-        sigma, f_d = abs(p.real) / (2 * np.pi), p.imag / (2 * np.pi)
-        if sigma == 0 or sigma * half_widths > 0.5 * f_d:
-            continue  # on the axis (no grid can resolve it) or broad (the log grid does)
-        n = int(2 * half_widths * steps_per_width) + 1
-        pieces.append(np.linspace(f_d - half_widths * sigma, f_d + half_widths * sigma, n))
-    f = np.unique(np.concatenate(pieces))
-    return f[f > 0]
+    return 1 + (6 + 3 * eps) * x + (5 + 4 * eps) * x**2 + (1 + eps) * x**3
+
+
+def critical_gain(eps: float) -> float:
+    # Routh–Hurwitz on (1 + A) + (6 + 3ε)x + (5 + 4ε)x² + (1 + ε)x³: a₂a₁ = a₃a₀ at the boundary,
+    # so A = (6 + 3ε)(5 + 4ε)/(1 + ε) − 1 = 29 + 9ε + O(ε²). At ε = 0: A = 29 at ω = √6/RC
+    # (the classic phase-shift oscillator, e.g. Sedra & Smith, Microelectronic Circuits; quoted
+    # from memory). With ε = 1e-3 the critical gain moves up by 0.009.
+    return (6 + 3 * eps) * (5 + 4 * eps) / (1 + eps) - 1
+
+
+def phase_shift_roots(gain: float) -> tuple[np.ndarray, np.ndarray]:
+    """Natural frequencies (rad/s) with the gain on and off: roots of d(x) + A = 0 and of
+    d(x) = 0, x = sRC (ladder_denominator)."""
+    scale = 1 / (R_LADDER * C_LADDER)
+    on = np.roots([1 + EPS, 5 + 4 * EPS, 6 + 3 * EPS, 1 + gain]) * scale
+    off = np.roots([1 + EPS, 5 + 4 * EPS, 6 + 3 * EPS, 1]) * scale
+    return on, off

@@ -1,0 +1,6 @@
+"""Builders that the tests and the benchmarks share: lumped circuits, frequency grids, engine and
+JSON requests, packed payloads, and the queue's process harness.
+
+Test modules (``test_*.py``) import from here and never from each other; the benchmarks import
+only from here (``tests/test_support_layout.py`` checks both).
+"""
