@@ -11,14 +11,9 @@ so with R = 200 Ω it is stable for g = −3 mS and oscillates for g = −8 mS a
 
 from __future__ import annotations
 
-<<<<<<< HEAD
-import math
 import socket
 import threading
 import time
-=======
-import random
->>>>>>> enginetests
 from pathlib import Path
 
 import numpy as np
@@ -208,9 +203,8 @@ def test_single_check_cancel_and_errors(server):
 def test_rate_limit_answer_is_retried_after_the_servers_delay(tmp_path: Path):
     """RFC 9110 §10.2.3 / RFC 6585 §4: 429 with Retry-After; the client waits at least that."""
     with live_server(tmp_path, BALLAST_RATE_LIMIT=2, BALLAST_RATE_WINDOW_S=1.0) as live:
-<<<<<<< HEAD
         client = client_for(live)
-        accepted = client.submit_check(tank_request(-3e-3, np.geomspace(1e6, 1e12, 101)))
+        accepted = client.submit_check(rlc_tank_request(-3e-3, np.geomspace(1e6, 1e12, 101)))
         for _ in range(5):  # six requests at 2 a second: at least one is answered 429
             start = time.monotonic()
             response = client.request("GET", f"/v1/checks/{accepted['id']}")
@@ -219,13 +213,6 @@ def test_rate_limit_answer_is_retried_after_the_servers_delay(tmp_path: Path):
                 break
         assert statuses == [429] and response.json()["id"] == accepted["id"]
         assert time.monotonic() - start >= 1.0  # Retry-After >= 1 s (the window's rest)
-=======
-        client = client_for(live, sleep=sleep)
-        accepted = client.submit_check(rlc_tank_request(-3e-3, np.geomspace(1e6, 1e12, 101)))
-        for _ in range(3):
-            assert client.get_check(accepted["id"])["id"] == accepted["id"]
-    assert waits and min(waits) >= 1.0
->>>>>>> enginetests
 
 
 def _hanging_up_server() -> tuple[socket.socket, list[bytes]]:

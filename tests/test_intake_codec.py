@@ -22,7 +22,8 @@ import pytest
 
 from service.runner import load_request
 from tests.request_equality import assert_same_request
-from tests.test_request_packed import _lists_payload, _packed_payload
+from tests.support.payloads import lists_payload as _lists_payload
+from tests.support.payloads import packed_payload as _packed_payload
 from workers.engine import run_check
 from workers.intake import (
     REQUEST_ENCODING,

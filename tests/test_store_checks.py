@@ -536,7 +536,7 @@ def test_a_request_whose_shared_bytes_are_gone_reads_as_missing(clock):
 def test_a_worker_store_rides_out_a_redis_restart(tmp_path, clock):
     # redis-py's Retry (workers.store.redis_backend.patient_retry) on a private redis-server that
     # is down for a second while a claim is sent: the claim waits and succeeds.
-    from tests.queue_harness import REDIS_SERVER, RedisServer
+    from tests.support.queue_harness import REDIS_SERVER, RedisServer
     from workers.store import open_stores
     from workers.store.redis_backend import patient_retry
 
