@@ -109,7 +109,7 @@ _BASE = """<!doctype html>
 <meta name="viewport" content="width=device-width,initial-scale=1">
 <meta name="generator" content="ballast">
 <title>{{ title }}</title>
-<style>{{ css_vars }}{{ css }}</style></head>
+<style>{{ css_vars|safe }}{{ css|safe }}</style></head>
 <body><header class="strip"><span class="mark">ballast</span><span class="what">{{ kind }}</span>
 </header><main>{% block main %}{% endblock %}</main>
 {% block script %}{% endblock %}</body></html>
