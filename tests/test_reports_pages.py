@@ -176,3 +176,20 @@ def test_fields_of_later_verdicts_show_when_present(checks):
     assert row["symmetry"] == "odd" and row["pinned down by the data"] == "yes"
     plain = pages.check_page(check)
     assert "what to sweep next" not in plain and "f_max" not in plain
+
+
+def test_report_folder_gives_reasons_without_plots_too(checks, tmp_path):
+    """Pages written with --plots none still say why a device count is missing (from the
+    engine's analysis alone); with plots, the same reasons come with the pictures."""
+    from service.reports.outcomes import item_from_check
+    from service.reports.writer import write_batch_report
+
+    _, request, check = checks["pa"]
+    notes = request_device_notes(request, check["verdict"])
+    for choice in ("none", "all"):
+        index = write_batch_report(tmp_path / choice, {"id": "bat_p"}, [item_from_check(check)],
+                                   {check["id"]: check}, {check["id"]: request}, plots=choice)
+        html = (index.parent / "checks" / f"{check['id']}.html").read_text(encoding="utf-8")
+        rows = {r["device"]: r["why no count"] for r in table(html, "devices")}
+        assert rows == {name: notes.get(name, "") for name in rows}
+        assert ('id="plot-device-1"' in html) is (choice == "all")
