@@ -12,7 +12,15 @@ import itertools
 import numpy as np
 import pytest
 
-from service.reports.labels import Box, around, distance, nearest_point, place_labels, segment_hits
+from service.reports.labels import (
+    Box,
+    around,
+    distance,
+    leader,
+    nearest_point,
+    place_labels,
+    segment_hits,
+)
 
 BOUNDS = Box(0.0, 0.0, 400.0, 300.0)
 
@@ -35,6 +43,9 @@ def test_touching_boxes_do_not_overlap():
     a = Box(0, 0, 10, 10)
     assert not a.overlaps(Box(10, 0, 20, 10)) and a.overlaps(Box(9.9, 9.9, 20, 20))
     assert nearest_point(a, 15, 5) == (10, 5) and distance(a, 13, 14) == pytest.approx(5.0)
+    # a leader runs from the marker's edge (half-size 2) to the box: (20, 5) → (12, 5)
+    assert leader(a, (20.0, 5.0), 2.0, 3.0) == ((18.0, 5.0), (10, 5))
+    assert leader(a, (14.0, 5.0), 2.0, 3.0) is None  # within 2 + 3 of the box
 
 
 def _placements(seed: int, n: int, spread: float):
@@ -58,15 +69,14 @@ def test_placed_boxes_never_overlap(seed, n, spread):
     for (i, a), (j, b) in itertools.combinations(placed, 2):
         assert not a.overlaps(b), (i, j)
     markers = [around(x, y, 3.0) for x, y in anchors]
-    leaders = [(anchors[i], nearest_point(b, *anchors[i])) for i, b in placed
-               if distance(b, *anchors[i]) > 9.0]
+    leaders = {i: leader(b, anchors[i], 3.0, 9.0) for i, b in placed}
     for i, box in placed:
         assert box.within(BOUNDS) and not any(box.overlaps(k) for k in keep)
         assert box.x1 - box.x0 == pytest.approx(sizes[i][0])
         assert not any(box.overlaps(m) for m in markers)
-        for start, end in leaders:
-            if start != anchors[i]:
-                assert not segment_hits(box, start, end), i
+        for j, line in leaders.items():
+            if line is not None and j != i:
+                assert not segment_hits(box, *line), (i, j)
 
 
 def test_a_lone_label_sits_next_to_its_anchor():

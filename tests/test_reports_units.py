@@ -69,6 +69,8 @@ def test_power_of_ten_notation(value, expected):
 
 @pytest.mark.parametrize(("value", "expected"), [
     (-615.98954, "−616"), (5.6612, "5.66"), (3.76e16, "37.6 × 10¹⁵"), (-1.2e4, "−12 × 10³"),
+    (4372.0, "4.37 × 10³"),          # %.3g would give 4.37e+03
+    (1.23e-5, "12.3 × 10⁻⁶"), (0.000123, "0.000123"),
 ])
 def test_factors_never_take_si_prefixes(value, expected):
     assert format_factor(value) == expected

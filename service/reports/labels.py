@@ -5,7 +5,8 @@ in eight directions at a few distances; the first label (highest priority) choos
 is allowed only inside the bounds and clear of every box already placed and of every anchor's
 marker; among the allowed ones the box covering the fewest curve points wins, then the nearest.
 A label with no allowed box is left out (the caller says so), so two labels never overlap.
-A label set farther than ``leader_from`` from its anchor gets a leader line (drawn by the caller);
+A label set farther than ``leader_from`` beyond its anchor's marker gets a leader line (drawn by
+the caller, from the marker's edge: ``leader``);
 such a line may cross no other label (markers it may), and no later label may cover it.
 """
 
@@ -81,6 +82,19 @@ def segment_hits(box: Box, start: tuple[float, float], end: tuple[float, float])
     return True
 
 
+def leader(box: Box, anchor: tuple[float, float], marker: float, leader_from: float
+           ) -> tuple[tuple[float, float], tuple[float, float]] | None:
+    """The leader line from the edge of the anchor's marker (a square of half-size ``marker``) to
+    the nearest point of the box; None when the box is within ``leader_from`` of the marker."""
+    x, y = anchor
+    gap = distance(box, x, y)
+    if gap <= marker + leader_from:
+        return None
+    nx, ny = nearest_point(box, x, y)
+    shrink = min(marker / gap, 1.0)  # leave the marker's own area to the marker
+    return (x + (nx - x) * shrink, y + (ny - y) * shrink), (nx, ny)
+
+
 def around(x: float, y: float, radius: float) -> Box:
     return Box(x - radius, y - radius, x + radius, y + radius)
 
@@ -98,16 +112,18 @@ def candidate(anchor: tuple[float, float], size: tuple[float, float],
 def place_labels(anchors: Sequence[tuple[float, float]], sizes: Sequence[tuple[float, float]],
                  bounds: Box, curve_points: np.ndarray | None = None,
                  keep_clear: Sequence[Box] = (), gap: float = 4.0,
-                 marker_radius: float = 3.0, leader_from: float = np.inf
+                 marker_radius: float | Sequence[float] = 3.0, leader_from: float = np.inf
                  ) -> list[Box | None]:
     """A box per label (None: no room), in the order given (earlier labels choose first).
 
     ``curve_points`` (M, 2) are avoided where possible; ``keep_clear`` boxes (legends, notes),
-    every anchor's marker (a square of ``marker_radius``), the labels placed and their leader
-    lines are never covered.
+    every anchor's marker (a square of half-size ``marker_radius``, one for all or one per
+    anchor), the labels placed and their leader lines are never covered.
     """
     points = np.zeros((0, 2)) if curve_points is None else np.asarray(curve_points, float)
-    markers = [around(x, y, marker_radius) for x, y in anchors]
+    radii = ([float(marker_radius)] * len(anchors) if isinstance(marker_radius, int | float)
+             else [float(r) for r in marker_radius])
+    markers = [around(x, y, r) for (x, y), r in zip(anchors, radii, strict=True)]
     taken = list(keep_clear)
     leaders: list[tuple[tuple[float, float], tuple[float, float]]] = []
     placed: list[Box | None] = []
@@ -121,16 +137,16 @@ def place_labels(anchors: Sequence[tuple[float, float]], sizes: Sequence[tuple[f
                         or any(box.overlaps(t) for t in others)
                         or any(segment_hits(box, a, b) for a, b in leaders)):
                     continue
-                if distance(box, *anchor) > leader_from:  # its leader may pass markers only
-                    line = (anchor, nearest_point(box, *anchor))
-                    if any(segment_hits(t, *line) for t in taken):
-                        continue
+                line = leader(box, anchor, radii[n], leader_from)
+                if line is not None and any(segment_hits(t, *line) for t in taken):
+                    continue  # a leader may pass markers, never a label
                 cost = CURVE_WEIGHT * box.covered(points) + ring + 0.01 * rank
                 if cost < best_cost:
                     best, best_cost = box, cost
         if best is not None:
             taken.append(best)
-            if distance(best, *anchor) > leader_from:
-                leaders.append((anchor, nearest_point(best, *anchor)))
+            line = leader(best, anchor, radii[n], leader_from)
+            if line is not None:
+                leaders.append(line)
         placed.append(best)
     return placed

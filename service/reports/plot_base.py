@@ -22,7 +22,7 @@ from matplotlib.text import Text
 from matplotlib.ticker import EngFormatter
 
 from service.reports import style
-from service.reports.labels import Box, distance, nearest_point, place_labels
+from service.reports.labels import Box, around, leader, place_labels
 
 RC = {
     "font.family": style.FONT_FAMILY,
@@ -41,7 +41,7 @@ RC = {
 }
 LABEL_PAD_PX = 1.5
 MAX_OBSTACLE_POINTS = 4000
-LEADER_FROM_PT = 9.0   # a label farther than this from its anchor gets a thin leader line
+LEADER_FROM_PT = 6.0   # a label farther than this beyond its symbol gets a thin leader line
 
 
 def figure(width_in: float, height_in: float) -> Figure:
@@ -83,6 +83,7 @@ class LabelSpec:
     colour: str = style.MUTED
     size: float = 7.0
     bold: bool = False
+    marker_pt: float = 3.0          # half-size of the anchor's symbol, kept clear of labels
 
 
 def _extent(artist: Artist, renderer) -> Box:
@@ -98,10 +99,12 @@ def _extent(artist: Artist, renderer) -> Box:
 
 def place_axes_labels(ax: Axes, specs: Sequence[LabelSpec],
                       curves: Sequence[np.ndarray] = (),
-                      keep_clear: Sequence[Artist] = ()) -> list[Text]:
+                      keep_clear: Sequence[Artist] = (),
+                      markers: Sequence[tuple[float, float, float]] = ()) -> list[Text]:
     """Add the labels to ``ax`` where they overlap no other label, marker or ``keep_clear``
     artist and cover as little of the ``curves`` (complex arrays, x + jy in data coordinates)
     as possible; labels without room, or whose anchor is outside the axes, are left out.
+    ``markers`` (x, y, half-size in points) are symbols without a label that stay uncovered.
     Call after :func:`freeze_layout`. Returns the texts added (gids "label-…")."""
     fig = ax.get_figure()
     renderer = fig.canvas.get_renderer()
@@ -128,9 +131,15 @@ def place_axes_labels(ax: Axes, specs: Sequence[LabelSpec],
         w, h, _ = renderer.get_text_width_height_descent(spec.text, prop, ismath=False)
         sizes.append((w + 2 * LABEL_PAD_PX, h + 2 * LABEL_PAD_PX))
     scale = fig.dpi / 72.0
-    boxes = place_labels([a for _, a in inside], sizes, bounds, obstacles,
-                         [_extent(a, renderer) for a in keep_clear], gap=4.0 * scale,
-                         marker_radius=3.0 * scale, leader_from=LEADER_FROM_PT * scale)
+    clear = [_extent(a, renderer) for a in keep_clear]
+    for x, y, half in markers:
+        px, py = to_display((x, y))
+        if np.isfinite(px) and np.isfinite(py):
+            clear.append(around(float(px), float(py), half * scale))
+    boxes = place_labels([a for _, a in inside], sizes, bounds, obstacles, clear,
+                         gap=4.0 * scale,
+                         marker_radius=[spec.marker_pt * scale for spec, _ in inside],
+                         leader_from=LEADER_FROM_PT * scale)
     added = []
     for (spec, (x, y)), box in zip(inside, boxes, strict=True):
         if box is None:
@@ -138,11 +147,13 @@ def place_axes_labels(ax: Axes, specs: Sequence[LabelSpec],
         dx = (box.x0 + LABEL_PAD_PX - x) / scale
         dy = (box.y0 + LABEL_PAD_PX - y) / scale
         arrow = None
-        if distance(box, x, y) > LEADER_FROM_PT * scale:  # from the box's nearest point
-            nx, ny = nearest_point(box, x, y)
+        line = leader(box, (x, y), spec.marker_pt * scale, LEADER_FROM_PT * scale)
+        if line is not None:  # from the box's nearest point to the symbol's edge
+            (_, _), (nx, ny) = line
             arrow = {"arrowstyle": "-", "color": spec.colour, "linewidth": 0.6, "shrinkA": 0,
-                     "shrinkB": 2.5, "relpos": ((nx - box.x0) / (box.x1 - box.x0),
-                                                (ny - box.y0) / (box.y1 - box.y0))}
+                     "shrinkB": spec.marker_pt,
+                     "relpos": ((nx - box.x0) / (box.x1 - box.x0),
+                                (ny - box.y0) / (box.y1 - box.y0))}
         added.append(ax.annotate(
             spec.text, (spec.x, spec.y), xytext=(dx, dy), textcoords="offset points",
             ha="left", va="bottom", fontsize=spec.size, color=spec.colour,

@@ -52,11 +52,15 @@ def decades(f: np.ndarray) -> list[float]:
     return [10.0 ** k for k in np.arange(lo, hi + 1)]
 
 
+Marker = tuple[float, float, float]
+
+
 def _panel(ax: Axes, contour: Contour, transform: Transform, zoom: bool, prefix: str,
            symbol: str, modes: Sequence[ModeMark], scale: float
-           ) -> tuple[list[LabelSpec], list[np.ndarray]]:
+           ) -> tuple[list[LabelSpec], list[np.ndarray], list[Marker]]:
     """Curves and markers of one panel (``scale``: its half-width, for telling which model
-    stretches show); returns the labels to place and the drawn curves."""
+    stretches show); returns the labels to place, the drawn curves and the symbols (x, y,
+    half-size in points) that no label may cover."""
     suffix = "-zoom" if zoom else ""
     w = transform(contour.values)
     mirror = np.conj(w)
@@ -75,6 +79,7 @@ def _panel(ax: Axes, contour: Contour, transform: Transform, zoom: bool, prefix:
                         arrowprops={"arrowstyle": "-|>", "color": style.CURVE, "lw": 1.2})
     ax.plot([0], [0], marker="+", markersize=14, markeredgewidth=2.0, color=style.ALERT,
             linestyle="none", gid="origin" + suffix)
+    symbols: list[Marker] = [(0.0, 0.0, 7.5)]
     one = transform(np.array([1.0 + 0j]))[0]
     ax.plot([one.real], [one.imag], marker="s", markersize=6, markerfacecolor=style.PANEL,
             markeredgecolor=style.INK, markeredgewidth=1.3, linestyle="none", zorder=4,
@@ -89,8 +94,9 @@ def _panel(ax: Axes, contour: Contour, transform: Transform, zoom: bool, prefix:
                 markeredgewidth=2.2, color=style.ALERT, linestyle="none", zorder=5,
                 gid=("mode-marker" if i == 0 else f"mode-marker-{i}") + suffix)
         labels.append(LabelSpec(p.real, p.imag, f"mode {format_hz(mode.frequency_hz)}",
-                                f"mode-{i}{suffix}", style.ALERT, 8.0, True))
-    labels.append(LabelSpec(one.real, one.imag, f"{symbol} = 1", "unity" + suffix, style.INK))
+                                f"mode-{i}{suffix}", style.ALERT, 8.0, True, 7.0))
+    labels.append(LabelSpec(one.real, one.imag, f"{symbol} = 1", "unity" + suffix, style.INK,
+                            marker_pt=4.5))
     if zoom:
         closest = contour.closest_to_origin()
         if closest is not None:
@@ -100,7 +106,7 @@ def _panel(ax: Axes, contour: Contour, transform: Transform, zoom: bool, prefix:
             labels.append(LabelSpec(
                 value.real, value.imag,
                 f"closest: |{symbol}| = {format_number(abs(value), 3)} at {format_hz(at_hz)}"
-                + (" (model)" if modelled else ""), "closest", style.INK, 7.5))
+                + (" (model)" if modelled else ""), "closest", style.INK, 7.5, marker_pt=4.0))
     marks = [(f0, at_frequency(contour, f0)) for f0 in decades(contour.frequency_hz)]
     marks = [(f0, z) for f0, z in marks if z is not None]
     if marks:
@@ -110,7 +116,7 @@ def _panel(ax: Axes, contour: Contour, transform: Transform, zoom: bool, prefix:
         labels.extend(LabelSpec(p.real, p.imag, format_hz(f0, 3), f"decade-{k}{suffix}")
                       for k, ((f0, _), p) in enumerate(zip(marks, pts, strict=True)))
     dress(ax)
-    return labels, [w, mirror]
+    return labels, [w, mirror], symbols
 
 
 def _legend_handles(bridged: bool, has_modes: bool) -> list[Line2D]:
@@ -138,8 +144,8 @@ def contour_figure(contour: Contour, symbol: str, title: str, note: str,
     whole, near = fig.subplots(1, 2)
     squeezed = compress(contour.values)
     radius = float(np.nanmax(np.abs(squeezed))) if squeezed.size else 1.0
-    whole_labels, whole_curves = _panel(whole, contour, compress, False, prefix, symbol, modes,
-                                        radius)
+    whole_labels, whole_curves, whole_symbols = _panel(
+        whole, contour, compress, False, prefix, symbol, modes, radius)
     whole.set_aspect("equal", adjustable="datalim")
     whole.set_title(f"{symbol}, whole axis (radius log₁₀(1 + |{symbol}|))")
     if title != symbol:
@@ -149,8 +155,8 @@ def contour_figure(contour: Contour, symbol: str, title: str, note: str,
     closest = contour.closest_to_origin()
     reach = abs(closest[0]) if closest is not None else 0.0
     half = ZOOM_MARGIN * reach if np.isfinite(reach) and reach > 0 else 1.0
-    near_labels, near_curves = _panel(near, contour, lambda z: z, True, prefix, symbol, modes,
-                                      half)
+    near_labels, near_curves, near_symbols = _panel(
+        near, contour, lambda z: z, True, prefix, symbol, modes, half)
     near.set_xlim(-half, half)
     near.set_ylim(-half, half)
     near.set_aspect("equal", adjustable="box")
@@ -166,8 +172,8 @@ def contour_figure(contour: Contour, symbol: str, title: str, note: str,
     fig.legend(handles=_legend_handles(bridged, bool(modes)), loc="outside lower center",
                ncols=6, frameon=False)
     freeze_layout(fig)
-    place_axes_labels(whole, whole_labels, whole_curves)
-    place_axes_labels(near, near_labels, near_curves, keep_clear=[box])
+    place_axes_labels(whole, whole_labels, whole_curves, markers=whole_symbols)
+    place_axes_labels(near, near_labels, near_curves, keep_clear=[box], markers=near_symbols)
     return fig
 
 

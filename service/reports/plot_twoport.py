@@ -93,7 +93,7 @@ def factors_figure(curves: TwoPortCurves) -> Figure:
             edge_marks.append(LabelSpec(
                 float(f[positive][i]), y,
                 f"{symbol} = {format_factor(float(v[i]))} at {format_hz(float(f[positive][i]))}",
-                f"off-scale-{key}-{j}", look["color"], 7.5))
+                f"off-scale-{key}-{j}", look["color"], 7.5, marker_pt=5.0))
     ax.axhline(1.0, color=style.ALERT, linewidth=0.9, gid="unity-line")
     frequency_axis(ax)
     ax.set_ylim(low, high)
@@ -105,8 +105,8 @@ def factors_figure(curves: TwoPortCurves) -> Figure:
     if np.isfinite(mu).any() and np.nanmin(mu) >= 1.0:
         i = int(np.nanargmin(mu))
         lowest = f"{format_near_one(float(mu[i]), 'μ')} at {format_hz(float(f[positive][i]))}"
-        note = ax.text(0.01, 0.96, f"μ ≥ 1 everywhere: lowest μ = {lowest}",
-                       transform=ax.transAxes, va="top", fontsize=7.5, color=style.INK,
+        note = ax.text(0.01, 0.03, f"μ ≥ 1 everywhere: lowest μ = {lowest}",
+                       transform=ax.transAxes, va="bottom", fontsize=7.5, color=style.INK,
                        bbox={"boxstyle": "round,pad=0.3", "facecolor": style.PAPER,
                              "edgecolor": style.RULE}, gid="mu-note", zorder=6)
     fig.legend(loc="outside right upper", frameon=False)

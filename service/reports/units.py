@@ -83,17 +83,20 @@ def format_seconds(value: float | None, digits: int = 3) -> str:
 
 
 def format_number(value: float | None, digits: int = 4) -> str:
-    """A plain number with ``digits`` significant digits (minus as U+2212); '–' when missing."""
+    """A number with ``digits`` significant digits (minus as U+2212); where ``%g`` would switch
+    to e-notation, the power of ten is written out instead (4370 → "4.37 × 10³" with 3 digits);
+    '–' when missing."""
     if not _finite(value):
         return "–"
-    return f"{value:.{digits}g}".replace("-", MINUS)
+    text = f"{value:.{digits}g}"
+    if "e" in text:
+        return format_power_of_ten(value, "", digits)
+    return text.replace("-", MINUS)
 
 
 def format_factor(value: float | None, digits: int = 3) -> str:
-    """A dimensionless factor (K, μ): a plain number up to 10⁴ in size (−616), beyond it with the
-    power of ten written out (3.76e16 → "37.6 × 10¹⁵"), never an SI prefix."""
-    if _finite(value) and abs(value) >= 1e4:  # type: ignore[arg-type]
-        return format_power_of_ten(value, "", digits)
+    """A dimensionless factor (K, μ): never an SI prefix, so "−616", "4.37 × 10³",
+    3.76e16 → "37.6 × 10¹⁵"."""
     return format_number(value, digits)
 
 
