@@ -20,6 +20,7 @@ from service.reports.units import (
     format_ohm,
     format_power_of_ten,
     format_seconds,
+    format_share,
     format_siemens,
 )
 from service.reports.wording import count_in_words, mode_timing, number_word
@@ -101,6 +102,14 @@ def test_mu_near_one_shows_its_distance_from_one():
 ])
 def test_counts_in_words(count, modes, complete, expected):
     assert count_in_words(count, modes, complete) == expected
+
+
+@pytest.mark.parametrize(("share", "expected"), [
+    (1.0, "100 %"), (0.10636, "11 %"), (0.059492, "5.9 %"), (0.0020201, "0.2 %"),
+    (0.00013937, "0.014 %"), (0.0, "0 %"), (None, "–"),
+])
+def test_shares_keep_small_values_visible(share, expected):
+    assert format_share(share) == expected
 
 
 def test_number_words():

@@ -19,6 +19,7 @@ from service.reports.units import (
     format_ohm,
     format_power_of_ten,
     format_seconds,
+    format_share,
     format_siemens,
 )
 from service.reports.wording import count_in_words, mode_timing
@@ -50,7 +51,7 @@ def _nodes_with_shares(names: Sequence[str], shares: Sequence[Any], limit: int =
     shown = []
     for i, name in enumerate(list(names)[:limit]):
         share = shares[i] if i < len(shares) and isinstance(shares[i], int | float) else None
-        shown.append(f"{name} ({100 * share:.0f} %)" if share is not None else str(name))
+        shown.append(f"{name} ({format_share(share)})" if share is not None else str(name))
     return ", ".join(shown) or "–"
 
 

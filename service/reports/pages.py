@@ -151,8 +151,8 @@ _CHECK = """{% extends "base" %}{% block main %}
 {% for d in diagnostics %}<div class="diag {{ d.severity }}"><code>{{ d.code }} · {{ d.severity }}</code><br>{{ d.message }}</div>{% endfor %}{% endif %}
 {% if devices %}<h2>devices</h2>
 <p class="note">The return difference F of each device, in switch-on order: how many right-half-plane natural frequencies switching it on adds (its clockwise turns around the origin), and how close F comes to 0.</p>
-<table id="devices"><thead><tr><th>device</th><th>switched on</th><th>adds</th><th>closest |F|</th><th>at</th>{% if device_fmax %}<th>f_max</th>{% endif %}<th>why no count</th></tr></thead><tbody>
-{% for d in devices %}<tr><td>{{ d.name }}</td><td class="num">{{ d.order }}</td><td>{{ d.count }}</td><td class="num">{{ d.min }}</td><td>{{ d.at }}</td>{% if device_fmax %}<td>{{ d.fmax }}</td>{% endif %}<td class="why">{{ d.why }}</td></tr>{% endfor %}
+<table id="devices"><thead><tr><th>device</th><th>switched on</th><th>adds</th><th>closest |F|</th><th>at</th>{% if device_fmax %}<th>f_max</th>{% endif %}{% if device_why %}<th>why no count</th>{% endif %}</tr></thead><tbody>
+{% for d in devices %}<tr><td>{{ d.name }}</td><td class="num">{{ d.order }}</td><td>{{ d.count }}</td><td class="num">{{ d.min }}</td><td>{{ d.at }}</td>{% if device_fmax %}<td>{{ d.fmax }}</td>{% endif %}{% if device_why %}<td class="why">{{ d.why }}</td>{% endif %}</tr>{% endfor %}
 </tbody></table>
 {% for f in device_figures %}<figure id="plot-{{ f.name }}"><img alt="{{ f.name }} plot" src="{{ f.src }}"><figcaption>{{ f.caption }}</figcaption></figure>{% endfor %}{% endif %}
 {% if nodes %}<h2>nodes</h2>
@@ -255,6 +255,7 @@ def check_page(check: Mapping[str, Any], plots: Mapping[str, bytes | None] | Non
         margin=check_rows.margin_block(verdict),
         diagnostics=verdict.get("diagnostics") or [],
         devices=devices, device_fmax=check_rows.has_column(devices, "fmax"),
+        device_why=check_rows.has_column(devices, "why"),
         device_figures=device_figures,
         nodes=check_rows.node_rows(verdict), two_port=check_rows.two_port_block(verdict),
         figures=figures, batch_href=batch_href, plots_note=plots_note,

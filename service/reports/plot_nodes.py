@@ -17,7 +17,7 @@ from matplotlib.ticker import EngFormatter
 from service.reports import style
 from service.reports.data import CheckFigureData, ModeMark
 from service.reports.plot_base import dress, figure, freeze_layout, frequency_axis
-from service.reports.units import format_hz
+from service.reports.units import format_hz, format_share
 
 SAME_CURVE_RTOL = 1e-6
 MARKERS_PER_CURVE = 14
@@ -43,7 +43,7 @@ def leading_mode(modes: tuple[ModeMark, ...]) -> ModeMark | None:
 def _share(mode: ModeMark | None, name: str) -> str:
     if mode is None or name not in mode.nodes or len(mode.participation) != len(mode.nodes):
         return ""
-    return f"  {100 * mode.participation[mode.nodes.index(name)]:.0f} %"
+    return "  " + format_share(mode.participation[mode.nodes.index(name)])
 
 
 def _same_as(curves: list[tuple[str, np.ndarray]], y: np.ndarray) -> str | None:

@@ -100,6 +100,19 @@ def format_factor(value: float | None, digits: int = 3) -> str:
     return format_number(value, digits)
 
 
+def format_share(share: float | None) -> str:
+    """A share of 1 as a percentage, with more digits when small: 1.0 → "100 %", 0.106 →
+    "11 %", 0.0594 → "5.9 %", 0.00202 → "0.2 %", 0.000139 → "0.014 %"."""
+    if not _finite(share):
+        return "–"
+    percent = 100.0 * float(share)  # type: ignore[arg-type]
+    if abs(percent) >= 10 or percent == 0:
+        return f"{percent:.0f} %"
+    if abs(percent) >= 1:
+        return f"{percent:.1f} %"
+    return f"{percent:.2g} %" if abs(percent) >= 0.01 else f"{percent:.1g} %"
+
+
 NEAR_ONE = 1e-3
 
 
