@@ -37,6 +37,21 @@ def chromium(tmp_path: Path, *args: str) -> subprocess.CompletedProcess:
                           capture_output=True, text=True, timeout=120, check=False)
 
 
+def screenshot(tmp_path: Path, html: str, width: int, height: int) -> np.ndarray:
+    """The page as Chromium draws it in a width × height window: (height, width, 3) in 0…1."""
+    from matplotlib import image
+
+    page = tmp_path / "page.html"
+    page.write_text(html, encoding="utf-8")
+    shot = tmp_path / "shot.png"
+    result = chromium(tmp_path, f"--window-size={width},{height}", f"--screenshot={shot}",
+                      page.as_uri())
+    assert shot.is_file(), result.stderr[-2000:]
+    pixels = image.imread(shot)[..., :3]
+    assert pixels.shape[:2] == (height, width)
+    return pixels
+
+
 @pytest.fixture(scope="module")
 def batch_html() -> str:
     """A batch of tank variants. Closed form (parallel G, L, C): unstable when G = 1/R + g < 0,
@@ -56,15 +71,7 @@ def batch_html() -> str:
 
 
 def test_batch_page_screenshot_is_not_blank(tmp_path: Path, batch_html: str):
-    from matplotlib import image
-
-    page = tmp_path / "index.html"
-    page.write_text(batch_html, encoding="utf-8")
-    shot = tmp_path / "shot.png"
-    result = chromium(tmp_path, "--window-size=1200,900", f"--screenshot={shot}", page.as_uri())
-    assert shot.is_file(), result.stderr[-2000:]
-    pixels = image.imread(shot)[..., :3]
-    assert pixels.shape[:2] == (900, 1200)
+    pixels = screenshot(tmp_path, batch_html, 1200, 900)
     assert float(pixels.std()) > 0.05  # a blank page has no spread
     background = np.array([0xF7, 0xF4, 0xEC]) / 255.0  # the page colour (style.PAPER)
     distinct = np.abs(pixels - background).max(axis=-1) > 0.1
@@ -103,19 +110,12 @@ def test_check_page_screenshot_shows_tables_and_plots(tmp_path: Path, check_html
     """The embedded SVG plots render: the page's lower part (devices and pictures) carries the
     curve colour (style.CURVE, #1f6f8b) in many more pixels than its head (title, facts, modes
     table), where no plot is."""
-    from matplotlib import image
-
-    page = tmp_path / "check.html"
-    page.write_text(check_html, encoding="utf-8")
-    shot = tmp_path / "check.png"
-    result = chromium(tmp_path, "--window-size=1200,4000", f"--screenshot={shot}", page.as_uri())
-    assert shot.is_file(), result.stderr[-2000:]
-    pixels = image.imread(shot)[..., :3]
-    assert pixels.shape[:2] == (4000, 1200) and float(pixels.std()) > 0.05
+    pixels = screenshot(tmp_path, check_html, 1200, 4000)
+    assert float(pixels.std()) > 0.05
     curve = np.array([0x1F, 0x6F, 0x8B]) / 255.0
     near_curve = np.abs(pixels - curve).max(axis=-1) < 0.08
     plotted, head = near_curve[1000:].mean(), near_curve[:600].mean()
     assert plotted > 0.001 and plotted > 20 * head, (plotted, head)
-    dom = chromium(tmp_path, "--dump-dom", page.as_uri()).stdout
+    dom = chromium(tmp_path, "--dump-dom", (tmp_path / "page.html").as_uri()).stdout
     assert 'id="devices"' in dom and 'id="plot-device-1"' in dom and 'id="plot-circles"' in dom
     assert "it turns" in dom  # why a device count is missing, in the device table
