@@ -1,9 +1,9 @@
 """The rows and facts of a check page, in words and engineering notation (no plotting imports).
 
 Everything is read from the verdict JSON with ``.get``: fields added to ``ballast.verdict/1``
-later (``margin``, ``hints``, ``count_complete``, ``assumptions``, ``next_sweep``,
-``devices[].fmax_hz``, per-mode ``node_leverage``, ``symmetry``) show when present and are
-simply absent from the page otherwise.
+later (``margin``, per-mode ``hints`` and ``symmetry`` from issue 12; ``count_complete``,
+``assumptions``, ``next_sweep``, ``devices[].fmax_hz`` and the per-mode flag ``PINNED_KEY`` from
+issue 14) show when present and are simply absent from the page otherwise.
 """
 
 from __future__ import annotations
@@ -93,7 +93,7 @@ def mode_rows(verdict: Mapping[str, Any]) -> list[dict[str, str]]:
             "devices": ", ".join(mode.get("devices") or []) or "–",
             "symmetry": str(mode.get("symmetry") or ""),
             "by": str(mode.get("estimated_by") or "–").replace("_", " "),
-            "pinned": "" if pinned is None else ("yes" if pinned else "not yet"),
+            "pinned": "" if pinned is None else ("yes" if pinned else "no"),
             "hint": damping,
         })
     return rows

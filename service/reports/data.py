@@ -17,7 +17,7 @@ import numpy as np
 from service.reports.contours import Contour, drawn_contour, refined_response
 from service.reports.devices import device_notes
 from service.runner import load_request
-from workers.engine import analyse, refine_analysis
+from workers.engine import Analysis, analyse, refine_analysis
 from workers.engine.external import two_port_report
 from workers.engine.twoport import TwoPortFactors
 
@@ -130,7 +130,7 @@ def nodes_that_matter(names: tuple[str, ...], verdict: dict[str, Any],
     return tuple(names.index(n) for n in chosen[:limit])
 
 
-def _device_curves(analysis: Any, verdict: dict[str, Any]) -> tuple[DeviceCurves, ...]:
+def _device_curves(analysis: Analysis, verdict: dict[str, Any]) -> tuple[DeviceCurves, ...]:
     request = analysis.request
     valid = analysis.valid
     f = request.frequency_hz[valid]
