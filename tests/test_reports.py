@@ -81,7 +81,7 @@ def test_unstable_check_marks_its_mode_and_kurokawa_points(lna, svgs):
     ndf_ids = svg_ids(svgs[("unstable", "ndf")])
     assert {"mode-marker", "mode-marker-zoom"} <= ndf_ids
     admittance_ids = svg_ids(svgs[("unstable", "admittance")])
-    assert {"kurokawa-point", "kurokawa-point-im", "mode-line-0"} <= admittance_ids
+    assert {"kurokawa-point-g1", "kurokawa-point-im-g1", "mode-line-0"} <= admittance_ids
     text = svgs[("unstable", "ndf")].decode()
     assert "clockwise turns around 0: 2" in text  # one complex pair = 2 encirclements
 

@@ -55,10 +55,31 @@ def test_check_page_embeds_every_plot_and_links_its_batch(served):
     live, session, batch_id, check_id = served
     page = session.get(f"{live.url}/v1/checks/{check_id}/report", timeout=300)
     assert page.status_code == 200 and page.headers["Content-Type"].startswith("text/html")
-    assert len(re.findall(r'src="data:image/svg\+xml;base64,', page.text)) == 4
+    # ndf, admittance, factors, circles and one return-difference plot per device (Q1, Q2)
+    assert len(re.findall(r'src="data:image/svg\+xml;base64,', page.text)) == 6
+    assert 'id="plot-device-1"' in page.text and 'id="plot-device-2"' in page.text
     assert f"/v1/batches/{batch_id}/report" in page.text
+    assert f"/v1/checks/{check_id}/report?nodes=all#plot-admittance" in page.text
     bare = session.get(f"{live.url}/v1/checks/{check_id}/report?plots=none", timeout=60)
     assert "data:image" not in bare.text and "unstable" in bare.text.lower()
+
+
+def test_device_plots_and_every_node_on_request(served):
+    live, session, _, check_id = served
+    svg = session.get(f"{live.url}/v1/checks/{check_id}/plots/device-1.svg", timeout=120)
+    assert svg.status_code == 200 and svg.headers["Content-Type"].startswith("image/svg+xml")
+    ids = {e.get("id") for e in ET.fromstring(svg.content).iter() if e.get("id")}
+    assert {"device-curve", "device-curve-zoom", "unity-marker"} <= ids
+    every = session.get(f"{live.url}/v1/checks/{check_id}/plots/admittance.svg?nodes=all",
+                        timeout=120)
+    ids = {e.get("id") for e in ET.fromstring(every.content).iter() if e.get("id")}
+    # the LNA's eight ports (two_stage_lna): in, out, g1, s1, d1, g2, s2, d2
+    assert {f"admittance-re-{n}" for n in ("in", "out", "g1", "s1", "d1", "g2", "s2", "d2")} \
+        <= ids
+    few = session.get(f"{live.url}/v1/checks/{check_id}/plots/admittance.svg", timeout=120)
+    assert few.content != every.content
+    page = session.get(f"{live.url}/v1/checks/{check_id}/report?plots=none", timeout=60)
+    assert 'id="devices"' in page.text
 
 
 def test_batch_page_links_each_check(served):
@@ -72,6 +93,10 @@ def test_batch_page_links_each_check(served):
 @pytest.mark.parametrize(("path", "status"), [
     ("/v1/checks/{check}/plots/smith.svg", 404),
     ("/v1/checks/{check}/plots/ndf.gif", 404),
+    ("/v1/checks/{check}/plots/device-9.svg", 404),
+    ("/v1/checks/{check}/plots/device-0.svg", 404),
+    ("/v1/checks/{check}/plots/admittance.svg?nodes=some", 400),
+    ("/v1/checks/{check}/report?nodes=some", 400),
     ("/v1/checks/chk_AAAAAAAAAAAAAAAAAAAAAA/plots/ndf.svg", 404),
     ("/v1/batches/bat_AAAAAAAAAAAAAAAAAAAAAA/report", 404),
 ])

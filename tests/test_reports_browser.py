@@ -18,7 +18,7 @@ import pytest
 from service.reports import pages
 from service.reports.outcomes import item_from_check
 from service.runner import run_check_json
-from workers.lumped.families import parallel_rlc_negative_g
+from workers.lumped.families import combined_power_stage, parallel_rlc_negative_g
 
 CHROMIUM = shutil.which("chromium") or shutil.which("chromium-browser")
 pytestmark = [
@@ -35,6 +35,21 @@ def chromium(tmp_path: Path, *args: str) -> subprocess.CompletedProcess:
     profile = tmp_path / "chromium-profile"
     return subprocess.run([CHROMIUM, *FLAGS, f"--user-data-dir={profile}", *args],
                           capture_output=True, text=True, timeout=120, check=False)
+
+
+def screenshot(tmp_path: Path, html: str, width: int, height: int) -> np.ndarray:
+    """The page as Chromium draws it in a width × height window: (height, width, 3) in 0…1."""
+    from matplotlib import image
+
+    page = tmp_path / "page.html"
+    page.write_text(html, encoding="utf-8")
+    shot = tmp_path / "shot.png"
+    result = chromium(tmp_path, f"--window-size={width},{height}", f"--screenshot={shot}",
+                      page.as_uri())
+    assert shot.is_file(), result.stderr[-2000:]
+    pixels = image.imread(shot)[..., :3]
+    assert pixels.shape[:2] == (height, width)
+    return pixels
 
 
 @pytest.fixture(scope="module")
@@ -56,15 +71,7 @@ def batch_html() -> str:
 
 
 def test_batch_page_screenshot_is_not_blank(tmp_path: Path, batch_html: str):
-    from matplotlib import image
-
-    page = tmp_path / "index.html"
-    page.write_text(batch_html, encoding="utf-8")
-    shot = tmp_path / "shot.png"
-    result = chromium(tmp_path, "--window-size=1200,900", f"--screenshot={shot}", page.as_uri())
-    assert shot.is_file(), result.stderr[-2000:]
-    pixels = image.imread(shot)[..., :3]
-    assert pixels.shape[:2] == (900, 1200)
+    pixels = screenshot(tmp_path, batch_html, 1200, 900)
     assert float(pixels.std()) > 0.05  # a blank page has no spread
     background = np.array([0xF7, 0xF4, 0xEC]) / 255.0  # the page colour (style.PAPER)
     distinct = np.abs(pixels - background).max(axis=-1) > 0.1
@@ -84,3 +91,31 @@ def test_page_script_sorts_by_frequency(tmp_path: Path, batch_html: str):
     assert set(order[3:]) == {"chk_stable", "chk_f", "chk_q"}
     default = re.findall(r'href="checks/([^"]+)\.html"', batch_html.split("<tbody>", 1)[1])
     assert default[:3] == ["chk_l05", "chk_l10", "chk_l20"]  # worst verdicts first, then order
+
+
+@pytest.fixture(scope="module")
+def check_html() -> str:
+    """The check page of the combined power stage without its drain-to-drain resistor (odd mode
+    at +102 MHz ± j2242 MHz by scipy.linalg.eig, workers.lumped.families), every plot embedded."""
+    from service.reports.writer import check_plots
+
+    request = combined_power_stage(odd_mode_ohm=None).check_request(np.geomspace(1e6, 1e12, 301))
+    check = {"id": "chk_pa", "label": "pa without odd-mode resistor", "status": "done",
+             "verdict": run_check_json(request), "attempts": 1}
+    pictures = check_plots(request, check["verdict"])
+    return pages.check_page(check, pictures.images, device_notes=pictures.device_notes)
+
+
+def test_check_page_screenshot_shows_tables_and_plots(tmp_path: Path, check_html: str):
+    """The embedded SVG plots render: the page's lower part (devices and pictures) carries the
+    curve colour (style.CURVE, #1f6f8b) in many more pixels than its head (title, facts, modes
+    table), where no plot is."""
+    pixels = screenshot(tmp_path, check_html, 1200, 4000)
+    assert float(pixels.std()) > 0.05
+    curve = np.array([0x1F, 0x6F, 0x8B]) / 255.0
+    near_curve = np.abs(pixels - curve).max(axis=-1) < 0.08
+    plotted, head = near_curve[1000:].mean(), near_curve[:600].mean()
+    assert plotted > 0.001 and plotted > 20 * head, (plotted, head)
+    dom = chromium(tmp_path, "--dump-dom", (tmp_path / "page.html").as_uri()).stdout
+    assert 'id="devices"' in dom and 'id="plot-device-1"' in dom and 'id="plot-circles"' in dom
+    assert "it turns" in dom  # why a device count is missing, in the device table

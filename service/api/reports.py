@@ -1,7 +1,10 @@
 """Report pages and plots of finished checks, served by the API (same bearer tokens).
 
-    GET /v1/checks/{id}/plots/{name}.svg | .png   name: ndf, admittance, factors, circles
-    GET /v1/checks/{id}/report                    HTML page, plots embedded (?plots=none: without)
+    GET /v1/checks/{id}/plots/{name}.svg | .png   name: ndf, admittance, factors, circles, or
+                                                  device-<k> (return difference of the k-th
+                                                  device); ?nodes=all: every node's admittance
+    GET /v1/checks/{id}/report                    HTML page, plots embedded (?plots=none: without;
+                                                  ?nodes=all: every node's admittance)
     GET /v1/batches/{id}/report                   HTML page: sortable table of the batch's checks
 
 A plain Flask blueprint: the bodies are images and HTML, so these routes are kept out of the
@@ -12,6 +15,8 @@ per-process cache keeps the last few, since a finished check never changes.
 
 from __future__ import annotations
 
+import json
+import re
 import threading
 from collections import OrderedDict
 from typing import Any
@@ -27,27 +32,33 @@ blp = Blueprint("reports", __name__)
 blp.before_request(authenticate)
 
 PLOT_NAMES = ("ndf", "admittance", "factors", "circles")
+DEVICE_PLOT = re.compile(r"device-([1-9][0-9]*)")
+NODE_CHOICES = ("relevant", "all")
 IMAGE_TYPES = {"svg": "image/svg+xml", "png": "image/png"}
+NOTES = "device-notes"
 CACHE_SIZE = 64
 MAX_BATCH_PAGE_CHECKS = 10_000
 
 
+CacheKey = tuple[str, str, str, str]
+
+
 class _ImageCache:
-    """Thread-safe LRU of rendered plots keyed by (check id, name, format)."""
+    """Thread-safe LRU of rendered plots keyed by (check id, name, format, node choice)."""
 
     def __init__(self, size: int) -> None:
         self.size = size
-        self._items: OrderedDict[tuple[str, str, str], bytes | None] = OrderedDict()
+        self._items: OrderedDict[CacheKey, bytes | None] = OrderedDict()
         self._lock = threading.Lock()
 
-    def get(self, key: tuple[str, str, str]) -> tuple[bool, bytes | None]:
+    def get(self, key: CacheKey) -> tuple[bool, bytes | None]:
         with self._lock:
             if key in self._items:
                 self._items.move_to_end(key)
                 return True, self._items[key]
         return False, None
 
-    def put(self, key: tuple[str, str, str], value: bytes | None) -> None:
+    def put(self, key: CacheKey, value: bytes | None) -> None:
         with self._lock:
             self._items[key] = value
             self._items.move_to_end(key)
@@ -74,41 +85,76 @@ def _done_check(check_id: str) -> tuple[Any, StoredRequest]:
     return record, payload
 
 
-def _plots(check_id: str, names: tuple[str, ...], fmt: str) -> dict[str, bytes | None]:
-    """Rendered plots (from the cache when possible); matplotlib is imported on first use."""
+def _node_choice() -> str:
+    choice = request.args.get("nodes", "relevant")
+    if choice not in NODE_CHOICES:
+        abort_problem(400, f"nodes must be one of {', '.join(NODE_CHOICES)}, not {choice!r}",
+                      kind="invalid-query")
+    return choice
+
+
+def _plots(check_id: str, names: tuple[str, ...], fmt: str, nodes: str = "relevant"
+           ) -> tuple[dict[str, bytes | None], dict[str, str]]:
+    """Rendered plots (from the cache when possible) and why null device counts are null;
+    matplotlib is imported on first use. Only the admittance plot depends on ``nodes``."""
+    def key(name: str) -> CacheKey:
+        return (check_id, name, fmt, nodes if name == "admittance" else "relevant")
+
     found: dict[str, bytes | None] = {}
     missing = []
     for name in names:
-        hit, image = _CACHE.get((check_id, name, fmt))
+        hit, image = _CACHE.get(key(name))
         if hit:
             found[name] = image
         else:
             missing.append(name)
-    if missing:
+    hit, notes = _CACHE.get((check_id, NOTES, "json", "-"))
+    if missing or not hit:
         from service.reports.data import figure_data
         from service.reports.plots import render_plot
 
         record, payload = _done_check(check_id)
-        data = figure_data(payload, record.verdict)
+        data = figure_data(payload, record.verdict, nodes=nodes)  # type: ignore[arg-type]
         for name in missing:
             image = render_plot(name, data, fmt)  # type: ignore[arg-type]
-            _CACHE.put((check_id, name, fmt), image)
+            _CACHE.put(key(name), image)
             found[name] = image
-    return found
+        notes = json.dumps(data.device_notes()).encode()
+        _CACHE.put((check_id, NOTES, "json", "-"), notes)
+    return found, json.loads(notes or b"{}")
+
+
+def _device_notes(check_id: str, verdict: dict[str, Any]) -> dict[str, str]:
+    """Why null device counts are null, for a page without plots (no refinement, no drawing)."""
+    from service.reports.devices import needs_notes
+
+    if not needs_notes(verdict):
+        return {}
+    hit, notes = _CACHE.get((check_id, NOTES, "json", "-"))
+    if not hit:
+        from service.reports.data import request_device_notes
+
+        record, payload = _done_check(check_id)
+        notes = json.dumps(request_device_notes(payload, record.verdict)).encode()
+        _CACHE.put((check_id, NOTES, "json", "-"), notes)
+    return json.loads(notes or b"{}")
 
 
 @blp.route("/v1/checks/<string:check_id>/plots/<string:name>.<string:fmt>", methods=["GET"])
 def check_plot(check_id: str, name: str, fmt: str) -> Response:
     """One plot of a finished check as SVG or PNG."""
-    if name not in PLOT_NAMES:
-        abort_problem(404, f"no plot {name!r}; plots: {', '.join(PLOT_NAMES)}", kind="not-found")
+    if name not in PLOT_NAMES and not DEVICE_PLOT.fullmatch(name):
+        abort_problem(404, f"no plot {name!r}; plots: {', '.join(PLOT_NAMES)}, device-<k>",
+                      kind="not-found")
     if fmt not in IMAGE_TYPES:
         abort_problem(404, f"no format {fmt!r}; formats: svg, png", kind="not-found")
+    nodes = _node_choice()
     _done_check(check_id)  # tenant, existence and status checked on every request
-    image = _plots(check_id, (name,), fmt)[name]
+    image = _plots(check_id, (name,), fmt, nodes)[0][name]
     if image is None:
         abort_problem(404, f"check {check_id!r} has no {name} plot (e.g. no two-port: it needs "
-                           "exactly two external ports)", kind="not-found")
+                           "exactly two external ports; device-<k>: no k-th device)",
+                      kind="not-found")
     return Response(image, mimetype=IMAGE_TYPES[fmt],
                     headers={"Cache-Control": "private, max-age=3600"})
 
@@ -121,12 +167,24 @@ def check_report(check_id: str) -> Response:
     record = check_store().get_check(tenant(), check_id)
     if record is None:
         abort_problem(404, f"no check {check_id!r}", kind="not-found")
+    nodes = _node_choice()
     images: dict[str, bytes | None] = {}
-    if record.status == "done" and request.args.get("plots") != "none":
-        images = _plots(check_id, PLOT_NAMES, "svg")
+    notes: dict[str, str] = {}
+    all_nodes_href = None
+    if record.status == "done" and record.verdict:
+        if request.args.get("plots") != "none":
+            devices = tuple(f"device-{d.get('order')}" for d in record.verdict.get("devices")
+                            or [] if isinstance(d.get("order"), int))
+            images, notes = _plots(check_id, PLOT_NAMES + devices, "svg", nodes)
+            if nodes != "all":
+                all_nodes_href = url_for("reports.check_report", check_id=check_id,
+                                         nodes="all") + "#plot-admittance"
+        else:
+            notes = _device_notes(check_id, record.verdict)
     batch_href = (url_for("reports.batch_report", batch_id=record.batch_id)
                   if record.batch_id else None)
-    page = check_page(check_view(record), images, batch_href=batch_href)
+    page = check_page(check_view(record), images, batch_href=batch_href, device_notes=notes,
+                      all_nodes_href=all_nodes_href)
     return Response(page, mimetype="text/html")
 
 

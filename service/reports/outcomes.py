@@ -11,7 +11,8 @@ from __future__ import annotations
 from collections.abc import Iterable, Mapping
 from typing import Any
 
-from service.reports.units import format_hz
+from service.reports.units import format_hz, format_ohm
+from service.reports.wording import count_in_words
 
 EXIT_STABLE, EXIT_UNSTABLE, EXIT_INDETERMINATE, EXIT_ERROR = 0, 1, 2, 3
 
@@ -72,7 +73,8 @@ def _diagnostic_frequency(diagnostic: Mapping[str, Any]) -> float | None:
 
 
 def unstable_message(item: Mapping[str, Any], check: Mapping[str, Any] | None) -> str:
-    """'oscillates: 2 right-half-plane natural frequencies; first at 146.1 MHz, node g1 (Q1)'."""
+    """'oscillates: one oscillating pair (2 right-half-plane natural frequencies); first at
+    146.1 MHz, node g1 (Q1)'."""
     count = item.get("unstable_count")
     verdict = (check or {}).get("verdict") or {}
     modes = sorted((m for m in verdict.get("modes") or []
@@ -80,9 +82,11 @@ def unstable_message(item: Mapping[str, Any], check: Mapping[str, Any] | None) -
                    key=lambda m: m["frequency_hz"])
     devices = f" ({', '.join(modes[0].get('devices') or [])})" if modes and modes[0].get(
         "devices") else ""
-    return (f"oscillates: {count if count is not None else '?'} right-half-plane natural "
-            f"frequencies; first at {format_hz(item.get('first_unstable_frequency_hz'))}, node "
-            f"{item.get('first_unstable_node') or '?'}{devices}")
+    said = (f"{count_in_words(count, modes)} ({count} right-half-plane natural "
+            f"frequenc{'y' if count == 1 else 'ies'})" if isinstance(count, int) and modes
+            else f"{count if count is not None else '?'} right-half-plane natural frequencies")
+    return (f"oscillates: {said}; first at {format_hz(item.get('first_unstable_frequency_hz'))}, "
+            f"node {item.get('first_unstable_node') or '?'}{devices}")
 
 
 def indeterminate_message(check: Mapping[str, Any] | None) -> str:
@@ -120,7 +124,7 @@ def details_text(item: Mapping[str, Any], check: Mapping[str, Any] | None) -> st
             f"  mode at {format_hz(mode.get('frequency_hz'))}: nodes "
             f"{', '.join((mode.get('nodes') or [])[:4])}; devices "
             f"{', '.join(mode.get('devices') or [])}"
-            + (f"; first-order damping {hint.get('shunt_resistance_ohm', 0):.3g} ohm shunt at "
+            + (f"; first-order damping {format_ohm(hint.get('shunt_resistance_ohm'))} shunt at "
                f"{hint.get('node')}" if hint else ""))
     for diag in verdict.get("diagnostics") or []:
         lines.append(f"  [{diag.get('severity')}] {diag.get('code')}: {diag.get('message')}")

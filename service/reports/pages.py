@@ -14,20 +14,27 @@ from typing import Any
 
 from jinja2 import DictLoader, Environment
 
-from service.reports import style
+from service.reports import check_rows, style
 from service.reports.outcomes import state_of
-from service.reports.units import format_hz, format_number, format_siemens
+from service.reports.units import format_hz
 
 PLOT_CAPTIONS = {
     "ndf": "NDF contour. Each clockwise turn around the origin (red cross) is one natural "
-           "frequency in the right half-plane; the right panel magnifies the origin.",
+           "frequency in the right half-plane. Pale underlay: stretches between samples drawn "
+           "from the validated model. The right panel is zoomed to the closest approach.",
     "admittance": "Driving-point admittance. A node can start to oscillate where Im Y rises "
-                  "through zero while Re Y ≤ 0 (diamonds); dashed red lines are unstable modes.",
-    "factors": "K and mu of the external two-port. Shaded bands: some passive termination could "
-               "make the two-port oscillate. Loops inside the circuit are invisible here.",
-    "circles": "Stability circles at a few telling frequencies; the shaded side of each circle "
-               "holds the terminations that would make the other port's reflection exceed 1.",
+                  "through zero while Re Y ≤ 0 (diamonds in the node's colour); dashed red "
+                  "lines are unstable modes. The legend gives each node's share in the mode.",
+    "factors": "K and μ of the external two-port. Shaded bands: some passive termination could "
+               "make the two-port oscillate. Triangles at the edge mark values beyond the scale. "
+               "Loops inside the circuit are invisible here.",
+    "circles": "Stability circles at a few telling frequencies, coloured by frequency; ticks "
+               "point into the side whose terminations would make the other port's reflection "
+               "exceed 1, and the legend says how much of the unit disk that is.",
 }
+DEVICE_CAPTION = ("Return difference F of {name}: NDF with {name} switched on over NDF "
+                  "before it. Each clockwise turn around the origin is a right-half-plane natural "
+                  "frequency that switching on {name} adds.")
 
 #: order of severity, used for the default sort and the sort key of the verdict column
 SEVERITY = {"unstable": 0, "indeterminate": 1, "failed": 2, "cancelled": 3, "running": 4,
@@ -78,6 +85,9 @@ figcaption{font-size:13px;color:var(--muted);margin-top:6px}
 .diag.blocking{border-left-color:var(--v-indeterminate)}
 .diag code{font-size:12px;color:var(--muted)}
 .note{font-size:13px;color:var(--muted);max-width:80ch}
+td.why{font-size:13px;color:var(--muted);max-width:46ch}
+.sweep{background:var(--panel);border-left:4px solid var(--v-indeterminate);padding:8px 12px}
+.sweep b{display:inline-block;min-width:9em}
 """
 
 _SORT_JS = """
@@ -109,7 +119,7 @@ _BASE = """<!doctype html>
 <meta name="viewport" content="width=device-width,initial-scale=1">
 <meta name="generator" content="ballast">
 <title>{{ title }}</title>
-<style>{{ css_vars }}{{ css }}</style></head>
+<style>{{ css_vars|safe }}{{ css|safe }}</style></head>
 <body><header class="strip"><span class="mark">ballast</span><span class="what">{{ kind }}</span>
 </header><main>{% block main %}{% endblock %}</main>
 {% block script %}{% endblock %}</body></html>
@@ -125,11 +135,26 @@ _CHECK = """{% extends "base" %}{% block main %}
 </section>
 {% if check.reason %}<h2>why it failed</h2><div class="diag blocking">{{ check.reason }}</div>{% endif %}
 {% if modes %}<h2>where it oscillates</h2>
-<table><thead><tr><th>frequency</th><th>growth (1/s)</th><th>nodes, strongest first</th><th>devices</th><th>found by</th><th>first-order damping</th></tr></thead><tbody>
-{% for m in modes %}<tr class="v-unstable"><td>{{ m.frequency }}</td><td class="num">{{ m.growth }}</td><td>{{ m.nodes }}</td><td>{{ m.devices }}</td><td>{{ m.by }}</td><td>{{ m.hint }}</td></tr>{% endfor %}
+<table id="modes"><thead><tr><th>frequency</th><th>growth σ</th><th>Q</th><th>envelope</th><th>nodes, strongest first (share)</th><th>devices</th>{% if mode_symmetry %}<th>symmetry</th>{% endif %}<th>found by</th>{% if mode_pinned %}<th>pinned down by the data</th>{% endif %}<th>damping to try</th></tr></thead><tbody>
+{% for m in modes %}<tr class="v-unstable"><td>{{ m.frequency }}</td><td class="num">{{ m.growth }}</td><td class="num">{{ m.q }}</td><td>{{ m.doubling }}</td><td>{{ m.nodes }}</td><td>{{ m.devices }}</td>{% if mode_symmetry %}<td>{{ m.symmetry }}</td>{% endif %}<td>{{ m.by }}</td>{% if mode_pinned %}<td>{{ m.pinned }}</td>{% endif %}<td>{{ m.hint }}</td></tr>{% endfor %}
 </tbody></table>{% endif %}
+{% if next_sweep %}<h2>what to sweep next</h2>
+<div class="sweep" id="next-sweep"><div><b>band</b>{{ next_sweep.band }}</div><div><b>more points</b>{{ next_sweep.points }}</div>{% if next_sweep.reason %}<div><b>why</b>{{ next_sweep.reason }}</div>{% endif %}</div>{% endif %}
+{% if assumptions %}<h2>what the verdict assumes</h2>
+{% for a in assumptions %}<div class="diag"><code>{{ a.code }}</code><br>{{ a.message }}</div>{% endfor %}{% endif %}
+{% if margin %}<h2>margin</h2>
+{% if margin.facts %}<section class="facts">{% for label, value in margin.facts %}<div class="fact"><b>{{ value }}</b><span>{{ label }}</span></div>{% endfor %}</section>{% endif %}
+{% if margin.rows %}<table id="margin"><thead><tr><th>least damped at</th><th>σ</th><th>ζ</th><th>Q</th><th>envelope</th><th>nodes</th><th>devices</th></tr></thead><tbody>
+{% for m in margin.rows %}<tr><td>{{ m.frequency }}</td><td class="num">{{ m.growth }}</td><td class="num">{{ m.zeta }}</td><td class="num">{{ m.q }}</td><td>{{ m.doubling }}</td><td>{{ m.nodes }}</td><td>{{ m.devices }}</td></tr>{% endfor %}
+</tbody></table>{% endif %}{% endif %}
 {% if diagnostics %}<h2>what limited confidence</h2>
 {% for d in diagnostics %}<div class="diag {{ d.severity }}"><code>{{ d.code }} · {{ d.severity }}</code><br>{{ d.message }}</div>{% endfor %}{% endif %}
+{% if devices %}<h2>devices</h2>
+<p class="note">The return difference F of each device, in switch-on order: how many right-half-plane natural frequencies switching it on adds (its clockwise turns around the origin), and how close F comes to 0.</p>
+<table id="devices"><thead><tr><th>device</th><th>switched on</th><th>adds</th><th>closest |F|</th><th>at</th>{% if device_fmax %}<th>f_max</th>{% endif %}{% if device_why %}<th>why no count</th>{% endif %}</tr></thead><tbody>
+{% for d in devices %}<tr><td>{{ d.name }}</td><td class="num">{{ d.order }}</td><td>{{ d.count }}</td><td class="num">{{ d.min }}</td><td>{{ d.at }}</td>{% if device_fmax %}<td>{{ d.fmax }}</td>{% endif %}{% if device_why %}<td class="why">{{ d.why }}</td>{% endif %}</tr>{% endfor %}
+</tbody></table>
+{% for f in device_figures %}<figure id="plot-{{ f.name }}"><img alt="{{ f.name }} plot" src="{{ f.src }}"><figcaption>{{ f.caption }}</figcaption></figure>{% endfor %}{% endif %}
 {% if nodes %}<h2>nodes</h2>
 <table><thead><tr><th>node</th><th>role</th><th>lowest Re Y</th><th>at</th><th>Kurokawa points</th></tr></thead><tbody>
 {% for n in nodes %}<tr><td>{{ n.name }}</td><td>{{ n.role }}</td><td class="num">{{ n.min_re }}</td><td>{{ n.at }}</td><td>{{ n.kurokawa }}</td></tr>{% endfor %}
@@ -138,7 +163,7 @@ _CHECK = """{% extends "base" %}{% block main %}
 <section class="facts">{% for label, value in two_port.facts %}<div class="fact"><b>{{ value }}</b><span>{{ label }}</span></div>{% endfor %}</section>
 <p class="note">{{ two_port.proviso }}</p>{% endif %}
 {% if figures %}<h2>pictures</h2>
-{% for f in figures %}<figure id="plot-{{ f.name }}"><img alt="{{ f.name }} plot" src="{{ f.src }}"><figcaption>{{ f.caption }}</figcaption></figure>{% endfor %}
+{% for f in figures %}<figure id="plot-{{ f.name }}"><img alt="{{ f.name }} plot" src="{{ f.src }}"><figcaption>{{ f.caption }}{% if f.name == "admittance" and all_nodes_href %} <a href="{{ all_nodes_href }}">Every node's admittance</a>.{% endif %}</figcaption></figure>{% endfor %}
 {% elif plots_note %}<h2>pictures</h2><p class="note">{{ plots_note }}</p>{% endif %}
 {% endblock %}
 """
@@ -176,85 +201,65 @@ def _common() -> dict[str, Any]:
     return {"css": _CSS, "css_vars": style.css_variables()}
 
 
-def _modes(verdict: dict[str, Any]) -> list[dict[str, str]]:
-    rows = []
-    for mode in verdict.get("modes") or []:
-        hint = mode.get("hint") or {}
-        rows.append({
-            "frequency": format_hz(mode.get("frequency_hz")),
-            "growth": format_number(mode.get("growth_rate_per_s"), 3),
-            "nodes": ", ".join((mode.get("nodes") or [])[:4]) or "–",
-            "devices": ", ".join(mode.get("devices") or []) or "–",
-            "by": str(mode.get("estimated_by") or "–").replace("_", " "),
-            "hint": (f"{format_number(hint.get('shunt_resistance_ohm'), 3)} Ω shunt at "
-                     f"{hint.get('node')}" if hint else "–"),
-        })
-    return rows
-
-
-def _nodes(verdict: dict[str, Any]) -> list[dict[str, str]]:
-    rows = []
-    for node in verdict.get("nodes") or []:
-        points = node.get("kurokawa") or []
-        rows.append({
-            "name": node.get("name"), "role": node.get("role"),
-            "min_re": format_siemens(node.get("min_re_admittance_s")),
-            "at": format_hz(node.get("min_re_at_hz")),
-            "kurokawa": ", ".join(format_hz(p.get("frequency_hz")) for p in points) or "–",
-        })
-    return rows
-
-
-def _two_port(verdict: dict[str, Any]) -> dict[str, Any] | None:
-    tp = verdict.get("two_port")
-    if not tp:
-        return None
-    bands = tp.get("unstable_bands_hz") or []
-    return {
-        "ports": " → ".join(tp.get("ports") or []),
-        "facts": [
-            ("lowest K", f"{format_number(tp.get('k_min'), 3)} @ {format_hz(tp.get('k_min_hz'))}"),
-            ("lowest mu", f"{format_number(tp.get('mu_min'), 3)} @ "
-                          f"{format_hz(tp.get('mu_min_hz'))}"),
-            ("bands with mu < 1", "; ".join(f"{format_hz(lo)} – {format_hz(hi)}"
-                                           for lo, hi in bands) or "none"),
-            ("unconditionally stable ports", "yes" if tp.get("unconditionally_stable") else "no"),
-        ],
-        "proviso": tp.get("proviso") or "",
-    }
-
-
 def data_uri(content: bytes, fmt: str) -> str:
     mime = "image/svg+xml" if fmt == "svg" else "image/png"
     return f"data:{mime};base64,{base64.b64encode(content).decode()}"
 
 
+def _figure(name: str, image: bytes, plot_format: str, caption: str) -> dict[str, str]:
+    return {"name": name, "src": data_uri(image, plot_format), "caption": caption}
+
+
 def check_page(check: Mapping[str, Any], plots: Mapping[str, bytes | None] | None = None,
                batch_href: str | None = None, plots_note: str | None = None,
-               plot_format: str = "svg") -> str:
+               plot_format: str = "svg", device_notes: Mapping[str, str] | None = None,
+               all_nodes_href: str | None = None) -> str:
     """The HTML page of one check: ``check`` is the API's check JSON (GET /v1/checks/{id}),
-    ``plots`` maps plot names to rendered images (``plots.render_plot``)."""
+    ``plots`` maps plot names to rendered images (``plots.render_plot``; "device-<k>" for the
+    k-th device's return difference), ``device_notes`` device names to why their count is null
+    (``data.request_device_notes``)."""
     verdict = check.get("verdict") or {}
     shown = state_of(check)
     band = verdict.get("band_hz") or [None, None]
     facts = [
         ("verdict", shown),
-        ("right-half-plane natural frequencies",
-         "–" if verdict.get("unstable_count") is None else str(verdict["unstable_count"])),
+        ("right-half-plane natural frequencies", check_rows.count_fact(verdict)),
         ("band", f"{format_hz(band[0])} – {format_hz(band[1])}"),
         ("points × ports", f"{verdict.get('n_points', '–')} × {verdict.get('n_ports', '–')}"),
         ("attempts", str(check.get("attempts", "–"))),
     ]
-    figures = [{"name": name, "src": data_uri(image, plot_format),
-                "caption": PLOT_CAPTIONS.get(name, "")}
-               for name, image in (plots or {}).items() if image]
+    if isinstance(verdict.get("count_complete"), bool):
+        facts.insert(2, ("count complete", "yes" if verdict["count_complete"] else
+                         "no: more may lie outside the band"))
+    names = {str(d.get("order")): str(d.get("name")) for d in verdict.get("devices") or []}
+    figures, device_figures = [], []
+    for name, image in (plots or {}).items():
+        if not image:
+            continue
+        if name.startswith("device-"):
+            device = names.get(name.removeprefix("device-"), name)
+            device_figures.append(_figure(name, image, plot_format,
+                                          DEVICE_CAPTION.format(name=device)))
+        else:
+            figures.append(_figure(name, image, plot_format, PLOT_CAPTIONS.get(name, "")))
+    modes = check_rows.mode_rows(verdict)
+    devices = check_rows.device_rows(verdict, device_notes)
     return _ENV.get_template("check").render(
         **_common(), title=f"ballast · {check.get('label') or check.get('id')}",
         kind="check report", check=check, name=check.get("label") or check.get("id"),
         shown=shown, colour=style.VERDICT_COLOURS.get(shown, style.MUTED), facts=facts,
-        modes=_modes(verdict), diagnostics=verdict.get("diagnostics") or [],
-        nodes=_nodes(verdict), two_port=_two_port(verdict), figures=figures,
-        batch_href=batch_href, plots_note=plots_note,
+        modes=modes, mode_symmetry=check_rows.has_column(modes, "symmetry"),
+        mode_pinned=check_rows.has_column(modes, "pinned"),
+        next_sweep=check_rows.next_sweep_block(verdict),
+        assumptions=check_rows.assumption_rows(verdict),
+        margin=check_rows.margin_block(verdict),
+        diagnostics=verdict.get("diagnostics") or [],
+        devices=devices, device_fmax=check_rows.has_column(devices, "fmax"),
+        device_why=check_rows.has_column(devices, "why"),
+        device_figures=device_figures,
+        nodes=check_rows.node_rows(verdict), two_port=check_rows.two_port_block(verdict),
+        figures=figures, batch_href=batch_href, plots_note=plots_note,
+        all_nodes_href=all_nodes_href,
     )
 
 

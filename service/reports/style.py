@@ -17,8 +17,17 @@ ALERT = "#c2452d"
 BAND = "#f2c14e"
 KUROKAWA = "#6a4c93"
 
-#: one colour per plotted node / stability-circle frequency, in order
-SERIES = ("#1f6f8b", "#6a4c93", "#3b8c5a", "#b5651d", "#8a3b62", "#4f6d7a")
+MODEL = "#e3cf8f"     # underlay of contour stretches the validated model fills in
+
+#: one colour per plotted node, in order (eight before the cycle repeats with other dashes)
+SERIES = ("#1f6f8b", "#6a4c93", "#3b8c5a", "#b5651d", "#8a3b62", "#4f6d7a", "#9a8420",
+          "#2d4f9e")
+#: dash patterns that tell apart nodes of one colour, and curves that lie on top of each other
+DASHES = ("solid", (0, (5, 2)), (0, (1, 1.6)), (0, (6, 2, 1, 2)))
+#: markers sprinkled along node curves (off-set per node, so equal curves show both)
+MARKERS = ("o", "s", "^", "v", "D", "P", "X", "<")
+#: low → high frequency (stability circles): teal, green, ochre, rust, plum: ballast's own ramp
+FREQUENCY_RAMP = ("#1f6f8b", "#3b8c5a", "#b5841d", "#c2452d", "#6a2f6e")
 
 #: verdict or status → colour (badges, table cells, bars)
 VERDICT_COLOURS = {

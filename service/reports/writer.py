@@ -11,6 +11,7 @@ import logging
 import multiprocessing
 from collections.abc import Callable, Mapping, Sequence
 from concurrent.futures import ProcessPoolExecutor
+from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any, Literal
 
@@ -22,14 +23,39 @@ PLOT_CHOICES: tuple[str, ...] = ("not-stable", "all", "none")
 log = logging.getLogger("ballast.reports")
 
 
+@dataclass(frozen=True)
+class CheckPictures:
+    """The rendered plots of one check and, from the same analysis, why null device counts are
+    null (for the page's device table)."""
+
+    images: dict[str, bytes | None]
+    device_notes: dict[str, str] = field(default_factory=dict)
+
+
 def check_plots(payload: Mapping[str, Any], verdict: Mapping[str, Any],
-                fmt: Literal["svg", "png"] = "svg") -> dict[str, bytes | None]:
+                fmt: Literal["svg", "png"] = "svg") -> CheckPictures:
     """Every plot of one check, rendered (matplotlib is imported here, on first use)."""
     from service.reports.data import figure_data
-    from service.reports.plots import PLOT_NAMES, render_plot
+    from service.reports.plots import plot_names, render_plot
 
     data = figure_data(dict(payload), dict(verdict))
-    return {name: render_plot(name, data, fmt) for name in PLOT_NAMES}
+    return CheckPictures({name: render_plot(name, data, fmt) for name in plot_names(data)},
+                         data.device_notes())
+
+
+def notes_without_plots(payload: Mapping[str, Any] | None,
+                        verdict: Mapping[str, Any] | None) -> dict[str, str]:
+    """Why null device counts are null, for a page drawn without plots (cheap: no refinement)."""
+    from service.reports.data import request_device_notes
+    from service.reports.devices import needs_notes
+
+    if payload is None or not verdict or not needs_notes(verdict):
+        return {}
+    try:
+        return request_device_notes(dict(payload), dict(verdict))
+    except Exception as exc:  # the page still says that the verdict gives no reason
+        log.warning("device notes failed: %s", exc)
+        return {}
 
 
 def wants_plots(choice: PlotChoice, item: Mapping[str, Any]) -> bool:
@@ -44,10 +70,10 @@ def check_href(item: Mapping[str, Any]) -> str:
 
 
 def render_many(jobs: Sequence[tuple[str, Mapping[str, Any], Mapping[str, Any]]],
-                processes: int = 1) -> dict[str, dict[str, bytes | None] | Exception]:
+                processes: int = 1) -> dict[str, CheckPictures | Exception]:
     """Plots of several checks: ``jobs`` are (check id, request, verdict). With ``processes`` > 1
     they are drawn in that many spawned processes (matplotlib is not thread-safe)."""
-    results: dict[str, dict[str, bytes | None] | Exception] = {}
+    results: dict[str, CheckPictures | Exception] = {}
     if processes <= 1 or len(jobs) <= 1:
         for check_id, payload, verdict in jobs:
             try:
@@ -88,16 +114,20 @@ def write_batch_report(folder: Path, batch: Mapping[str, Any], items: Sequence[M
     for n, item in enumerate(items, start=1):
         check = checks.get(str(item["id"])) or {**item, "verdict": None}
         images: dict[str, bytes | None] = {}
+        notes: dict[str, str] = {}
         note = None
         result = drawn.get(str(item["id"]))
-        if isinstance(result, Exception):
-            log.warning("plots of %s failed: %s", item["id"], result)
-            note = f"The plots could not be drawn: {result}"
-        elif result is not None:
-            images = result
-        elif plots == "not-stable" and state_of(item) == "stable":
-            note = "Stable: no pictures drawn (ask for them with --plots all)."
-        page = check_page(check, images, batch_href="../index.html", plots_note=note)
+        if isinstance(result, CheckPictures):
+            images, notes = result.images, result.device_notes
+        else:
+            if isinstance(result, Exception):
+                log.warning("plots of %s failed: %s", item["id"], result)
+                note = f"The plots could not be drawn: {result}"
+            elif plots == "not-stable" and state_of(item) == "stable":
+                note = "Stable: no pictures drawn (ask for them with --plots all)."
+            notes = notes_without_plots(payloads.get(str(item["id"])), check.get("verdict"))
+        page = check_page(check, images, batch_href="../index.html", plots_note=note,
+                          device_notes=notes)
         (folder / check_href(item)).write_text(page, encoding="utf-8")
         if on_check:
             on_check(n, len(items))
