@@ -1,0 +1,1 @@
+"""Shared builders for the tests and the benchmarks (no test module imports another)."""
