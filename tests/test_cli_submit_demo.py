@@ -47,6 +47,9 @@ def test_demo_lna_flow_matches_the_eig_truth(tmp_path: Path, monkeypatch, capsys
     message = cases["lna_no_gate_damping.s8p"].find("failure").get("message")
     named = re.search(r"first at ([0-9.]+) MHz", message)
     assert named and math.isclose(float(named.group(1)) * 1e6, pair[0]["im"], rel_tol=0.02)
-    assert "node g1" in message  # the gate whose DC return lost its damping resistor
+    # eig of the MNA pencil (workers.lumped.natural_mode): the mode's voltage swings most at the
+    # second drain d2, and its left and right vectors meet at the first gate g1, whose DC return
+    # lost its damping resistor: that is where a part moves the mode most
+    assert "node d2" in message and "most leverage at node g1" in message
     index = (tmp_path / "report" / "index.html").read_text(encoding="utf-8")
     assert index.count('href="checks/') == 2

@@ -90,16 +90,20 @@ def test_engine_identifies_the_unstable_zero_pair_of_a_closed_form_ndf():
     assert methods["rational_model"].unstable_count == 2
     assert methods["rational_model"].agrees is True
     assert methods["encirclement"].agrees is True
-    assert verdict.refinement["model"]["validated"] is True
+    assert verdict.refinement.model.validated is True
 
 
-def test_zero_and_count_disagreement_is_indeterminate_with_both_numbers():
+def test_zero_and_count_disagreement_is_unstable_but_incomplete_with_both_numbers():
     # Argument principle (common practice): with the unstable pole pair as well, NDF encircles
     # the origin Z − P = 2 − 2 = 0 times while the model still has 2 right-half-plane zeros.
     # (A passive all-off circuit cannot give NDF such poles; the engine must not call it stable.)
+    # A right-half-plane zero of NDF = det Y_on / det Y_off is a zero of det Y_on, a natural
+    # frequency of the circuit as it runs, whatever the off circuit does: the pinned in-band
+    # pair makes it unstable, but the count is not complete.
     h = rational(2j * np.pi * WIDE_HZ, ZEROS, POLES)
     verdict = run_check(ndf_request(h, WIDE_HZ))
-    assert verdict.verdict == "indeterminate"
+    assert verdict.verdict == "unstable" and verdict.unstable_count == 2
+    assert verdict.count_complete is False and verdict.next_sweep is not None
     found = [d for d in verdict.diagnostics if d.code == "model_count_disagrees"]
     assert len(found) == 1
     assert found[0].details == {"encirclement_count": 0, "model_count": 2}
@@ -117,4 +121,4 @@ def test_data_that_is_not_rational_fails_validation_and_blocks():
     assert codes["model_not_validated"].severity == "blocking"
     assert "encirclement_count" in codes["model_not_validated"].details
     assert "not_rational" in codes
-    assert verdict.refinement["model"]["validated"] is False
+    assert verdict.refinement.model.validated is False

@@ -25,7 +25,7 @@ from service.reports.units import (
 from service.reports.wording import count_in_words, mode_timing
 
 #: the per-mode boolean (issue 14) saying whether the data pin the mode down
-PINNED_KEY = "pinned_down"
+PINNED_KEY = "pinned"
 PER_SECOND = "s⁻¹"
 
 

@@ -103,7 +103,8 @@ def _modes(verdict: dict[str, Any]) -> tuple[ModeMark, ...]:
 def nodes_that_matter(names: tuple[str, ...], verdict: dict[str, Any],
                       kurokawa: tuple[KurokawaMark, ...],
                       limit: int = MAX_PLOTTED_NODES) -> tuple[int, ...]:
-    """Node indices to plot: strongest node of each mode, nodes with Kurokawa points, nodes whose
+    """Node indices to plot: for each mode the node where a part moves it most (largest
+    ``node_leverage``) and the node where it shows most, nodes with Kurokawa points, nodes whose
     Re Y goes negative (most negative first); the external ports when none of these exist."""
     chosen: list[str] = []
 
@@ -111,8 +112,10 @@ def nodes_that_matter(names: tuple[str, ...], verdict: dict[str, Any],
         if name in names and name not in chosen:
             chosen.append(name)
 
-    for mode in _modes(verdict):
-        for name in mode.nodes[:2]:
+    for mode in verdict.get("modes") or []:
+        nodes, leverage = mode.get("nodes") or [], mode.get("node_leverage") or []
+        ranked = [n for _, n in sorted(zip(leverage, nodes, strict=False), key=lambda p: -p[0])]
+        for name in [*ranked[:1], *nodes[:2]]:
             add(name)
     for mark in sorted(kurokawa, key=lambda m: m.re_admittance_s):
         add(mark.node)

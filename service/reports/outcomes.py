@@ -42,8 +42,7 @@ def exit_code(items: Iterable[Mapping[str, Any]]) -> int:
 def item_from_check(check: Mapping[str, Any]) -> dict[str, Any]:
     """A listing row from a full check: the lowest-frequency mode and its strongest node."""
     verdict = check.get("verdict") or {}
-    modes = [m for m in verdict.get("modes") or []
-             if isinstance(m.get("frequency_hz"), int | float)]
+    modes = _counted_modes(verdict)
     first = min(modes, key=lambda m: m["frequency_hz"]) if modes else None
     return {
         "id": check.get("id"),
@@ -54,6 +53,19 @@ def item_from_check(check: Mapping[str, Any]) -> dict[str, Any]:
         "first_unstable_frequency_hz": first["frequency_hz"] if first else None,
         "first_unstable_node": (first.get("nodes") or [None])[0] if first else None,
     }
+
+
+def _counted_modes(verdict: Mapping[str, Any]) -> list[Mapping[str, Any]]:
+    """The modes the verdict counts (pinned down by the samples), with a frequency."""
+    return [m for m in verdict.get("modes") or []
+            if isinstance(m.get("frequency_hz"), int | float) and m.get("pinned", True)]
+
+
+def _leverage_node(mode: Mapping[str, Any]) -> str | None:
+    """The node where a part moves the mode most (largest node_leverage)."""
+    nodes, leverage = mode.get("nodes") or [], mode.get("node_leverage") or []
+    pairs = [(w, n) for n, w in zip(nodes, leverage, strict=False) if isinstance(w, int | float)]
+    return max(pairs)[1] if pairs else None
 
 
 def _first_kurokawa(verdict: Mapping[str, Any]) -> tuple[float, str] | None:
@@ -74,19 +86,21 @@ def _diagnostic_frequency(diagnostic: Mapping[str, Any]) -> float | None:
 
 def unstable_message(item: Mapping[str, Any], check: Mapping[str, Any] | None) -> str:
     """'oscillates: one oscillating pair (2 right-half-plane natural frequencies); first at
-    146.1 MHz, node g1 (Q1)'."""
+    146.1 MHz, node d2 (Q1); most leverage at node g1': the node where the mode shows most and,
+    when another, the node where a part moves it most."""
     count = item.get("unstable_count")
     verdict = (check or {}).get("verdict") or {}
-    modes = sorted((m for m in verdict.get("modes") or []
-                    if isinstance(m.get("frequency_hz"), int | float)),
-                   key=lambda m: m["frequency_hz"])
+    modes = sorted(_counted_modes(verdict), key=lambda m: m["frequency_hz"])
     devices = f" ({', '.join(modes[0].get('devices') or [])})" if modes and modes[0].get(
         "devices") else ""
     said = (f"{count_in_words(count, modes)} ({count} right-half-plane natural "
             f"frequenc{'y' if count == 1 else 'ies'})" if isinstance(count, int) and modes
             else f"{count if count is not None else '?'} right-half-plane natural frequencies")
+    shown = item.get("first_unstable_node") or "?"
+    lever = _leverage_node(modes[0]) if modes else None
+    leverage = f"; most leverage at node {lever}" if lever and lever != shown else ""
     return (f"oscillates: {said}; first at {format_hz(item.get('first_unstable_frequency_hz'))}, "
-            f"node {item.get('first_unstable_node') or '?'}{devices}")
+            f"node {shown}{devices}{leverage}")
 
 
 def indeterminate_message(check: Mapping[str, Any] | None) -> str:

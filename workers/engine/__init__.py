@@ -11,7 +11,7 @@ from workers.engine.check import Analysis, analyse
 from workers.engine.decide import decide
 from workers.engine.errors import InputError, TouchstoneError
 from workers.engine.external import two_port_report
-from workers.engine.refine import RefinedCheck, refine_analysis
+from workers.engine.refined_check import RefinedCheck, refine_analysis
 from workers.engine.request import CheckOptions, CheckRequest, Device, Network, Port
 from workers.engine.verdict import VERDICT_FORMAT, CheckVerdict, Diagnostic
 
@@ -25,15 +25,7 @@ def run_check(request: CheckRequest) -> CheckVerdict:
     if not request.options.refine:
         return decide(analysis, two_port, extra=diagnostics)
     refined = refine_analysis(analysis, None if factors is None else (factors[0], factors[2]))
-    return decide(
-        analysis, two_port,
-        refinement=refined.report,
-        model_modes=refined.modes,
-        extra=diagnostics + refined.diagnostics,
-        model_method=refined.method,
-        refined_count=None if refined.refinement is None else refined.refinement.count,
-        model_zeros_rad_s=refined.zeros_rad_s,
-    )
+    return decide(analysis, two_port, refined, extra=diagnostics)
 
 
 __all__ = [

@@ -13,6 +13,7 @@ from dataclasses import dataclass
 import numpy as np
 
 from workers.engine import conversions, loops, nodes
+from workers.engine.edges import EdgeJudgement, judge_high_edge, judge_low_edge
 from workers.engine.encirclement import Encirclements, count_encirclements
 from workers.engine.request import CheckRequest
 from workers.engine.verdict import Diagnostic
@@ -33,6 +34,38 @@ class CircuitState:
 
 
 @dataclass(frozen=True)
+class BandEdges:
+    """Both edges of one response's band, judged on its samples (``workers.engine.edges``)."""
+
+    low: EdgeJudgement
+    high: EdgeJudgement
+
+    @property
+    def settled(self) -> bool:
+        return self.low.settled and self.high.settled
+
+    @property
+    def closures(self) -> tuple[float | None, float | None]:
+        """(DC, top) closing phase changes for ``count_encirclements``; None where open."""
+        return (self.low.closure_rad if self.low.settled else None,
+                self.high.closure_rad if self.high.settled else None)
+
+
+def judge_edges(frequency_hz: np.ndarray, h: np.ndarray, request: CheckRequest) -> BandEdges:
+    """Both band edges of a sampled response (NDF or a return difference)."""
+    fmax = tuple(d.fmax_hz for d in request.devices)
+    return BandEdges(judge_low_edge(frequency_hz, h), judge_high_edge(frequency_hz, h, fmax))
+
+
+def counted(frequency_hz: np.ndarray, h: np.ndarray, request: CheckRequest
+            ) -> tuple[Encirclements, BandEdges]:
+    """The encirclement count of a sampled response with its edges judged and closed."""
+    edges = judge_edges(frequency_hz, h, request)
+    low, high = edges.closures
+    return count_encirclements(frequency_hz, h, None, low, high), edges
+
+
+@dataclass(frozen=True)
 class Analysis:
     """Everything computed on the samples; the verdict and the reports are drawn from it."""
 
@@ -45,6 +78,8 @@ class Analysis:
     nodes: nodes.NodeResult
     diagnostics: list[Diagnostic]
     z_on: np.ndarray                        # (F, N, N) inverse of the terminated Y_on
+    ndf_edges: BandEdges | None = None
+    device_edges: tuple[BandEdges | None, ...] = ()
 
 
 def circuit_state(request: CheckRequest, diagnostics: list[Diagnostic]) -> CircuitState:
@@ -95,37 +130,27 @@ def _check_gain_off(request: CheckRequest, y_on: np.ndarray, y_off: np.ndarray,
         ))
 
 
-# How fast the devices' share of NDF, |NDF − 1|, may still grow towards a band edge (per e-fold of
-# frequency) for that edge to count as settled; see ``encirclement`` for the reasoning.
-TREND_TOLERANCE = 0.25
-
-
-def count_trusted(count: Encirclements, request: CheckRequest) -> list[Diagnostic]:
-    """The reasons, if any, why an NDF encirclement count cannot stand for the whole axis."""
+def count_trusted(count: Encirclements, request: CheckRequest,
+                  edges: BandEdges | None = None) -> list[Diagnostic]:
+    """The reasons, if any, why an encirclement count cannot stand for the whole axis: an open
+    band edge (``workers.engine.edges``), a phase step beyond the limit, or a closed phase change
+    far from a whole number of half-turns. Without ``edges`` both edges count as open."""
     opts = request.options
     found: list[Diagnostic] = []
-    low, high, tol = count.low, count.high, opts.closure_tolerance
-    low_growing = low.trend is not None and low.trend < -TREND_TOLERANCE
-    high_flat = high.trend is not None and high.trend > -TREND_TOLERANCE
-    if low.distance > tol or low_growing:
+    for side, code, judgement in (("low", "band_low_open", edges.low if edges else None),
+                                  ("high", "band_high_open", edges.high if edges else None)):
+        if judgement is not None and judgement.settled:
+            continue
+        reason = judgement.reason if judgement is not None else "the edge was not judged"
+        where = count.low if side == "low" else count.high
         found.append(Diagnostic(
-            "band_low_open", "blocking",
-            f"NDF has not settled at the lowest frequency ({low.frequency_hz:.6g} Hz): distance "
-            f"{low.distance:.3g} (tolerance {tol:g}); the devices' share of NDF "
-            + (f"grows towards DC with slope {-low.trend:.2f} per e-fold (limit "
-               f"{TREND_TOLERANCE:g})" if low_growing else "is not growing towards DC")
-            + "; extend the band towards 0 Hz",
-            {"distance": low.distance, "trend": low.trend, "frequency_hz": low.frequency_hz},
-        ))
-    if high.distance > tol or high_flat:
-        found.append(Diagnostic(
-            "band_high_open", "blocking",
-            f"NDF has not settled at the highest frequency ({high.frequency_hz:.6g} Hz): distance "
-            f"{high.distance:.3g} (tolerance {tol:g}); the devices' share of NDF "
-            + (f"changes with slope {high.trend:.2f} per e-fold where it must be falling (below "
-               f"{-TREND_TOLERANCE:g})" if high_flat else "is falling")
-            + "; extend the band upwards",
-            {"distance": high.distance, "trend": high.trend, "frequency_hz": high.frequency_hz},
+            code, "blocking",  # type: ignore[arg-type]
+            f"the {'DC' if side == 'low' else 'top'} end of the band is not settled: {reason}",
+            {"frequency_hz": where.frequency_hz, "distance": where.distance,
+             "trend": where.trend,
+             "share": judgement.share if judgement is not None else None,
+             "slope": judgement.slope if judgement is not None else None,
+             "spread": judgement.spread if judgement is not None else None},
         ))
     if count.max_phase_step_deg > opts.phase_step_limit_deg:
         found.append(Diagnostic(
@@ -166,17 +191,24 @@ def analyse(request: CheckRequest) -> Analysis:
             f"Y of the circuit is singular at {dropped} frequencies; NDF was left undefined there",
             {"frequency_hz": f[~valid & ~state.singular_data][:20].tolist()},
         ))
-    ndf_count = None
+    ndf_count, ndf_edges = None, None
     device_counts: list[Encirclements | None] = []
+    device_edges: list[BandEdges | None] = []
     if valid.sum() >= 3:
-        ndf_count = count_encirclements(f[valid], loop.ndf[valid])
+        ndf_count, ndf_edges = counted(f[valid], loop.ndf[valid], request)
         fk = loop.return_difference[valid]
         for k in range(fk.shape[1]):
             ok = np.isfinite(fk[:, k]) & (np.abs(fk[:, k]) > 0)
-            device_counts.append(count_encirclements(f[valid][ok], fk[ok, k])
-                                 if ok.sum() >= 3 else None)
+            if ok.sum() >= 3:
+                count, edges = counted(f[valid][ok], fk[ok, k], request)
+                device_counts.append(count)
+                device_edges.append(edges)
+            else:
+                device_counts.append(None)
+                device_edges.append(None)
     else:
         device_counts = [None] * len(request.devices)
+        device_edges = [None] * len(request.devices)
     node_result = nodes.node_analysis(f, z_on)
     return Analysis(request, state, loop, valid, ndf_count, device_counts, node_result,
-                    diagnostics, z_on.values)
+                    diagnostics, z_on.values, ndf_edges, tuple(device_edges))

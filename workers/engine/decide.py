@@ -1,11 +1,16 @@
-"""From an analysis to the verdict, by consensus of the methods.
+"""From an analysis to the verdict, by consensus of the methods and by what the samples prove.
 
 The count is the encirclement count on the refined contour when the rational model validated
-(``refine``), else on the samples. ``unstable`` needs a trusted count above zero; ``stable`` needs
-a trusted count of zero, no right-half-plane zero in the validated model, and no sharp Kurokawa
-point that neither explains. When the model's right-half-plane zeros and the refined count
-differ, the verdict is ``indeterminate`` with both numbers. Everything else that blocks makes it
-``indeterminate`` too. A count that cannot be trusted never yields ``stable``.
+(``refined_check``), else on the samples, closed at the band edges by their physics (``edges``).
+It is *complete* when both edges are settled, no phase step is too large, the validated model's
+right-half-plane zeros in the band agree with it, and nothing else blocks; a complete count is
+the verdict: ``stable`` at 0 (with no sharp Kurokawa point left unexplained), ``unstable``
+above. An incomplete count never yields ``stable``. But an oscillation found inside the band is
+real whatever lies outside it: a right-half-plane zero of the validated model inside the band
+that the samples pin down (``pinning``) makes the verdict ``unstable`` even when an edge is open,
+with ``unstable_count`` the number so found and ``count_complete`` false. Otherwise the verdict
+is ``indeterminate``. Every verdict lists the modes found; one that is not final says what to
+sweep next (``next_sweep``).
 """
 
 from __future__ import annotations
@@ -15,9 +20,13 @@ from typing import Any
 import numpy as np
 
 from workers.engine import modes as mode_estimates
-from workers.engine.check import Analysis, count_trusted
-from workers.engine.encirclement import Encirclements
+from workers.engine.check import Analysis, BandEdges, count_trusted
+from workers.engine.edges import EdgeJudgement
+from workers.engine.identify import zero_count
+from workers.engine.next_sweep import next_sweep
+from workers.engine.refined_check import RefinedCheck
 from workers.engine.verdict import (
+    Assumption,
     CheckVerdict,
     DeviceReport,
     Diagnostic,
@@ -42,12 +51,18 @@ def ndf_report(analysis: Analysis, trusted: bool) -> NdfReport | None:
     c = analysis.ndf_count
     if c is None:
         return None
+    edges = analysis.ndf_edges
 
-    def edge(e: Any) -> EdgeReport:
+    def edge(e: Any, judged: EdgeJudgement | None) -> EdgeReport:
+        if judged is None:
+            return EdgeReport(e.frequency_hz, e.value.real, e.value.imag, e.distance, e.off_axis,
+                              e.drift, e.trend)
         return EdgeReport(e.frequency_hz, e.value.real, e.value.imag, e.distance, e.off_axis,
-                          e.drift, e.trend)
+                          e.drift, e.trend, judged.settled, judged.basis, judged.share,
+                          judged.slope, judged.spread, judged.reason)
 
-    return NdfReport(c.clockwise, c.residual, edge(c.low), edge(c.high), c.max_phase_step_deg,
+    return NdfReport(c.clockwise, c.residual, edge(c.low, edges.low if edges else None),
+                     edge(c.high, edges.high if edges else None), c.max_phase_step_deg,
                      c.max_phase_step_at_hz, c.min_abs, c.min_abs_at_hz, trusted)
 
 
@@ -60,14 +75,29 @@ def device_reports(analysis: Analysis) -> list[DeviceReport]:
         finite = np.isfinite(magnitude)
         i = int(np.nanargmin(np.where(finite, magnitude, np.nan))) if finite.any() else 0
         count = analysis.device_counts[k] if k < len(analysis.device_counts) else None
-        closed = count is not None and not count_trusted(count, analysis.request)
+        edges = analysis.device_edges[k] if k < len(analysis.device_edges) else None
+        blockers = count_trusted(count, analysis.request, edges) if count is not None else None
+        if count is None:
+            note = "fewer than three frequencies have a defined return difference"
+        elif blockers:
+            note = "its count cannot stand for the whole axis: " + "; ".join(
+                _device_blocker(d) for d in blockers)
+        else:
+            note = None
         reports.append(DeviceReport(
             name=device.name, order=k + 1,
-            encirclements_clockwise=count.clockwise if closed and count else None,
+            encirclements_clockwise=count.clockwise if count is not None and not blockers
+            else None,
             min_abs_return_difference=float(magnitude[i]) if finite.any() else float("nan"),
             min_at_hz=float(f[i]) if f.size else float("nan"),
+            fmax_hz=device.fmax_hz, count_note=note,
         ))
     return reports
+
+
+def _device_blocker(d: Diagnostic) -> str:
+    """A count diagnostic said of a return difference instead of NDF."""
+    return d.message.replace("NDF", "F_k")
 
 
 def node_reports(analysis: Analysis) -> list[NodeReport]:
@@ -204,66 +234,93 @@ def _method_reports(analysis: Analysis, count: int | None, model_method: MethodR
     return methods
 
 
-def decide(analysis: Analysis, two_port: dict[str, Any] | None,
-           refinement: dict[str, Any] | None = None,
-           model_modes: list[Mode] | None = None,
-           extra: list[Diagnostic] | None = None,
-           model_method: MethodReport | None = None,
-           refined_count: Encirclements | None = None,
-           model_zeros_rad_s: np.ndarray | None = None) -> CheckVerdict:
-    """The verdict of one check by consensus (module docstring).
+def _assumptions(edges: BandEdges | None) -> list[Assumption]:
+    """What a complete count rests on beyond the samples: the edge rules used."""
+    if edges is None:
+        return []
+    found = []
+    if edges.low.basis == "dc_asymptote":
+        found.append(Assumption(
+            "dc_asymptote", f"{edges.low.reason}; assumes no natural frequency below the band "
+            "shows in the lowest octave by less than the asymptote test's tolerance"))
+    if edges.high.basis == "share_decay":
+        found.append(Assumption(
+            "top_share_decay", f"{edges.high.reason}; assumes nothing above the band lifts the "
+            "devices' share back to 1"))
+    if edges.high.basis == "fmax_statement":
+        found.append(Assumption(
+            "no_gain_above_fmax", f"{edges.high.reason}; as stated by the flow, a device without "
+            "power gain cannot sustain an oscillation (common practice)"))
+    return found
 
-    ``refined_count``: the count on the contour refined with the validated model (replaces the
-    samples' count); ``model_method``: what the model's right-half-plane zeros say;
-    ``model_zeros_rad_s``: all the model's trusted zeros (to explain Kurokawa points).
-    """
+
+def _count_diagnostics(analysis: Analysis, count: Any) -> list[Diagnostic]:
+    """Why the count cannot stand (blocking), and what it says about the edges (info)."""
+    request = analysis.request
+    if count is None:
+        return [Diagnostic("singular_points", "blocking",
+                           "fewer than three frequencies have a defined NDF")]
+    found = count_trusted(count, request, analysis.ndf_edges)
+    if count.min_abs < MARGINAL_ABS:
+        found.append(Diagnostic(
+            "marginal_response", "warning",
+            f"|NDF| falls to {count.min_abs:.3g} at {count.min_abs_at_hz:.6g} Hz: a natural "
+            "frequency lies very close to the jω axis",
+            {"min_abs": count.min_abs, "at_hz": count.min_abs_at_hz},
+        ))
+    top = count.high.value
+    if abs(top - 1) > request.options.closure_tolerance and not found:
+        found.append(Diagnostic(
+            "asymptote_not_unity", "info",
+            f"NDF is {top.real:.4g}{top.imag:+.2g}j, not yet 1, at the top of the band",
+        ))
+    return found
+
+
+def decide(analysis: Analysis, two_port: dict[str, Any] | None,
+           refined: RefinedCheck | None = None,
+           extra: list[Diagnostic] | None = None) -> CheckVerdict:
+    """The verdict of one check (module docstring). ``refined``: what the rational model adds
+    (None when ``options.refine`` is false)."""
     request = analysis.request
     diagnostics = list(analysis.diagnostics) + list(extra or [])
-    count = refined_count if refined_count is not None else analysis.ndf_count
-    blocking_count: list[Diagnostic] = []
-    if count is None:
-        blocking_count.append(Diagnostic(
-            "singular_points", "blocking", "fewer than three frequencies have a defined NDF"))
-    else:
-        blocking_count = count_trusted(count, request)
-        if count.min_abs < MARGINAL_ABS:
-            diagnostics.append(Diagnostic(
-                "marginal_response", "warning",
-                f"|NDF| falls to {count.min_abs:.3g} at {count.min_abs_at_hz:.6g} Hz: a natural "
-                "frequency lies very close to the jω axis",
-                {"min_abs": count.min_abs, "at_hz": count.min_abs_at_hz},
-            ))
-        top = count.high.value
-        if abs(top - 1) > request.options.closure_tolerance and not blocking_count:
-            diagnostics.append(Diagnostic(
-                "asymptote_not_unity", "info",
-                f"NDF settles to {top.real:.4g}{top.imag:+.2g}j, not 1, at the top of the band",
-            ))
-    diagnostics += blocking_count
-    trusted = not blocking_count
-    unstable_count = count.clockwise if (trusted and count is not None) else None
-    if unstable_count is not None:
-        diagnostics += unexplained_kurokawa(analysis, unstable_count, model_zeros_rad_s)
-    model_count = model_method.unstable_count if model_method is not None else None
-    if unstable_count is not None and model_count is not None and model_count != unstable_count:
+    if refined is not None:
+        diagnostics += refined.diagnostics
+    count = refined.refinement.count if refined is not None and refined.refinement is not None \
+        else analysis.ndf_count
+    count_blocks = _count_diagnostics(analysis, count)
+    diagnostics += count_blocks
+    trusted = not any(d.severity == "blocking" for d in count_blocks)
+    full_count = count.clockwise if (trusted and count is not None) else None
+    if full_count is not None:
+        diagnostics += unexplained_kurokawa(analysis, full_count,
+                                            None if refined is None else refined.zeros_rad_s)
+    model_method = None if refined is None else refined.method
+    model_count = None if model_method is None else model_method.unstable_count
+    if full_count is not None and model_count is not None and model_count != full_count:
         diagnostics.append(Diagnostic(
             "model_count_disagrees", "blocking",
-            f"the refined encirclement count is {unstable_count} but the validated model has "
+            f"the refined encirclement count is {full_count} but the validated model has "
             f"{model_count} right-half-plane zero(s) in the band",
-            {"encirclement_count": unstable_count, "model_count": model_count},
+            {"encirclement_count": full_count, "model_count": model_count},
         ))
-    methods = _method_reports(analysis, unstable_count, model_method, diagnostics)
-    blocked = any(d.severity == "blocking" for d in diagnostics)
-    if blocked or unstable_count is None:
-        name, unstable_count, found_modes = "indeterminate", None, []
-    elif unstable_count > 0:
-        name = "unstable"
-        found_modes = model_modes if model_modes else sample_modes(analysis, unstable_count)
+    methods = _method_reports(analysis, full_count, model_method, diagnostics)
+    complete = full_count is not None and not any(d.severity == "blocking" for d in diagnostics)
+    pinned = np.zeros(0, dtype=complex) if refined is None else refined.pinned_zeros_rad_s
+    found_modes = list(refined.modes) if refined is not None else []
+    if complete and full_count:
+        name, unstable_count = "unstable", full_count
+        if not found_modes:
+            found_modes = sample_modes(analysis, full_count)
+    elif complete:
+        name, unstable_count = "stable", 0
+    elif pinned.size:
+        name, unstable_count = "unstable", zero_count(pinned)
     else:
-        name, found_modes = "stable", []
+        name, unstable_count = "indeterminate", None
     f = request.frequency_hz
     return CheckVerdict(
-        verdict=name,
+        verdict=name,  # type: ignore[arg-type]
         unstable_count=unstable_count,
         modes=found_modes,
         ndf=ndf_report(analysis, trusted),
@@ -275,5 +332,9 @@ def decide(analysis: Analysis, two_port: dict[str, Any] | None,
         band_hz=(float(f[0]), float(f[-1])),
         n_points=int(f.size),
         n_ports=request.n_ports,
-        refinement=refinement,
+        refinement=None if refined is None else refined.report,
+        count_complete=complete,
+        assumptions=_assumptions(analysis.ndf_edges) if complete else [],
+        next_sweep=None if complete or analysis.ndf_count is None
+        else next_sweep(analysis, refined, diagnostics),
     )

@@ -85,19 +85,26 @@ def _edge(frequency_hz: np.ndarray, h: np.ndarray, phase: np.ndarray, at: int, t
 
 
 def count_encirclements(frequency_hz: np.ndarray, h: np.ndarray,
-                        phase: np.ndarray | None = None) -> Encirclements:
+                        phase: np.ndarray | None = None,
+                        low_closure_rad: float | None = None,
+                        high_closure_rad: float | None = None) -> Encirclements:
     """Clockwise encirclements of the origin by h(jω) over the whole axis, from samples on f ≥ 0.
 
     ``h`` must be finite at every sample (drop singular points before calling). ``phase``: the
-    caller's ``np.unwrap(np.angle(h))``, when it has it already.
+    caller's ``np.unwrap(np.angle(h))``, when it has it already. ``low_closure_rad``: the change
+    of arg h from DC to the lowest sample along the path a settled DC edge assumes;
+    ``high_closure_rad``: from the top sample to ∞ (``workers.engine.edges``). An edge without
+    a closure is snapped to its nearest multiple of π (a count that cannot be trusted).
     """
     if phase is None:
         phase = np.unwrap(np.angle(h))
     steps = np.abs(np.diff(phase))
     i_step = int(np.argmax(steps)) if steps.size else 0
-    half_turns = (phase[-1] - phase[0]) / np.pi
-    # both ends lie (nearly) on the real axis: snap each to its nearest multiple of π
-    closed = np.round(phase[-1] / np.pi) - np.round(phase[0] / np.pi)
+    start = phase[0] - low_closure_rad if low_closure_rad is not None else phase[0]
+    end = phase[-1] + high_closure_rad if high_closure_rad is not None else phase[-1]
+    half_turns = (end - start) / np.pi
+    # closed ends lie on the real axis by construction; open ones are snapped to it
+    closed = np.round(end / np.pi) - np.round(start / np.pi)
     magnitude = np.abs(h)
     i_min = int(np.argmin(magnitude))
     return Encirclements(

@@ -1,19 +1,24 @@
-"""Identification: unstable natural frequencies from the NDF model, where they live, what drives
+"""Identification: unstable natural frequencies from the NDF model, where they show, what drives
 them.
 
 * Modes: the right-half-plane zeros of the validated NDF model are the unstable natural
   frequencies s = σ + jω (the all-off circuit is passive, so NDF has no right-half-plane poles).
-  Only zeros inside the band are trusted (|ω| up to the top sample); a complex pair counts 2.
-* Participation: every driving-point impedance Z_kk = (Y⁻¹)_kk has the circuit's natural
-  frequencies as poles, so with the model's zeros as known poles, Z_kk(s) ≈ Σ r_ki/(s − p_i) +
-  c_k + d_k·s is linear in the residues. One least-squares solve fits every node at once (the
-  residue step of vector fitting: B. Gustavsen, A. Semlyen, "Rational approximation of frequency
-  domain responses by vector fitting", IEEE Trans. Power Delivery 14(3), 1999). Nodes are ranked
-  by |r_k| at the mode (the mode's voltage shows most where the residue is largest).
-* Devices: the successive return differences multiply to NDF (NDF = Π F_k); the device whose F_k
-  model carries the right-half-plane zero is the one whose switching-on creates the mode.
-* Hint: at the strongest node, the shunt conductance G = −Re Y_k(jω_mode) lifts the node's
-  driving-point conductance to zero at the mode frequency — a first-order starting point
+  Only zeros inside the band are trusted (|s| up to the top sample); a complex pair counts 2.
+* Residues: every entry of Z = Y_on⁻¹ has the circuit's natural frequencies as poles, so with the
+  model's zeros as known poles, Z_ij(s) ≈ Σ r_ij,p/(s − p) + c_ij + d_ij·s is linear in the
+  residues; one least-squares solve fits many entries at once (the residue step of vector
+  fitting: B. Gustavsen, A. Semlyen, "Rational approximation of frequency domain responses by
+  vector fitting", IEEE Trans. Power Delivery 14(3), 1999). At a simple natural frequency s₀ with
+  Y_on(s₀)v = 0 and wᵀY_on(s₀) = 0 the residue matrix is rank one, R = v·wᵀ / (wᵀY_on′(s₀)v)
+  (common practice for a simple zero of det Y), so:
+  - the mode's voltage shape is a column of R: |v_k| ∝ |R_ka|; nodes are ranked by it;
+  - the diagonal residue R_kk ∝ v_k·w_k is the node's leverage: how far a shunt there moves s₀;
+  - a device's participation is |gm_k ∂s₀/∂gm_k| = |gm_k·v_kᵀ R u_k| (first-order perturbation
+    of a zero of det(Y_off + Σ gm_k u_k v_kᵀ): ∂s₀/∂gm_k = −(wᵀu_k)(v_kᵀv)/(wᵀY′v); e.g.
+    J. H. Wilkinson, The Algebraic Eigenvalue Problem, 1965, ch. 2, for the linear case), so a
+    mode carried equally by two devices (the odd mode of a pair) names both.
+* Hint: at the node of largest leverage, the shunt conductance G = −Re Y_k(jω_mode) lifts the
+  node's driving-point conductance to zero at the mode frequency — a first-order starting point
   (Kurokawa's condition read backwards), to be re-checked with the part in the circuit.
 """
 
@@ -23,14 +28,12 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from workers.engine.models import MAX_FIT_SAMPLES, RationalModel, evenly_spread, fit_single
+from workers.engine.models import MAX_FIT_SAMPLES, RationalModel, evenly_spread
 from workers.engine.verdict import Mode, StabilisationHint
 
 NODE_FIT_LIMIT = 1e-3  # largest relative error of the partial-fraction fit of a node's Z_kk
 REAL_ZERO = 1e-9       # |Im z| below this × |z|: a real zero (counts 1)
 NEAR_BAND = 100.0      # factor beyond a band edge within which a model zero denies closure
-CARRY_SPAN = 0.25      # a partial circuit's mode within this fraction of |s| is the same mode
-LOCAL_SAMPLES = 30     # samples around a mode used to fit the return differences there
 
 
 def _rhp_upper(model: RationalModel) -> np.ndarray:
@@ -96,8 +99,9 @@ class NodeFit:
 
 def fit_nodes(frequency_hz: np.ndarray, impedance: np.ndarray, poles_rad_s: np.ndarray,
               scale_rad_s: float) -> NodeFit:
-    """All nodes' partial-fraction fits in one least-squares solve (module docstring), on at most
-    MAX_FIT_SAMPLES evenly spread samples."""
+    """Partial-fraction fits of every column of ``impedance`` (F, M) — the nodes' Z_kk, or any
+    entries of Z — in one least-squares solve (module docstring), on at most MAX_FIT_SAMPLES
+    evenly spread samples."""
     rows = np.nonzero(np.all(np.isfinite(impedance), axis=1))[0]
     if rows.size > MAX_FIT_SAMPLES:
         rows = rows[evenly_spread(rows.size, MAX_FIT_SAMPLES)]
@@ -123,43 +127,53 @@ def fit_nodes(frequency_hz: np.ndarray, impedance: np.ndarray, poles_rad_s: np.n
                    coefficients[n], coefficients[n + 1], scale_rad_s, error)
 
 
-def _near(candidates: np.ndarray, target: complex, span: float) -> bool:
-    """Some candidate within ``span`` × |target| of ``target``."""
-    return bool(candidates.size and np.any(np.abs(candidates - target) <= span * abs(target)))
+@dataclass(frozen=True)
+class ModeShape:
+    """Where one mode shows and what drives it (module docstring), all normalised to max 1."""
+
+    voltage: np.ndarray          # (N,) |v_k|
+    leverage: np.ndarray         # (N,) |R_kk|
+    participation: np.ndarray    # (D,) |gm_k ∂s/∂gm_k|
+    fit_error: float             # relative error of the column/row fit
 
 
-def carrying_devices(frequency_hz: np.ndarray, return_difference: np.ndarray,
-                     zeros_rad_s: np.ndarray, noise_floor: float) -> list[list[int]]:
-    """For each unstable zero, the device whose switching-on brings it into the right half-plane.
+DEVICE_SHARE = 0.1  # devices with at least this share of the largest participation are named
 
-    With D_k = F_1·…·F_k (NDF with devices 1..k on), the right-half-plane zeros of D_k are the
-    unstable natural frequencies of that partial circuit, and F_k = D_k / D_(k−1). The device
-    that carries a mode is the first k whose D_k has a right-half-plane zero near it (within
-    CARRY_SPAN of |s|: switching devices on moves a mode); D_D = NDF has it by definition, so
-    only D_1 … D_(D−1) are fitted, locally, on the LOCAL_SAMPLES samples nearest the mode.
+
+def _normalised(values: np.ndarray) -> np.ndarray:
+    values = np.where(np.isfinite(values), np.abs(values), 0.0)
+    top = float(values.max()) if values.size and values.max() > 0 else 1.0
+    return values / top
+
+
+def mode_shape(frequency_hz: np.ndarray, z_on: np.ndarray, node_fit: NodeFit, zero: complex,
+               u: np.ndarray, v: np.ndarray, gains: np.ndarray) -> ModeShape:
+    """The voltage shape, leverage and device participation of the mode at ``zero`` (rad/s).
+
+    ``z_on`` (F, N, N): Z of the terminated circuit on; ``u``, ``v`` (N, D): the devices' output
+    and control vectors; ``gains`` (F, D): their transconductances on the samples.
     """
-    n_devices = return_difference.shape[1]
-    if n_devices <= 1:  # nothing to attribute: the only device (if any) carries every mode
-        return [[n_devices - 1] if n_devices else [] for _ in zeros_rad_s]
-    carriers: list[list[int]] = []
+    j = int(np.argmin(np.abs(node_fit.poles_rad_s - zero))) if node_fit.poles_rad_s.size else -1
+    n = z_on.shape[1]
+    if j < 0:
+        zeros = np.zeros(n)
+        return ModeShape(zeros, zeros, np.zeros(u.shape[1]), np.inf)
+    leverage = _normalised(node_fit.residues[j])
+    anchor = int(np.argmax(leverage))
+    entries = np.concatenate([z_on[:, :, anchor], z_on[:, anchor, :]], axis=1)  # (F, 2N)
+    fit = fit_nodes(frequency_hz, entries, node_fit.poles_rad_s, node_fit.scale_rad_s)
+    k = int(np.argmin(np.abs(fit.poles_rad_s - zero)))
+    column, row = fit.residues[k, :n], fit.residues[k, n:]
+    pivot = column[anchor] if column[anchor] != 0 else 1.0
     f = np.asarray(frequency_hz, dtype=float)
-    partial = np.cumprod(return_difference, axis=1)
-    for z in zeros_rad_s:
-        f_mode = abs(z.imag) / (2 * np.pi)
-        window = np.sort(np.argsort(np.abs(f - f_mode), kind="stable")[:LOCAL_SAMPLES])
-        carrier = n_devices - 1
-        for k in range(n_devices - 1):
-            dk = partial[window, k]
-            ok = np.isfinite(dk)
-            if ok.sum() < 8:
-                continue
-            fit, _ = fit_single(f[window][ok], dk[ok], noise_floor)
-            roots = fit.roots() * (2 * np.pi * f[window][ok][-1])
-            if _near(roots[roots.real > 0], z, CARRY_SPAN):
-                carrier = k
-                break
-        carriers.append([carrier] if n_devices else [])
-    return carriers
+    at = int(np.argmin(np.abs(f - abs(zero.imag) / (2 * np.pi))))
+    with np.errstate(invalid="ignore", over="ignore"):
+        sensitivity = (v.T @ column) * (row @ u) / pivot        # v_kᵀ R u_k per device
+        participation = np.abs(gains[at]) * np.abs(sensitivity) if gains.size else \
+            np.zeros(0)
+    finite_error = fit.error[np.isfinite(fit.error)]
+    return ModeShape(_normalised(column), leverage, _normalised(participation),
+                     float(finite_error.max()) if finite_error.size else np.inf)
 
 
 def stabilisation_hint(node_name: str, frequency_hz: float, admittance: complex
@@ -171,31 +185,28 @@ def stabilisation_hint(node_name: str, frequency_hz: float, admittance: complex
     return StabilisationHint(node_name, float(frequency_hz), -re, -1.0 / re)
 
 
-def identify_modes(zeros_rad_s: np.ndarray, node_fit: NodeFit, port_names: list[str],
-                   device_names: list[str], carriers: list[list[int]]) -> list[Mode]:
-    """One Mode per unstable zero (a pair once), nodes ranked by |residue of Z_kk|."""
-    modes = []
-    for i, z in enumerate(zeros_rad_s):
-        if node_fit.poles_rad_s.size:
-            j = int(np.argmin(np.abs(node_fit.poles_rad_s - z)))
-            weights = np.abs(node_fit.residues[j])
-        else:
-            weights = np.zeros(len(port_names))
-        weights = np.where(np.isfinite(weights), weights, 0.0)
-        top = weights.max() if weights.size and weights.max() > 0 else 1.0
-        weights = weights / top
-        order = np.argsort(-weights, kind="stable")
-        f_mode = float(abs(z.imag) / (2 * np.pi))
-        z_node = node_fit.impedance(np.array([1j * abs(z.imag)]))[0, order[0]]
-        with np.errstate(divide="ignore", invalid="ignore"):
-            y_node = 1.0 / z_node
-        modes.append(Mode(
-            frequency_hz=f_mode,
-            growth_rate_per_s=float(z.real),
-            nodes=[port_names[k] for k in order],
-            devices=[device_names[k] for k in carriers[i]] if carriers[i] else list(device_names),
-            node_participation=[float(weights[k]) for k in order],
-            estimated_by="rational_model",
-            hint=stabilisation_hint(port_names[int(order[0])], f_mode, complex(y_node)),
-        ))
-    return modes
+def identify_mode(zero: complex, shape: ModeShape, node_fit: NodeFit, port_names: list[str],
+                  device_names: list[str], pinned: bool) -> Mode:
+    """One Mode (a pair once): nodes ranked by voltage shape, devices by participation, the
+    hint at the node of largest leverage."""
+    order = np.argsort(-shape.voltage, kind="stable")
+    f_mode = float(abs(zero.imag) / (2 * np.pi))
+    strongest = int(np.argmax(shape.leverage)) if shape.leverage.size else 0
+    with np.errstate(divide="ignore", invalid="ignore"):
+        y_node = 1.0 / node_fit.impedance(np.array([1j * abs(zero.imag)]))[0, strongest]
+    carriers = np.argsort(-shape.participation, kind="stable")
+    named = [int(k) for k in carriers if shape.participation[k] >= DEVICE_SHARE]
+    if not named:
+        named = [int(k) for k in carriers]
+    return Mode(
+        frequency_hz=f_mode,
+        growth_rate_per_s=float(zero.real),
+        nodes=[port_names[k] for k in order],
+        devices=[device_names[k] for k in named],
+        node_participation=[float(shape.voltage[k]) for k in order],
+        estimated_by="rational_model",
+        hint=stabilisation_hint(port_names[strongest], f_mode, complex(y_node)),
+        pinned=pinned,
+        node_leverage=[float(shape.leverage[k]) for k in order],
+        device_participation=[float(shape.participation[k]) for k in named],
+    )

@@ -25,10 +25,12 @@ from functools import cached_property
 import numpy as np
 
 from workers.engine.aaa import AAAFit, aaa
+from workers.engine.refine_report import ModelSummary
 
 MAX_FIT_SAMPLES = 2001   # larger sets are thinned evenly for fitting (all samples validate)
 MAX_TERMS = 50           # largest barycentric order (bounds the cost of every fit)
 TIGHT_RTOL = 1e-9        # AAA tolerance for data rational to (text-file) rounding level
+EXACT_RTOL = 1e-13       # ... tried when a TIGHT_RTOL fit misses the samples it did not see
 NOISE_MARGIN = 4.0       # tolerance of a fit given a known noise floor
 PLATEAU_MARGIN = 1.5     # refit tolerance = PLATEAU_MARGIN × the stalled fit error
 EXACT_LEVEL = 1e-8       # leave-out error (of max|H|) of data rational to rounding level
@@ -196,17 +198,10 @@ class RationalModel:
         """The model on the jω axis at ``frequency_hz``."""
         return self.at_s(2j * np.pi * np.asarray(frequency_hz, dtype=float))
 
-    def summary(self) -> dict[str, float | int | bool]:
-        return {
-            "terms": self.terms,
-            "fit_error": self.fit_error,
-            "leave_out_error": self.leave_out_error,
-            "local_leave_out_error": self.local_error,
-            "noise_floor": self.noise_floor,
-            "validated": self.validated,
-            "doublets_removed": self.doublets_removed,
-            "unmatched_zeros": self.unmatched_zeros,
-        }
+    def summary(self) -> ModelSummary:
+        return ModelSummary(self.terms, self.fit_error, self.leave_out_error, self.local_error,
+                            self.noise_floor, self.validated, self.doublets_removed,
+                            self.unmatched_zeros)
 
 
 def fit_response(frequency_hz: np.ndarray, h: np.ndarray) -> RationalModel:
@@ -238,9 +233,17 @@ def fit_response(frequency_hz: np.ndarray, h: np.ndarray) -> RationalModel:
         rtol, noise = PLATEAU_MARGIN * plateau, plateau / 3.0
         even = refit(even, rtol)
     missed = np.abs(even.fit(s[unseen[0]]) - h[unseen[0]])
+    if rtol == TIGHT_RTOL and float(np.max(missed)) / level > EXACT_LEVEL:
+        # converged on its samples but not between them: features narrower than the spacing
+        # need more terms than TIGHT_RTOL asks for; exact data then converge further
+        tighter = aaa_fit(s[train[0]], h[train[0]], EXACT_RTOL)
+        missed_tighter = np.abs(tighter.fit(s[unseen[0]]) - h[unseen[0]])
+        if tighter.converged and float(np.max(missed_tighter)) < 0.01 * float(np.max(missed)):
+            even, missed, rtol = tighter, missed_tighter, EXACT_RTOL
+            noise = float(even.fit.errors[-1]) / level
     sampled = np.abs(h[unseen[0]])
     odd: HalfFit | None = None
-    if not (rtol == TIGHT_RTOL and float(np.max(missed)) / level <= EXACT_LEVEL):
+    if not (rtol <= TIGHT_RTOL and float(np.max(missed)) / level <= EXACT_LEVEL):
         odd = aaa_fit(s[train[1]], h[train[1]], rtol)
         missed = np.concatenate([missed, np.abs(odd.fit(s[unseen[1]])
                                                 - h[unseen[1]])])

@@ -40,6 +40,8 @@ class Device:
     output+ terminal and leaves by output−, so the port-Y stamp is
     Y[o+,c+] += gm, Y[o+,c−] −= gm, Y[o−,c+] −= gm, Y[o−,c−] += gm (a rank-one term u·vᵀ·gm).
     ``gm_s`` has shape (F,) complex (a scalar is broadcast by the request builder).
+    ``fmax_hz``: the flow's statement that above this frequency the device has no power gain
+    (Mason's unilateral gain U < 1); None when not stated (``workers.engine.edges``).
     """
 
     name: str
@@ -47,6 +49,7 @@ class Device:
     control: tuple[int | None, int | None]
     output: tuple[int | None, int | None]
     delay_s: float = 0.0
+    fmax_hz: float | None = None
 
 
 @dataclass(frozen=True)

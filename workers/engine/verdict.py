@@ -7,7 +7,7 @@ DEVELOPERS.md ("Verdict format"). Fields are only ever added within a format ver
 from __future__ import annotations
 
 import math
-from dataclasses import asdict, dataclass, field
+from dataclasses import asdict, dataclass, field, replace
 from typing import Any, Literal
 
 VERDICT_FORMAT = "ballast.verdict/1"
@@ -30,6 +30,14 @@ DiagnosticCode = Literal[
     "model_count_disagrees",    # model's right-half-plane zeros ≠ refined encirclement count
     "not_rational",             # the data is not rational over the band (delay): model not trusted
     "refinement_added_points",  # the refinement evaluated the model between samples
+    "mode_not_pinned",          # a model zero in the right half-plane that the samples cannot
+                                # tell from its mirror image (more points needed around it)
+]
+
+AssumptionCode = Literal[
+    "dc_asymptote",             # the DC end closed along NDF's low-frequency asymptote
+    "top_share_decay",          # the top end closed by the devices' falling share |NDF − 1|
+    "no_gain_above_fmax",       # the top end closed on the flow's f_max statement
 ]
 
 
@@ -68,7 +76,15 @@ class StabilisationHint:
 
 @dataclass(frozen=True)
 class Mode:
-    """One unstable natural frequency (a complex pair counts once here and twice in the count)."""
+    """One unstable natural frequency (a complex pair counts once here and twice in the count).
+
+    ``nodes`` are ranked by the mode's voltage shape |v_k| (``node_participation``, largest 1);
+    ``node_leverage`` (same order) is the diagonal residue |v_k·w_k| of Z_kk, how far a shunt at
+    that node moves the mode; ``devices`` are the devices whose transconductance the mode depends
+    on (``device_participation``, |gm_k ∂s/∂gm_k| relative to the largest), most first.
+    ``pinned``: the samples themselves place it in the right half-plane (``pinning``), so it is
+    counted; an unpinned one is reported only.
+    """
 
     frequency_hz: float
     growth_rate_per_s: float | None
@@ -77,10 +93,35 @@ class Mode:
     node_participation: list[float]
     estimated_by: str
     hint: StabilisationHint | None = None
+    pinned: bool = True
+    node_leverage: list[float] | None = None
+    device_participation: list[float] | None = None
+
+
+@dataclass(frozen=True)
+class Assumption:
+    """Something the verdict rests on that the samples alone do not show."""
+
+    code: AssumptionCode
+    message: str
+
+
+@dataclass(frozen=True)
+class NextSweep:
+    """What to sample next for a final verdict: the band that would settle the open edges
+    (a low end of 0 means "include DC"), extra points where the samples are too sparse, why."""
+
+    band_hz: tuple[float, float]
+    frequencies_hz: list[float]
+    reason: str
 
 
 @dataclass(frozen=True)
 class EdgeReport:
+    """One band edge of NDF: its value, the older closure measures (distance, drift, trend) and
+    the judgement of ``workers.engine.edges`` (settled, on what basis, the share |NDF − 1|, the
+    top's fitted slope, the DC end's asymptote spread, and why)."""
+
     frequency_hz: float
     ndf_re: float
     ndf_im: float
@@ -88,6 +129,12 @@ class EdgeReport:
     off_axis: float
     drift: float
     trend: float | None = None
+    settled: bool | None = None
+    basis: str | None = None
+    share: float | None = None
+    slope: float | None = None
+    spread: float | None = None
+    reason: str | None = None
 
 
 @dataclass(frozen=True)
@@ -110,6 +157,8 @@ class DeviceReport:
     encirclements_clockwise: int | None
     min_abs_return_difference: float
     min_at_hz: float
+    fmax_hz: float | None = None
+    count_note: str | None = None  # why encirclements_clockwise is null
 
 
 @dataclass(frozen=True)
@@ -153,9 +202,18 @@ class CheckVerdict:
     band_hz: tuple[float, float]
     n_points: int
     n_ports: int
-    refinement: dict[str, Any] | None = None
+    refinement: Any = None  # RefinementReport (workers.engine.refine_report) or None
+    count_complete: bool = False
+    assumptions: list[Assumption] = field(default_factory=list)
+    next_sweep: NextSweep | None = None
 
     def to_dict(self) -> dict[str, Any]:
-        body = asdict(self)
+        refinement = self.refinement
+        body = asdict(replace(self, refinement=None))
         body["band_hz"] = list(self.band_hz)
+        body["refinement"] = None if refinement is None else refinement.to_dict()
+        if self.next_sweep is None:
+            del body["next_sweep"]
+        else:
+            body["next_sweep"]["band_hz"] = list(self.next_sweep.band_hz)
         return {"format": VERDICT_FORMAT, **_clean(body)}
