@@ -3,8 +3,8 @@
 The verdict gives each device's clockwise encirclements of its return difference F_k only when
 the count on the samples can stand for the whole axis: the engine's ``count_trusted`` (the same
 rules as for NDF: both band edges settled, no phase step beyond the limit, a whole number of
-turns). The verdict does not say which rule failed, so the report asks the engine's analysis
-again and says it per device.
+turns). The verdict's ``count_note`` says it in the engine's words; the report asks the engine's
+analysis again to say it rule by rule, sampling problems first.
 """
 
 from __future__ import annotations
@@ -13,7 +13,7 @@ from collections.abc import Mapping
 from typing import Any
 
 from service.reports.units import format_hz, format_number
-from workers.engine.check import Analysis, count_trusted
+from workers.engine.check import Analysis, BandEdges, count_trusted
 from workers.engine.encirclement import Encirclements
 from workers.engine.request import CheckRequest
 from workers.engine.verdict import Diagnostic
@@ -30,22 +30,23 @@ def _doubt(diagnostic: Diagnostic, limit_deg: float) -> str:
                 f"{format_hz(d.get('at_hz'))} (limit {format_number(limit_deg, 3)}°): too few "
                 "samples there to count its turns")
     if code in ("band_low_open", "band_high_open"):
-        edge = "lowest" if code == "band_low_open" else "highest"
-        return (f"it has not settled at the {edge} frequency ({format_hz(d.get('frequency_hz'))}"
-                f"; distance {format_number(d.get('distance'), 3)} from its asymptote)")
+        return diagnostic.message.replace("NDF", "F_k")  # the edge rule's own reason
     if code == "count_not_integer":
         return (f"its phase change is {format_number(d.get('residual_half_turns'), 2)} "
                 "half-turns away from a whole number")
     return diagnostic.message  # a rule added to the engine later: its own words
 
 
-def count_note(count: Encirclements | None, request: CheckRequest) -> str | None:
-    """Why the count of one F_k is not given (None when it can be trusted)."""
+def count_note(count: Encirclements | None, request: CheckRequest,
+               edges: BandEdges | None = None) -> str | None:
+    """Why the count of one F_k is not given (None when it can be trusted); the sampling
+    problems first, then the band edges."""
     if count is None:
         return "F_k is finite and non-zero at fewer than three frequencies, so it has no count"
-    doubts = count_trusted(count, request)
+    doubts = count_trusted(count, request, edges)
     if not doubts:
         return None
+    doubts.sort(key=lambda d: d.code.startswith("band_"))
     return "; ".join(_doubt(d, request.options.phase_step_limit_deg) for d in doubts)
 
 
@@ -59,7 +60,8 @@ def device_notes(analysis: Analysis, verdict: Mapping[str, Any]) -> dict[str, st
             continue
         k = names.index(name)
         count = analysis.device_counts[k] if k < len(analysis.device_counts) else None
-        notes[name] = count_note(count, analysis.request) or MISSING_IN_VERDICT
+        edges = analysis.device_edges[k] if k < len(analysis.device_edges) else None
+        notes[name] = count_note(count, analysis.request, edges) or MISSING_IN_VERDICT
     return notes
 
 
