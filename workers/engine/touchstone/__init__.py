@@ -27,9 +27,10 @@ Source: Touchstone(R) File Format Specification Version 2.0, IBIS Open Forum, ra
 - "[Noise Data]" / Version 1.0 noise block: a frequency not larger than the previous one starts the
   two-port noise block. Noise parameters are read past and dropped.
 
-Modules: ``reader`` (entry point), ``text`` (comments, lines, regions), ``numbers`` (the vectorised
-number scanner), ``options`` (option line), ``version1``, ``version2`` (keywords), ``records``
-(record counts and matrix assembly).
+Modules: ``reader`` (entry point), ``text`` (comments, lines, regions), ``numbers`` (the
+vectorised number scanner), ``rounding`` (its correctly rounded values, exactly as ``float``),
+``scratch`` (reused buffers), ``options`` (option line), ``version1``, ``version2`` (keywords),
+``records`` (record counts and matrix assembly).
 """
 
 from __future__ import annotations

@@ -1,38 +1,23 @@
 """Vectorised reading of whitespace-separated Touchstone numbers (numpy over the raw bytes).
 
-Grammar (TS2 "General Rules": numbers may be integers or reals, with or without an exponent):
-``[+-](digits[.digits] | .digits)[(e|E)[+-]digits]``. Tokens the vectorised pass does not
-recognise are checked one by one with the same grammar (``NUMBER``) and ``float``.
+Grammar: ``[+-](digits[.digits] | .digits)[(e|E)[+-]digits]`` (integers and reals, with or
+without an exponent). Values are correctly rounded, exactly what ``float(token)`` gives: the
+digits and the exponent go to ``rounding``, and every token it cannot vouch for, or that the
+vectorised pass does not recognise, is checked one by one with ``NUMBER`` and read by ``float``.
 """
 
 from __future__ import annotations
 
 import re
-import threading
 
 import numpy as np
 
+from workers.engine.touchstone.rounding import decimal_values
+from workers.engine.touchstone.scratch import scratch_array, scratch_buffer
+
 NUMBER = re.compile(r"[+-]?(?:\d+\.?\d*|\.\d+)(?:[eE][+-]?\d+)?")
-_POW10 = np.array([10.0**k for k in range(309)])
+_MAX_MANTISSA_DIGITS = 19  # below 10^19 < 2^64: exact in uint64
 _MAX_TOKEN_WIDTH = 64
-_SCRATCH_LIMIT_BYTES = 256 * 1024 * 1024
-_scratch_buffers = threading.local()
-
-
-def scratch_buffer(name: str, size: int) -> np.ndarray:
-    """A per-thread uint8 buffer of ``size`` bytes, kept between calls.
-
-    Fresh memory is paid for in page faults on first touch, which dominated the scanner's time;
-    reusing the same buffers avoids that. Contents are garbage on entry.
-    """
-    buffers = _scratch_buffers.__dict__
-    buffer = buffers.get(name)
-    if buffer is None or buffer.size < size:
-        buffer = np.empty(max(size, 1), dtype=np.uint8)
-        if size <= _SCRATCH_LIMIT_BYTES:
-            buffers[name] = buffer
-    return buffer[:size]
-
 
 
 def scan_numbers(region: str, raw: np.ndarray) -> tuple[np.ndarray, np.ndarray, int]:
@@ -41,7 +26,8 @@ def scan_numbers(region: str, raw: np.ndarray) -> tuple[np.ndarray, np.ndarray, 
     ``raw`` is ``region`` as ASCII bytes (one byte per character). Returns (values, byte offset
     of each token, index of the first token that is not a number or -1). Grammar:
     ``[+-](digits[.digits] | .digits)[(e|E)[+-]digits]``. The mantissa digits are accumulated
-    column by column over a (width, tokens) byte grid, then scaled by 10**exponent. Positions
+    column by column (uint64) over a (width, tokens) byte grid and rounded with the decimal
+exponent by ``rounding.decimal_values``; the tokens it leaves uncertain go to ``float``. Positions
     and counts are kept in 8-bit integers (a token is at most 64 bytes here; longer ones take
     the slow path) and big temporaries live in reused scratch buffers.
     """
@@ -106,13 +92,27 @@ def scan_numbers(region: str, raw: np.ndarray) -> tuple[np.ndarray, np.ndarray, 
     in_mantissa = spare[:mantissa_end].view(bool)
     np.less_equal(column[:mantissa_end], e_pos, out=in_mantissa)
     in_mantissa &= is_digit[:mantissa_end]
+    usable = in_mantissa.sum(0, dtype=np.int16) <= _MAX_MANTISSA_DIGITS
     multiplier = np.multiply(in_mantissa.view(u8), u8(9), out=scratch[:mantissa_end])
     multiplier += u8(1)
     addend = np.multiply(digit_value[:mantissa_end], in_mantissa.view(u8), out=spare[:mantissa_end])
-    values = np.zeros(count)
-    for j in range(mantissa_end):
-        np.multiply(values, multiplier[j], out=values)
-        np.add(values, addend[j], out=values)
+    # two columns per step: m = (m*10^a + d1)*10^b + d2 = m*(10^a*10^b) + (d1*10^b + d2), both
+    # factors below 256 (a, b are 0 or 1), so the uint8 grid holds them (in the rows of is_dot
+    # and is_sign, no longer needed)
+    half = mantissa_end // 2
+    pair_multiplier = np.multiply(multiplier[0 : 2 * half : 2], multiplier[1 : 2 * half : 2],
+                                  out=is_dot.view(u8)[:half])
+    pair_addend = np.multiply(addend[0 : 2 * half : 2], multiplier[1 : 2 * half : 2],
+                              out=is_sign.view(u8)[:half])
+    pair_addend += addend[1 : 2 * half : 2]
+    mantissa = scratch_array("mantissa", count, np.uint64)  # wraps past 19 digits: ``usable``
+    mantissa[...] = 0
+    for j in range(half):
+        np.multiply(mantissa, pair_multiplier[j], out=mantissa)
+        np.add(mantissa, pair_addend[j], out=mantissa)
+    if mantissa_end % 2:
+        np.multiply(mantissa, multiplier[mantissa_end - 1], out=mantissa)
+        np.add(mantissa, addend[mantissa_end - 1], out=mantissa)
 
     bad |= n_e > 1
     bad |= n_dot > 1
@@ -127,19 +127,14 @@ def scan_numbers(region: str, raw: np.ndarray) -> tuple[np.ndarray, np.ndarray, 
         exponent_sign[with_e] = signed
         bad[with_e] |= broken
     bad |= n_sign != lead_sign.view(i8) + exponent_sign.view(i8)
-    magnitude = np.abs(exponent10)
-    bad |= magnitude > 308
-    np.minimum(magnitude, 308, out=magnitude)
-    scale = np.take(_POW10, magnitude, out=scratch_buffer("scale", 8 * count).view(np.float64))
-    negative_exponent = exponent10 < 0
-    with np.errstate(over="ignore"):
-        np.divide(values, scale, out=values, where=negative_exponent)
-        np.multiply(values, scale, out=values, where=~negative_exponent)
-    np.negative(values, out=values, where=grid[0] == 45)
+    values, certain = decimal_values(mantissa, exponent10, usable)
+    negative = np.equal(grid[0], u8(45), out=is_e[0])  # a leading '-': set the sign bit
+    np.bitwise_or(values.view(np.uint64), negative.astype(np.uint64) << np.uint64(63),
+                  out=values.view(np.uint64))
 
-    for k in np.flatnonzero(bad):
+    for k in np.flatnonzero(bad | ~certain):
         token = region[starts[k] : ends[k]]
-        if not NUMBER.fullmatch(token):
+        if bad[k] and not NUMBER.fullmatch(token):
             return values, starts, int(k)
         values[k] = float(token)
     return values, starts, -1

@@ -9,7 +9,8 @@ from typing import Literal
 import numpy as np
 
 from workers.engine.errors import TouchstoneError
-from workers.engine.touchstone.numbers import scan_numbers, scratch_buffer
+from workers.engine.touchstone.numbers import scan_numbers
+from workers.engine.touchstone.scratch import scratch_buffer
 
 Version = Literal["1.0", "2.0"]
 _KEYWORD_LINE = re.compile(r"^[ \t]*\[", re.MULTILINE)
