@@ -443,7 +443,7 @@ ERROR_CASES = [
     ("no port count", "# GHz S RI R 50\n1 1 2 3 4\n", None, 2, "port count"),
     ("even first line", "# GHz S RI R 50\n1 0 0 0\n", None, 2, "frequency and whole pairs"),
     ("too many ports", "# GHz S RI R 50\n1 0 0\n", "big.s65p", 0, str(MAX_PORTS)),
-    ("file says 2 ports", "# GHz S RI R 50\n1 0 0\n2 0 0\n", "a.s2p", 2, "expected 9"),
+    ("file says 2 ports", "# GHz S RI R 50\n1 0 0\n2 0 0\n", "a.s2p", 2, "says 2 ports"),
     ("v2 version", _v2("[Version] 3.0", "# GHz S RI R 50"), None, 1, "only 2.0"),
     ("v2 first keyword", _v2("[Number of Ports] 1"), None, 1, "[Version]"),
     ("v2 no option", _v2("[Version] 2.0", "[Number of Ports] 1"), None, 2, "option line"),
@@ -499,7 +499,7 @@ ERROR_CASES = [
         _v2(*_V2_HEAD, "[Network Data]", "1 0 0 0", "2 0 0", "[End]"),
         None,
         6,
-        "does not hold 3",
+        "expected 3 numbers",
     ),
     (
         "v2 not increasing",

@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import math
 import re
 from dataclasses import dataclass
 from typing import Literal
@@ -71,6 +72,9 @@ def parse_option_line(line: str, number: int) -> Options:
                 index += 1
             if not resistances or not all(r > 0.0 for r in resistances):
                 raise TouchstoneError(number, "R must be followed by a positive resistance in ohms")
+            if not all(math.isfinite(r) for r in resistances):
+                raise TouchstoneError(number, "R must be a finite resistance in ohms (a value "
+                                              "overflows to infinity)")
             key, value = "resistance", tuple(resistances)
         else:
             raise TouchstoneError(number, f"unknown option {word!r} on the option line")

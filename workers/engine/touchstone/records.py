@@ -2,8 +2,8 @@
 
 from __future__ import annotations
 
-from dataclasses import dataclass
-from typing import Literal
+from dataclasses import dataclass, field
+from typing import Any, Literal
 
 import numpy as np
 
@@ -16,12 +16,26 @@ MatrixFormat = Literal["full", "lower", "upper"]
 MAX_FREQUENCIES = 100_000
 
 
+NoteCode = Literal["touchstone_comment_references"]
+
+
+@dataclass(frozen=True)
+class TouchstoneNote:
+    """Something the reader assumed or noticed that a user should hear about (not an error)."""
+
+    code: NoteCode
+    severity: Literal["info", "warning"]
+    message: str
+    details: dict[str, Any] = field(default_factory=dict)
+
+
 @dataclass(frozen=True, eq=False)
 class TouchstoneData:
     """One parsed Touchstone file; arrays are read-only.
 
     ``values`` is (F, N, N) complex, de-normalised: S as given, Y in siemens, Z in ohms.
-    ``z0_ohm`` is the reference resistance of each port (N,).
+    ``z0_ohm`` is the reference resistance of each port (N,). ``notes`` say what the reader
+    assumed or noticed beyond the file's rules (e.g. references named only in comments).
     """
 
     frequency_hz: np.ndarray
@@ -30,11 +44,12 @@ class TouchstoneData:
     z0_ohm: np.ndarray
     version: Version
     nports: int
+    notes: tuple[TouchstoneNote, ...] = ()
 
 
 
 def count_records(
-    numbers: Numbers, record_length: int, *, noise_may_follow: bool, layout: list[int] | None
+    numbers: Numbers, record_length: int, *, noise_may_follow: bool, layouts: list[list[int]]
 ) -> int:
     """Number of whole network records; each must begin a line and frequencies must increase.
 
@@ -54,13 +69,13 @@ def count_records(
     trouble = np.flatnonzero(~aligned | not_increasing | (frequencies < 0))
     if trouble.size == 0:
         if total % record_length:
-            raise count_error(numbers, int(starts[-1]), record_length, layout)
+            raise count_error(numbers, int(starts[-1]), record_length, layouts)
         count = starts.size
     else:
         k = int(trouble[0])
         line = numbers.line(starts[k])
         if not aligned[k]:
-            raise count_error(numbers, int(starts[k - 1]), record_length, layout)
+            raise count_error(numbers, int(starts[k - 1]), record_length, layouts)
         if frequencies[k] < 0:
             raise TouchstoneError(line, "negative frequency")
         if not noise_may_follow:
@@ -73,26 +88,56 @@ def count_records(
 
 
 def count_error(
-    numbers: Numbers, record_start: int, record_length: int, layout: list[int] | None
+    numbers: Numbers, record_start: int, record_length: int, layouts: list[list[int]]
 ) -> TouchstoneError:
-    """Name the line where the record beginning at token ``record_start`` goes wrong."""
+    """Name the line where the record beginning at token ``record_start`` goes wrong.
+
+    ``layouts`` are the numbers per line a record may have (frequency line first); the first
+    record's own layout is tried too when the faulty record is a later one. The layout that
+    matches the most lines from the record's start names the first line that departs from it:
+    the continuation line at fault, not the record's first line.
+    """
     line_starts = numbers.line_starts
     first = int(np.searchsorted(line_starts, record_start))
     counts = np.diff(np.append(line_starts, numbers.values.size))
-    if layout is not None:
-        for offset, expected in enumerate(layout):
-            if first + offset >= counts.size or counts[first + offset] != expected:
-                at = min(first + offset, counts.size - 1)
-                found = int(counts[at]) if first + offset < counts.size else 0
-                return TouchstoneError(
-                    numbers.line(line_starts[at]),
-                    f"expected {expected} numbers on this line, found {found}",
-                )
+    candidates = list(layouts)
+    if first > 0:
+        cumulative = np.cumsum(counts[:first])
+        if record_length in cumulative:
+            candidates.insert(0, counts[: int(np.searchsorted(cumulative, record_length)) + 1])
+    best: tuple[int, int] | None = None  # (lines matched, expected count on the next line)
+    for layout in candidates:
+        matched = 0
+        while (matched < len(layout) and first + matched < counts.size
+               and counts[first + matched] == layout[matched]):
+            matched += 1
+        if matched < len(layout) and (best is None or matched > best[0]):
+            best = (matched, int(layout[matched]))
+    if best is not None:
+        at = first + best[0]
+        if at < counts.size:
+            where = f" (line {best[0] + 1} of the record that starts on line " \
+                f"{numbers.line(line_starts[first])})" if best[0] else ""
+            return TouchstoneError(
+                numbers.line(line_starts[at]),
+                f"expected {best[1]} numbers on this line{where}, found {int(counts[at])}",
+            )
     return TouchstoneError(
         numbers.line(record_start),
         f"the frequency record starting here does not hold {record_length} numbers "
         f"(frequency + {record_length - 1})",
     )
+
+
+def row_layouts(row_pairs: list[int], wrap_pairs: int | None) -> list[int]:
+    """Numbers per line of one record whose matrix rows hold ``row_pairs`` pairs, each row
+    starting a new line and wrapped after ``wrap_pairs`` pairs (None: never); frequency first."""
+    layout: list[int] = []
+    for pairs in row_pairs:
+        step = wrap_pairs or pairs
+        layout.extend(2 * min(step, pairs - k) for k in range(0, pairs, step))
+    layout[0] += 1
+    return layout
 
 
 def check_increasing(numbers: Numbers, frequencies: np.ndarray, record_length: int) -> None:

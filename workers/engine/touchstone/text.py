@@ -14,6 +14,39 @@ from workers.engine.touchstone.scratch import scratch_buffer
 
 Version = Literal["1.0", "2.0"]
 _KEYWORD_LINE = re.compile(r"^[ \t]*\[", re.MULTILINE)
+_UTF8_BOM = b"\xef\xbb\xbf"
+_UTF16_BOMS = (b"\xff\xfe", b"\xfe\xff")
+
+
+def decode_text(raw: bytes) -> str:
+    """A Touchstone file's bytes as text: a UTF-8 byte-order mark is dropped, UTF-8 is read as
+    UTF-8, anything else as Latin-1 (one character per byte).
+
+    Keywords and data must be ASCII, which every 8-bit encoding in use and UTF-8 share, so this
+    reads them right whatever encoding the comments were written in (a degree sign in Latin-1 or
+    Windows-1252, say); only the comments' own characters may come out differently.
+    """
+    if raw.startswith(_UTF16_BOMS):
+        raise TouchstoneError(0, "the file is UTF-16 text; save it as ASCII or UTF-8 (Touchstone "
+                                 "keywords and data are ASCII)")
+    if raw.startswith(_UTF8_BOM):
+        raw = raw[len(_UTF8_BOM):]
+    try:
+        return raw.decode("utf-8")
+    except UnicodeDecodeError:
+        return raw.decode("latin-1")
+
+
+def check_ascii(body: str) -> None:
+    """Raise naming the line of the first character outside ASCII in comment-free text."""
+    if body.isascii():
+        return
+    index = next(i for i, character in enumerate(body) if not character.isascii())
+    raise TouchstoneError(
+        body.count("\n", 0, index) + 1,
+        f"character {body[index]!r} outside a comment: keywords and data must be ASCII (only "
+        "'!' comments may hold other characters)",
+    )
 
 
 class Text:
@@ -21,7 +54,7 @@ class Text:
 
     def __init__(self, body: str) -> None:
         self.body = body
-        self.raw = np.frombuffer(body.encode("ascii", "replace"), dtype=np.uint8)
+        self.raw = np.frombuffer(body.encode("ascii"), dtype=np.uint8)  # ASCII: check_ascii
         is_newline = scratch_buffer("newlines", self.raw.size).view(bool)
         self.newlines = np.flatnonzero(np.equal(self.raw, 10, out=is_newline))
         self.line_start = np.concatenate(([0], self.newlines + 1))

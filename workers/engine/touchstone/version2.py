@@ -2,12 +2,14 @@
 
 from __future__ import annotations
 
+import math
 import re
 from dataclasses import dataclass
 
 import numpy as np
 
 from workers.engine.errors import TouchstoneError
+from workers.engine.touchstone.noise import check_noise_lines
 from workers.engine.touchstone.numbers import NUMBER
 from workers.engine.touchstone.options import (
     Options,
@@ -23,11 +25,13 @@ from workers.engine.touchstone.records import (
     check_increasing,
     count_records,
     result,
+    row_layouts,
     to_complex,
 )
 from workers.engine.touchstone.text import Numbers, Text, read_numbers
 
 _KEYWORD = re.compile(r"\[([^\]]*)\](.*)\Z")
+_MISSING_END = "missing [End]: add [End] on a line of its own after the last data"
 
 
 @dataclass
@@ -59,7 +63,8 @@ def parse_version2(lines: Text, first: int) -> TouchstoneData:
     numbers = read_numbers(lines, index + 1, stop, version="2.0")
     pairs = _pairs_per_record(header.nports, header.matrix_format)
     record_length = 1 + 2 * pairs
-    _check_record_count(numbers, record_length, header.frequencies, stop + 1, lines)
+    _check_record_count(numbers, record_length, header.frequencies, stop + 1, lines,
+                        header.nports, header.matrix_format)
     records = numbers.values.reshape(header.frequencies, record_length)
     check_increasing(numbers, records[:, 0], record_length)
     _read_tail2(lines, stop, header)
@@ -180,16 +185,22 @@ def _require(header: _Header2, network_line: int) -> None:
 
 
 def _read_tail2(lines: Text, stop: int, header: _Header2) -> None:
-    """After the network data: optional [Noise Data] (skipped), then [End] and nothing else."""
+    """After the network data: optional [Noise Data] (checked, dropped), then [End] and nothing
+    else."""
     if stop >= len(lines):
-        raise TouchstoneError(lines.last_content_line(), "missing [End]")
+        raise TouchstoneError(lines.last_content_line(), _MISSING_END)
     keyword, argument = _keyword(lines[stop], stop + 1)
     if keyword == "noise data":
         if header.noise_frequencies is None:
             raise TouchstoneError(stop + 1, "[Noise Data] without [Number of Noise Frequencies]")
-        stop = lines.next_keyword_line(stop + 1)
+        end = lines.next_keyword_line(stop + 1)
+        noise = read_numbers(lines, stop + 1, end, version="2.0")
+        if noise.values.size == 0:
+            raise TouchstoneError(stop + 1, "[Noise Data] holds no noise records")
+        check_noise_lines(noise, 0, header.noise_frequencies)
+        stop = end
         if stop >= len(lines):
-            raise TouchstoneError(lines.last_content_line(), "missing [End]")
+            raise TouchstoneError(lines.last_content_line(), _MISSING_END)
         keyword, argument = _keyword(lines[stop], stop + 1)
     elif header.noise_frequencies is not None:
         raise TouchstoneError(stop + 1, "[Number of Noise Frequencies] given but no [Noise Data]")
@@ -217,8 +228,9 @@ def _positive_int(words: list[str], number: int, what: str) -> int:
 def _reference_values(text: str, number: int) -> list[float]:
     values = []
     for word in text.split():
-        if not NUMBER.fullmatch(word) or not float(word) > 0.0:
-            raise TouchstoneError(number, f"[Reference] value {word!r} is not a positive number")
+        if not NUMBER.fullmatch(word) or not 0.0 < float(word) < math.inf:
+            raise TouchstoneError(
+                number, f"[Reference] value {word!r} is not a finite positive number")
         values.append(float(word))
     return values
 
@@ -235,8 +247,21 @@ def _pairs_per_record(nports: int, matrix_format: MatrixFormat) -> int:
     return nports * nports if matrix_format == "full" else nports * (nports + 1) // 2
 
 
+def _layouts2(nports: int, matrix_format: MatrixFormat) -> list[list[int]]:
+    """Line layouts a Version 2.0 record may have: each matrix row on one line, or rows wrapped
+    at four pairs as in Version 1.0 (the rows of Lower and Upper shrink: TS2 "[Matrix Format]")."""
+    if matrix_format == "full":
+        rows = [nports] * nports
+    elif matrix_format == "lower":
+        rows = list(range(1, nports + 1))
+    else:
+        rows = list(range(nports, 0, -1))
+    return [row_layouts(rows, None), row_layouts(rows, 4), row_layouts([sum(rows)], None)]
+
+
 def _check_record_count(
-    numbers: Numbers, record_length: int, declared: int, end_line: int, lines: Text
+    numbers: Numbers, record_length: int, declared: int, end_line: int, lines: Text,
+    nports: int, matrix_format: MatrixFormat,
 ) -> None:
     """Version 2.0: the network data must hold exactly [Number of Frequencies] records."""
     total = numbers.values.size
@@ -244,7 +269,8 @@ def _check_record_count(
         return
     if total == 0:
         raise TouchstoneError(end_line, "no network data")
-    full = count_records(numbers, record_length, noise_may_follow=False, layout=None)
+    full = count_records(numbers, record_length, noise_may_follow=False,
+                         layouts=_layouts2(nports, matrix_format))
     if full > declared:
         line = numbers.line(declared * record_length)
         raise TouchstoneError(line, f"more frequencies than [Number of Frequencies] {declared}")
