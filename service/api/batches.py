@@ -61,6 +61,8 @@ from service.store.base import (
 )
 from service.store.jsontext import collector_paused, loads_json
 from service.store.payload import encode_binary, with_packed_bytes
+from workers.engine.errors import TouchstoneError
+from workers.engine.touchstone import decode_text
 
 blp = Blueprint("batches", __name__, url_prefix="/v1/batches",
                 description="Batches of variants sharing one port/device map")
@@ -153,10 +155,10 @@ def _parse_multipart_batch() -> tuple[str | None, dict[str, Any], list[Variant]]
     if not files:
         invalid.add("files", "send one Touchstone file per variant in parts named 'files'")
     for i, upload in enumerate(files):
-        try:
-            text = upload.read().decode("utf-8")
-        except UnicodeDecodeError:
-            invalid.add(f"files.{i}", "is not UTF-8 text")
+        try:  # Touchstone bytes: BOM dropped, comments in any 8-bit encoding (decode_text)
+            text = decode_text(upload.read())
+        except TouchstoneError as exc:
+            invalid.add(f"files.{i}", exc.message)
             continue
         name = upload.filename or None
         _check_label(name, f"files.{i}", invalid)

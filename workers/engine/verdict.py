@@ -30,6 +30,7 @@ DiagnosticCode = Literal[
     "model_count_disagrees",    # model's right-half-plane zeros ≠ refined encirclement count
     "not_rational",             # the data is not rational over the band (delay): model not trusted
     "refinement_added_points",  # the refinement evaluated the model between samples
+    "touchstone_comment_references",  # per-port references named only in Touchstone comments
 ]
 
 

@@ -37,10 +37,15 @@ from __future__ import annotations
 
 from workers.engine.touchstone.options import MAX_PORTS, DataFormat, Parameter
 from workers.engine.touchstone.reader import parse_touchstone
-from workers.engine.touchstone.records import MAX_FREQUENCIES, MatrixFormat, TouchstoneData
-from workers.engine.touchstone.text import Version
+from workers.engine.touchstone.records import (
+    MAX_FREQUENCIES,
+    MatrixFormat,
+    TouchstoneData,
+    TouchstoneNote,
+)
+from workers.engine.touchstone.text import Version, decode_text
 
 __all__ = [
     "MAX_FREQUENCIES", "MAX_PORTS", "DataFormat", "MatrixFormat", "Parameter", "TouchstoneData",
-    "Version", "parse_touchstone",
+    "TouchstoneNote", "Version", "decode_text", "parse_touchstone",
 ]
