@@ -26,20 +26,14 @@ from fractions import Fraction
 
 import numpy as np
 
+from workers.engine.exact import split
 from workers.engine.touchstone.scratch import scratch_array
 
 _EXACT_MANTISSA = np.uint64(2**53)
 _CHECKED_MANTISSA = np.uint64(2**62)
 _EXACT_EXPONENT = 22
 _CHECKED_EXPONENT = 45
-_SPLIT = 134217729.0  # 2^27 + 1, Veltkamp's splitting constant for binary64
-
-
-def _split(a: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
-    """a = high + low exactly, each with at most 26 significant bits (Veltkamp)."""
-    c = a * _SPLIT
-    high = c - (c - a)
-    return high, a - high
+_SPLIT = 134217729.0  # 2^27 + 1, Veltkamp's splitting constant (as exact.split, inlined)
 
 
 def _powers_of_ten() -> tuple[np.ndarray, ...]:
@@ -48,7 +42,7 @@ def _powers_of_ten() -> tuple[np.ndarray, ...]:
     exact = [Fraction(10) ** e for e in range(-_CHECKED_EXPONENT, _CHECKED_EXPONENT + 1)]
     high = np.array([float(p) for p in exact])  # Fraction -> float is correctly rounded
     low = np.array([float(p - Fraction(h)) for p, h in zip(exact, high.tolist(), strict=True)])
-    high_hi, high_lo = _split(high)
+    high_hi, high_lo = split(high)
     return high, low, high_hi, high_lo
 
 
