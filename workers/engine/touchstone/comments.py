@@ -32,14 +32,16 @@ _OPTION = "options.reference_from_comments"
 _SAME = 1e-9  # relative: comment values within this of the reference agree with it
 
 
-def apply_comment_references(text: str, data: TouchstoneData, *, take: bool) -> TouchstoneData:
-    """``data`` with a note about comment references, or (``take``) with them as ``z0_ohm``."""
+def apply_comment_references(text: str, comments: str, data: TouchstoneData, *, take: bool
+                             ) -> TouchstoneData:
+    """``data`` with a note about comment references, or (``take``) with them as ``z0_ohm``;
+    ``comments`` is every comment of ``text`` (searched first: far shorter than the text)."""
     if data.parameter != "S":
         if take:
             raise TouchstoneError(0, f"{_OPTION} applies to S data only (this file holds "
                                      f"{data.parameter} data)", field=_OPTION)
         return data
-    blocks = _blocks(text) if "mpedance" in text or "MPEDANCE" in text else []
+    blocks = _blocks(text) if "impedance" in comments.lower() else []
     readable = [(line, z) for line, values in blocks
                 if (z := _per_port(values, data.nports)) is not None]
     in_force = data.z0_ohm

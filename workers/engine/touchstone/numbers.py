@@ -56,8 +56,7 @@ exponent by ``rounding.decimal_values``; the tokens it leaves uncertain go to ``
     grid, digit_value, scratch, spare = work[0], work[1], work[2], work[3]
     is_digit, is_e, is_dot, is_sign = (work[i].view(bool) for i in range(4, 8))
     for j in range(width):  # byte j of every token, one row of the (width, tokens) grid
-        np.add(starts, j, out=index)
-        np.take(padded, index, out=grid[j])
+        np.take(padded[j:], starts, out=grid[j], mode="clip")  # in range: no buffering
     column = np.arange(1, width + 1, dtype=i8)[:, None]
     np.less_equal(column, length, out=is_e)
     grid *= is_e  # blank the bytes after each token
@@ -132,11 +131,15 @@ exponent by ``rounding.decimal_values``; the tokens it leaves uncertain go to ``
     np.bitwise_or(values.view(np.uint64), negative.astype(np.uint64) << np.uint64(63),
                   out=values.view(np.uint64))
 
-    for k in np.flatnonzero(bad | ~certain):
+    for k in np.flatnonzero(bad):
         token = region[starts[k] : ends[k]]
-        if bad[k] and not NUMBER.fullmatch(token):
+        if not NUMBER.fullmatch(token):
             return values, starts, int(k)
         values[k] = float(token)
+    rest = np.flatnonzero(~certain & ~bad)  # well-formed, not vouched for: float() reads them
+    if rest.size:
+        values[rest] = [float(region[a:b]) for a, b in zip(starts[rest].tolist(),
+                                                            ends[rest].tolist(), strict=True)]
     return values, starts, -1
 
 

@@ -29,7 +29,7 @@ def parse_touchstone(
         text = text[1:]
     if "\r" in text:
         text = text.replace("\r\n", "\n").replace("\r", "\n")
-    body = strip_comments(text)
+    body, comments = strip_comments(text)
     check_ascii(body)
     lines = Text(body)
     first = next((i for i in range(len(lines)) if lines[i].strip()), None)
@@ -47,4 +47,4 @@ def parse_touchstone(
             )
     else:
         data = parse_version1(lines, first, named)
-    return apply_comment_references(text, data, take=reference_from_comments)
+    return apply_comment_references(text, comments, data, take=reference_from_comments)

@@ -69,8 +69,8 @@ def decimal_values(
     np.clip(exponent, -_EXACT_EXPONENT, _EXACT_EXPONENT, out=index, casting="unsafe")
     index += _EXACT_EXPONENT
     factor = scratch_array("rounding_factor", count, np.float64)
-    values *= np.take(_MULTIPLY, index, out=factor)
-    values /= np.take(_DIVIDE, index, out=factor)
+    values *= np.take(_MULTIPLY, index, out=factor, mode="clip")
+    values /= np.take(_DIVIDE, index, out=factor, mode="clip")
     small_exponent = (exponent >= -_EXACT_EXPONENT) & (exponent <= _EXACT_EXPONENT)
     certain = usable & small_exponent & (mantissa < _EXACT_MANTISSA)
     checked = np.flatnonzero(
@@ -94,18 +94,18 @@ def _checked_product(mantissa: np.ndarray, exponent: np.ndarray) -> tuple[np.nda
     whole = scratch_array("rounding_whole", count, np.int64)
     np.subtract(mantissa.view(np.int64), a.astype(np.int64), out=whole)
     b[...] = whole
-    np.take(_P_HI, index, out=h_hi)
+    np.take(_P_HI, index, out=h_hi, mode="clip")
     np.multiply(a, h_hi, out=p)
     np.multiply(b, h_hi, out=low)  # b · P_hi; then + a · P_lo and + (a · P_hi - p)
-    np.take(_P_LO, index, out=t)
+    np.take(_P_LO, index, out=t, mode="clip")
     t *= a
     low += t
     np.multiply(a, _SPLIT, out=t)  # Veltkamp split of a
     np.subtract(t, a, out=a_hi)
     np.subtract(t, a_hi, out=a_hi)
     np.subtract(a, a_hi, out=a_lo)
-    np.take(_P_HI_HI, index, out=h_hi)
-    np.take(_P_HI_LO, index, out=h_lo)
+    np.take(_P_HI_HI, index, out=h_hi, mode="clip")
+    np.take(_P_HI_LO, index, out=h_lo, mode="clip")
     # Dekker's exact error of a · P_hi: ((a_hi h_hi - p) + a_hi h_lo + a_lo h_hi) + a_lo h_lo
     np.multiply(a_hi, h_hi, out=t)
     t -= p

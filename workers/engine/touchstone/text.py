@@ -111,9 +111,9 @@ class Numbers:
 
 
 
-def strip_comments(text: str) -> str:
-    """Remove every '!' comment up to its line end, keeping the line breaks."""
-    pieces = []
+def strip_comments(text: str) -> tuple[str, str]:
+    """(text without its '!' comments, line breaks kept; the comments themselves, joined)."""
+    pieces, comments = [], []
     position = 0
     bang = text.find("!")
     while bang >= 0:
@@ -121,9 +121,10 @@ def strip_comments(text: str) -> str:
         position = text.find("\n", bang)
         if position < 0:
             position = len(text)
+        comments.append(text[bang:position])
         bang = text.find("!", position)
     pieces.append(text[position:])
-    return "".join(pieces)
+    return "".join(pieces), "\n".join(comments)
 
 
 
