@@ -35,6 +35,9 @@ from service.schemas.batch import (
 )
 from service.schemas.errors import flatten_errors
 from service.schemas.request import CheckRequestSchema
+from workers.engine.errors import TouchstoneError
+from workers.engine.touchstone import decode_text
+from workers.engine.touchstone.options import ports_from_filename
 from workers.intake import SharedArrays
 from workers.store import NewCheck
 
@@ -180,12 +183,18 @@ def multipart_batch() -> BatchIntake:
     files: list[tuple[str | None, bytes]] = body["files"]
     shared = body["map"]
 
+    ports = shared.get("ports") if isinstance(shared, dict) else None
+
     def variant(i: int) -> Any:
         name, data = files[i]
-        try:
-            text = data.decode("utf-8")
-        except UnicodeDecodeError as exc:
-            raise VariantError([("", "is not UTF-8 text")]) from exc
+        named = ports_from_filename(name)
+        if named is not None and isinstance(ports, list) and named != len(ports):
+            raise VariantError([("", f"the file name {name!r} says {named} ports (.s{named}p) "
+                                     f"but the map, which the data must match, has {len(ports)}")])
+        try:  # Touchstone bytes: BOM dropped, comments in any 8-bit encoding
+            text = decode_text(data)
+        except TouchstoneError as exc:
+            raise VariantError([("", exc.message)]) from exc
         return {"touchstone": text} if name is None else {"label": name, "touchstone": text}
 
     label = body.get("label")

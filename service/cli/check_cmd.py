@@ -20,6 +20,8 @@ from marshmallow import ValidationError
 from service.cli import EXIT_ERROR, EXIT_INDETERMINATE, EXIT_STABLE, EXIT_UNSTABLE
 from service.runner import run_check_json
 from service.schemas.errors import flatten_errors
+from workers.engine.errors import TouchstoneError
+from workers.engine.touchstone import decode_text, parse_touchstone
 
 VERDICT_EXIT = {"stable": EXIT_STABLE, "unstable": EXIT_UNSTABLE,
                 "indeterminate": EXIT_INDETERMINATE}
@@ -37,21 +39,31 @@ def register(subparsers: argparse._SubParsersAction) -> None:
     parser.set_defaults(func=run)
 
 
+def read_touchstone_file(file: Path) -> str:
+    """A Touchstone file's text, checked against its name (a .sNp extension must name the data's
+    port count): a UTF-8 byte-order mark dropped, comments in any 8-bit encoding."""
+    raw = file.read_bytes()
+    try:
+        parse_touchstone(raw, filename=file.name)
+    except TouchstoneError as exc:
+        raise ValueError(f"{file}: {exc}") from exc
+    return decode_text(raw)
+
+
 def request_from_files(file: Path, map_file: Path | None) -> dict[str, Any]:
     """The JSON check request that ``file`` (and ``map_file``) describe."""
-    text = file.read_text(encoding="utf-8", errors="strict")
     if map_file is None:
         if file.suffix.lower() != ".json":
             raise ValueError(f"{file}: a Touchstone file needs --map MAP.json naming its ports "
                              "and devices")
-        payload = json.loads(text)
+        payload = json.loads(file.read_text(encoding="utf-8", errors="strict"))
         if not isinstance(payload, dict):
             raise ValueError(f"{file}: must hold a JSON object (one check request)")
         return payload
     mapping = json.loads(map_file.read_text(encoding="utf-8"))
     if not isinstance(mapping, dict):
         raise ValueError(f"{map_file}: must hold a JSON object with ports and devices")
-    return {**mapping, "touchstone": text}
+    return {**mapping, "touchstone": read_touchstone_file(file)}
 
 
 def run(args: argparse.Namespace) -> int:

@@ -22,6 +22,7 @@ from pathlib import Path
 from typing import Any
 
 from service.cli import EXIT_ERROR, EXIT_STABLE
+from service.cli.check_cmd import read_touchstone_file
 from service.client import BallastClient, ClientError, load_config
 from service.reports.junit import junit_xml
 from service.reports.outcomes import exit_code, item_from_check, state_of
@@ -175,7 +176,7 @@ def _submit_batch(client: BallastClient, args: argparse.Namespace
         files = expand_paths(args.paths, want_touchstone=True, exclude=args.map_file)
         if not files:
             raise ValueError("no Touchstone files (.sNp, .ts) found in " + " ".join(args.paths))
-        payloads = [{**mapping, "touchstone": f.read_text(encoding="utf-8")} for f in files]
+        payloads = [{**mapping, "touchstone": read_touchstone_file(f)} for f in files]
         accepted = client.submit_touchstone_batch(files, mapping, label=args.label)
     else:
         files = expand_paths(args.paths, want_touchstone=False)

@@ -34,6 +34,7 @@ from workers.engine.request import (
     Port,
 )
 from workers.engine.touchstone import parse_touchstone
+from workers.engine.verdict import Diagnostic
 
 _COMPLEX_DOC = {
     "oneOf": [
@@ -269,6 +270,12 @@ class DeviceSchema(Schema):
     gm_s = Transconductance(required=True)
     delay_s = fields.Float(load_default=0.0, allow_nan=False,
                            validate=validate.Range(min=0.0, max=1e-6))
+    fmax_hz = fields.Float(load_default=None, allow_none=True, allow_nan=False,
+                           validate=validate.Range(min=0.0, min_inclusive=False, max=1e15),
+                           metadata={"description": "the frequency above which this device has "
+                                     "no power gain (Mason's U < 1), as the flow states it; when "
+                                     "every device states one and the band reaches the largest, "
+                                     "the top band edge counts as settled on that statement"})
     control = fields.List(fields.String(allow_none=True), required=True,
                           validate=validate.Length(equal=2))
     output = fields.List(fields.String(allow_none=True), required=True,
@@ -283,6 +290,10 @@ class OptionsSchema(Schema):
     phase_step_limit_deg = fields.Float(validate=validate.Range(min=1.0, max=179.0))
     consistency_tolerance = fields.Float(validate=validate.Range(min=0.0, max=1.0))
     refine = fields.Boolean()
+    reference_from_comments = fields.Boolean(metadata={
+        "description": "Touchstone S data: take per-port reference impedances that only comment "
+                       "lines name ('! Port Impedance ...'); reported in the verdict's "
+                       "diagnostics (touchstone_comment_references)"})
 
     @post_load
     def _options(self, data: dict[str, Any], **kwargs: Any) -> CheckOptions:
@@ -309,16 +320,22 @@ class CheckRequestSchema(NetworkSchema):
             raise ValidationError(exc.message, exc.field) from exc
 
 
-def _network(raw: dict[str, Any], prefix: str, n_ports: int) -> tuple[Network, np.ndarray | None]:
-    """The network and, for Touchstone, its own frequencies."""
+def _network(raw: dict[str, Any], prefix: str, n_ports: int, options: CheckOptions,
+             notes: list[Diagnostic]) -> tuple[Network, np.ndarray | None]:
+    """The network and, for Touchstone, its own frequencies; the reader's notes go to ``notes``."""
     if "touchstone" in raw:
         try:
-            parsed = parse_touchstone(raw["touchstone"])
+            parsed = parse_touchstone(raw["touchstone"],
+                                      reference_from_comments=options.reference_from_comments)
         except TouchstoneError as exc:
-            raise InputError(f"{prefix}touchstone", exc.message) from exc
+            field = exc.field if exc.field != "touchstone" else f"{prefix}touchstone"
+            raise InputError(field, exc.message) from exc
         if parsed.nports != n_ports:
             raise InputError(f"{prefix}touchstone",
                              f"has {parsed.nports} ports but ports lists {n_ports}")
+        notes.extend(Diagnostic(note.code, note.severity, f"{prefix}touchstone: {note.message}",
+                                {**note.details, "field": f"{prefix}touchstone"})
+                     for note in parsed.notes)
         return Network(parsed.parameter, parsed.values, np.asarray(parsed.z0_ohm, float)), \
             parsed.frequency_hz
     values = raw["data"]
@@ -385,11 +402,12 @@ def build_request(data: dict[str, Any]) -> CheckRequest:
         if "termination_ohm" in p and p["termination_ohm"] == 0:
             raise InputError(f"ports.{k}.termination_ohm", "must not be zero")
     n = len(ports)
-    network, file_f = _network(data, "", n)
+    notes: list[Diagnostic] = []
+    network, file_f = _network(data, "", n, data["options"], notes)
     f = _frequencies(data.get("frequency_hz"), file_f, network.values.shape[0])
     gain_off = None
     if "gain_off" in data:
-        gain_off, off_f = _network(data["gain_off"], "gain_off.", n)
+        gain_off, off_f = _network(data["gain_off"], "gain_off.", n, data["options"], notes)
         if off_f is not None and (off_f.shape != f.shape or not np.allclose(off_f, f, rtol=1e-9)):
             raise InputError("gain_off.touchstone", "frequencies differ from the network's")
         if gain_off.values.shape[0] != f.size:
@@ -413,9 +431,12 @@ def build_request(data: dict[str, Any]) -> CheckRequest:
             raise InputError(f"devices.{d}.control", "the two terminals must differ")
         if output[0] == output[1]:
             raise InputError(f"devices.{d}.output", "the two terminals must differ")
-        devices.append(Device(raw["name"], gm, control, output, float(raw["delay_s"])))
+        fmax = raw.get("fmax_hz")
+        devices.append(Device(raw["name"], gm, control, output, float(raw["delay_s"]),
+                              None if fmax is None else float(fmax)))
     if not devices and gain_off is None:
         raise InputError("devices", "give the devices, or gain_off data, or both: the check "
                                     "needs to know the circuit with its gain switched off")
     port_objs = tuple(Port(p["name"], p["role"], p.get("termination_ohm")) for p in ports)
-    return CheckRequest(f, network, port_objs, tuple(devices), gain_off, data["options"])
+    return CheckRequest(f, network, port_objs, tuple(devices), gain_off, data["options"],
+                        input_diagnostics=tuple(notes))

@@ -171,7 +171,7 @@ def count_trusted(count: Encirclements, request: CheckRequest,
 
 def analyse(request: CheckRequest) -> Analysis:
     """Compute every indicator on the given samples (no refinement, no verdict yet)."""
-    diagnostics: list[Diagnostic] = []
+    diagnostics: list[Diagnostic] = list(request.input_diagnostics)
     state = circuit_state(request, diagnostics)
     z_on = conversions.batched_inv(state.y_on)
     if request.gain_off is None:

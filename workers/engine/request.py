@@ -12,6 +12,8 @@ from typing import Literal
 
 import numpy as np
 
+from workers.engine.verdict import Diagnostic
+
 PortRole = Literal["external", "probe"]
 Parameter = Literal["S", "Y", "Z"]
 
@@ -69,12 +71,15 @@ class CheckOptions:
     phase_step_limit_deg: largest NDF phase change allowed between neighbouring samples.
     consistency_tolerance: relative mismatch allowed between ``gain_off`` data and the devices.
     refine: run the rational-model refinement and natural-frequency identification.
+    reference_from_comments: take per-port references that only Touchstone comments name (read
+    at the boundary, ``workers.engine.touchstone.comments``).
     """
 
     closure_tolerance: float = 0.2
     phase_step_limit_deg: float = 45.0
     consistency_tolerance: float = 1e-6
     refine: bool = True
+    reference_from_comments: bool = False
 
 
 @dataclass(frozen=True)
@@ -87,6 +92,7 @@ class CheckRequest:
     devices: tuple[Device, ...] = ()
     gain_off: Network | None = None
     options: CheckOptions = field(default_factory=CheckOptions)
+    input_diagnostics: tuple[Diagnostic, ...] = ()  # what reading the input noticed
 
     @property
     def n_ports(self) -> int:

@@ -13,7 +13,9 @@ per frequency. Formulas and sources:
 * MAG = |S21/S12| (K - √(K² - 1)) for K ≥ 1, B1 > 0; MSG = |S21/S12| (Gonzalez, 2nd ed.,
   section 3.8). MAG is evaluated in the algebraically equal form
   2 |S21|² / (N + √(N² - (2 |S12 S21|)²)), N the numerator of K, which stays finite for a
-  unilateral device (S12 = 0), where it equals |S21|² / ((1 - |S11|²)(1 - |S22|²)).
+  unilateral device (S12 = 0), where it equals |S21|² / ((1 - |S11|²)(1 - |S22|²)); N and the
+  difference under the root are formed in double-double arithmetic so that MAG stays accurate
+  at K = 1 (``workers.engine.gains``).
 * Load stability circle C_L = (S22 - Δ S11*)* / D_L, R_L = |S12 S21| / |D_L|,
   D_L = |S22|² - |Δ|²; source circle with 1 ↔ 2 (Pozar, 4th ed., section 12.1).
 
@@ -31,6 +33,7 @@ from typing import Any
 import numpy as np
 
 from workers.engine.errors import InputError
+from workers.engine.gains import maximum_available_gain, root_terms
 
 # |D| below this multiple of eps (relative to the terms it is the difference of) is a line.
 _LINE_TOLERANCE = 64.0 * np.finfo(float).eps
@@ -232,9 +235,11 @@ def two_port_factors(s: np.ndarray) -> TwoPortFactors:
     abs11_sq, abs22_sq, delta_sq = np.abs(s11) ** 2, np.abs(s22) ** 2, np.abs(delta) ** 2
     loop_abs = np.abs(loop)
 
-    # 1 - |S11|² - |S22|² + |Δ|², expanded so that S12 S21 = 0 gives exactly (1-|S11|²)(1-|S22|²)
+    # 1 - |S11|² - |S22|² + |Δ|² and N² - (2|S12 S21|)², both in double-double arithmetic
+    # (``gains``): accurate where K is near 1; for S12 S21 = 0 within about 2^-104 of the
+    # closed form (1-|S11|²)(1-|S22|²)
     cross = 2.0 * np.real(s11 * s22 * np.conj(loop))
-    k_numerator = (1.0 - abs11_sq) * (1.0 - abs22_sq) + loop_abs**2 - cross
+    k_numerator, root_difference = root_terms(s11, s12, s21, s22)
     k = _safe_ratio(k_numerator, 2.0 * loop_abs)
     b1 = 1.0 + abs11_sq - abs22_sq - delta_sq
     b2 = 1.0 + abs22_sq - abs11_sq - delta_sq
@@ -245,9 +250,7 @@ def two_port_factors(s: np.ndarray) -> TwoPortFactors:
     mu_prime = _safe_ratio(1.0 - abs22_sq, np.abs(c_source) + loop_abs)
 
     mag_applies = (k >= 1.0) & (b1 > 0.0)
-    root = np.sqrt(np.clip(k_numerator**2 - (2.0 * loop_abs) ** 2, 0.0, None))
-    mag_den = np.where(mag_applies, k_numerator + root, 1.0)
-    mag = np.where(mag_applies, 2.0 * np.abs(s21) ** 2 / mag_den, np.nan)
+    mag = maximum_available_gain(s21, k_numerator, root_difference, mag_applies)
     msg = _safe_ratio(np.abs(s21), np.abs(s12))
     max_gain = np.where(mag_applies, mag, msg)
 

@@ -32,6 +32,7 @@ DiagnosticCode = Literal[
     "refinement_added_points",  # the refinement evaluated the model between samples
     "mode_not_pinned",          # a model zero in the right half-plane that the samples cannot
                                 # tell from its mirror image (more points needed around it)
+    "touchstone_comment_references",  # per-port references named only in Touchstone comments
 ]
 
 AssumptionCode = Literal[
