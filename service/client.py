@@ -228,6 +228,15 @@ class BallastClient:
     def get_check(self, check_id: str) -> dict:
         return self._json("GET", f"/v1/checks/{check_id}")
 
+    def add_samples(self, check_id: str, samples: dict[str, Any],
+                    idempotency_key: str | None = None) -> dict:
+        """POST /v1/checks/{id}/samples: a new check on the union of the check's frequencies and
+        ``samples`` (the network part of a check request at new frequencies, e.g. where the
+        verdict's ``next_sweep`` asks); the answer names the new check and ``extends``."""
+        key = idempotency_key or uuid.uuid4().hex
+        return self._json("POST", f"/v1/checks/{check_id}/samples", json=samples,
+                          headers={"Idempotency-Key": key})
+
     def cancel_check(self, check_id: str) -> dict:
         return self._json("DELETE", f"/v1/checks/{check_id}")
 

@@ -28,6 +28,7 @@ def load_request(payload: Mapping[str, Any] | StoredRequest) -> CheckRequest:
 
 
 def new_check(request: CheckRequest, label: str | None = None,
-              shared: SharedArrays | None = None) -> NewCheck:
-    """A validated request as a check to store (``shared``: the arrays of its batch kept once)."""
-    return NewCheck(encode_request(request, shared), REQUEST_ENCODING, label)
+              shared: SharedArrays | None = None, extends: str | None = None) -> NewCheck:
+    """A validated request as a check to store (``shared``: the arrays of its batch kept once;
+    ``extends``: the check whose samples it merges with new ones)."""
+    return NewCheck(encode_request(request, shared), REQUEST_ENCODING, label, extends)

@@ -10,11 +10,17 @@ import os
 import uuid
 from collections.abc import Iterator
 
-import pytest
+from workers.threads import pin_engine_threads
 
-from workers.store import Stores
-from workers.store.redis_backend import RedisAccessStore, RedisCheckStore, connect
-from workers.store.sqlite_backend import SqliteAccessStore, SqliteCheckStore, SqliteDatabase
+# the engine runs with one BLAS thread in the workers and in `ballast serve`; the tests run it the
+# same way (set before numpy's first import: nothing imported so far loads it)
+pin_engine_threads(os.environ)
+
+import pytest  # noqa: E402
+
+from workers.store import Stores  # noqa: E402
+from workers.store.redis_backend import RedisAccessStore, RedisCheckStore, connect  # noqa: E402
+from workers.store.sqlite_backend import SqliteAccessStore, SqliteCheckStore, SqliteDatabase  # noqa: E402
 
 pytest_plugins = ["tests.api_fixtures"]
 

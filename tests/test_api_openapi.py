@@ -52,6 +52,7 @@ def test_every_endpoint_of_the_issue_is_documented():
         "/v1/checks": {"post"}, "/v1/checks/{check_id}": {"get", "delete"},
         "/v1/batches": {"post", "get"}, "/v1/batches/{batch_id}": {"get", "delete"},
         "/v1/batches/{batch_id}/checks": {"get"}, "/healthz": {"get"}, "/readyz": {"get"},
+        "/v1/checks/{check_id}/samples": {"post"},
     }
     assert {p: set(ops) - {"parameters"} for p, ops in paths.items()} == expected
 

@@ -12,7 +12,8 @@ from __future__ import annotations
 import numpy as np
 import pytest
 
-from workers.engine import CheckOptions, CheckRequest, Device, Network, Port, run_check
+from tests.support.closed_forms import ndf_request, rational
+from workers.engine import run_check
 from workers.engine.identify import band_rhp_zeros, zero_count
 from workers.engine.models import fit_response
 
@@ -24,13 +25,6 @@ STABLE_POLES = np.array([-0.05 + 1.6j, -0.2 + 0.7j, -0.3 + 3.1j]) * W0
 F_HZ = np.linspace(1e7, 5e9, 201)
 # the engine needs a band over which NDF settles at both ends (issue 2's closure check)
 WIDE_HZ = np.geomspace(1e6, 2e11, 201)
-
-
-def rational(s: np.ndarray, zeros: np.ndarray, poles: np.ndarray) -> np.ndarray:
-    """Π (s − z)(s − z̄) / Π (s − p)(s − p̄): real-rational, → 1 as s → ∞."""
-    num = np.prod([(s - z) * (s - np.conj(z)) for z in zeros], axis=0)
-    den = np.prod([(s - p) * (s - np.conj(p)) for p in poles], axis=0)
-    return num / den
 
 
 def _paired(found: np.ndarray, expected: np.ndarray) -> np.ndarray:
@@ -65,16 +59,6 @@ def test_noise_gives_no_phantom_zeros_in_the_right_half_plane(seed):
     rhp = band_rhp_zeros(model, F_HZ[0], F_HZ[-1])
     assert zero_count(rhp) == 2
     assert abs(rhp[0] - ZEROS[0]) <= 1e-2 * abs(ZEROS[0])
-
-
-def ndf_request(h: np.ndarray, f: np.ndarray) -> CheckRequest:
-    """One probe port with Y_off = 1 S and a device of per-frequency gm = H − 1 from the port to
-    itself, so that NDF = det Y_on / det Y_off = 1 + gm = H exactly (issue 2's definition)."""
-    gm = h - 1.0
-    y_on = (1.0 + gm)[:, None, None]
-    device = Device("Q1", gm.astype(complex), (0, None), (0, None))
-    return CheckRequest(f, Network("Y", y_on, np.array([50.0])), (Port("p", "probe"),),
-                        (device,), options=CheckOptions())
 
 
 def test_engine_identifies_the_unstable_zero_pair_of_a_closed_form_ndf():

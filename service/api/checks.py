@@ -19,12 +19,14 @@ from service.api.common import (
     validation_problem,
 )
 from service.api.tenancy import authenticate, check_store, tenant
-from service.intake import new_check
+from service.intake import load_request, new_check
 from service.problems import abort_problem
 from service.schemas.api import CheckAcceptedSchema, CheckSchema
 from service.schemas.request import CheckRequestSchema
+from service.schemas.samples import SamplesSchema, merged_request
 from workers.collector import collector_paused
 from workers.engine.request import CheckRequest
+from workers.intake import StoredRequestError
 from workers.store import UNFINISHED_STATUSES
 
 blp = Blueprint("checks", __name__, url_prefix="/v1/checks",
@@ -85,6 +87,50 @@ def _submit_check() -> tuple[dict[str, Any], int, dict[str, str]]:
 
     check_id = accept_once(idempotency_key(), g.body_digest, create, replay=lambda found: found)
     return accepted(check_id)
+
+
+@blp.route("/<string:check_id>/samples", methods=["POST"])
+@blp.doc(
+    operationId="addSamples",
+    parameters=[IDEMPOTENCY_PARAMETER],
+    requestBody={"required": True,
+                 "content": {"application/json": {"schema": SamplesSchema}}},
+)
+@blp.response(202, CheckAcceptedSchema, headers=ACCEPTED_HEADERS,
+              description="Accepted: a new check on the union of the check's frequencies and "
+                          "the new ones (the check itself is unchanged)")
+@document_errors(blp, 400, 401, 404, 409, 413, 415, 422, 429)
+def add_samples(check_id: str):
+    """Merge new frequency samples (e.g. where a verdict's next_sweep asks) into a new check.
+
+    A frequency given twice must agree within the check's options.consistency_tolerance, else
+    422 naming it."""
+    with collector_paused():
+        return _add_samples(check_id)
+
+
+def _add_samples(check_id: str) -> tuple[dict[str, Any], int, dict[str, str]]:
+    record = _found(check_id)  # the tenant must own it
+    stored = check_store().get_request(check_id)
+    if stored is None:
+        abort_problem(404, f"no check {check_id!r}", kind="not-found")
+    try:
+        old = load_request(stored)
+    except StoredRequestError as exc:
+        abort_problem(409, f"check {check_id!r} cannot be extended: {exc}", kind="conflict")
+    try:
+        merged = merged_request(json_object_body(), old)
+    except ValidationError as exc:
+        validation_problem(exc)
+    check = new_check(merged, record.label, extends=check_id)
+
+    def create() -> str:
+        _, (new_id,) = store_checks([check])
+        return new_id
+
+    new_id = accept_once(idempotency_key(), g.body_digest, create, replay=lambda found: found)
+    body, status, headers = accepted(new_id)
+    return {**body, "extends": check_id}, status, headers
 
 
 def _found(check_id: str):

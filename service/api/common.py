@@ -186,4 +186,5 @@ def check_view(record: CheckRecord) -> dict[str, Any]:
         "finished_at": iso(record.finished_at),
         "verdict": record.verdict if record.status == "done" else None,
         "reason": record.error if record.status == "failed" else None,
+        "extends": record.extends,
     }

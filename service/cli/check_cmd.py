@@ -2,6 +2,7 @@
 
     ballast check request.json
     ballast check amplifier.s6p --map map.json
+    ballast check request.json --add more.json          # new samples merged in
 
 Prints the verdict JSON (and nothing else) on stdout. Exit codes: 0 stable, 1 unstable,
 2 indeterminate, 3 bad input (the error goes to stderr).
@@ -18,8 +19,10 @@ from typing import Any
 from marshmallow import ValidationError
 
 from service.cli import EXIT_ERROR, EXIT_INDETERMINATE, EXIT_STABLE, EXIT_UNSTABLE
-from service.runner import run_check_json
+from service.intake import load_request
 from service.schemas.errors import flatten_errors
+from service.schemas.samples import merged_request
+from workers.engine import run_check
 from workers.engine.errors import TouchstoneError
 from workers.engine.touchstone import decode_text, parse_touchstone
 
@@ -35,6 +38,13 @@ def register(subparsers: argparse._SubParsersAction) -> None:
     parser.add_argument("file", type=Path, help="a check request (.json) or a Touchstone file")
     parser.add_argument("--map", dest="map_file", type=Path,
                         help="JSON with the ports and devices (and options) for a Touchstone file")
+    parser.add_argument("--add", dest="added", type=Path, action="append", default=[],
+                        metavar="SAMPLES",
+                        help="new frequency samples to merge in before checking (repeatable): "
+                             "a JSON object with the network part of a check request at new "
+                             "frequencies, or a Touchstone file; a frequency given twice must "
+                             "agree within options.consistency_tolerance (as POST "
+                             "/v1/checks/{id}/samples)")
     parser.add_argument("--indent", type=int, default=2, help="JSON indentation (default 2)")
     parser.set_defaults(func=run)
 
@@ -66,10 +76,27 @@ def request_from_files(file: Path, map_file: Path | None) -> dict[str, Any]:
     return {**mapping, "touchstone": read_touchstone_file(file)}
 
 
+def samples_from_file(file: Path) -> dict[str, Any]:
+    """The samples body that ``file`` holds: a JSON object, or a Touchstone file's text."""
+    if file.suffix.lower() == ".json":
+        body = json.loads(file.read_text(encoding="utf-8", errors="strict"))
+        if not isinstance(body, dict):
+            raise ValueError(f"{file}: must hold a JSON object (new samples)")
+        return body
+    return {"touchstone": read_touchstone_file(file)}
+
+
 def run(args: argparse.Namespace) -> int:
     try:
-        payload = request_from_files(args.file, args.map_file)
-        verdict = run_check_json(payload)
+        request = load_request(request_from_files(args.file, args.map_file))
+        for added in args.added:
+            try:
+                request = merged_request(samples_from_file(added), request)
+            except ValidationError as exc:
+                for field, message in flatten_errors(exc.messages):
+                    print(f"ballast check: {added}: {field}: {message}", file=sys.stderr)
+                return EXIT_ERROR
+        verdict = run_check(request).to_dict()
     except ValidationError as exc:
         for field, message in flatten_errors(exc.messages):
             print(f"ballast check: {field}: {message}", file=sys.stderr)

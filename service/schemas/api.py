@@ -15,6 +15,8 @@ class CheckAcceptedSchema(Schema):
     id = fields.String(required=True)
     status = fields.String(required=True, validate=validate.OneOf(CHECK_STATUSES))
     location = fields.String(required=True)
+    extends = fields.String(metadata={
+        "description": "with POST /v1/checks/{id}/samples: the check the new one extends"})
 
 
 class CheckSchema(Schema):
@@ -33,6 +35,9 @@ class CheckSchema(Schema):
         "description": "the engine's verdict document when status is done, else null"})
     reason = fields.String(allow_none=True, required=True, metadata={
         "description": "why the check failed, when status is failed, else null"})
+    extends = fields.String(allow_none=True, required=True, metadata={
+        "description": "the check whose samples this one merges with new ones "
+                       "(POST /v1/checks/{id}/samples), else null"})
 
 
 class BatchAcceptedSchema(Schema):

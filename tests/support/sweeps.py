@@ -23,6 +23,7 @@ from typing import Literal
 import numpy as np
 
 from workers.engine.request import CheckOptions, CheckRequest, Device, Network, Port
+from workers.engine.samples import AddedSamples, merge_samples
 from workers.lumped.checkdata import s_from_y
 from workers.lumped.families import (
     LNA_FET,
@@ -286,20 +287,31 @@ def is_final(verdict) -> bool:
     return verdict.next_sweep is None
 
 
+def samples_at(circuit: SweepCircuit, frequency_hz: np.ndarray) -> AddedSamples:
+    """The circuit's S data at ``frequency_hz`` as new samples (what a flow sends to
+    ``POST /v1/checks/{id}/samples``)."""
+    request = request_at(circuit, frequency_hz)
+    return AddedSamples(request.frequency_hz, request.network)
+
+
 def follow(circuit: SweepCircuit, frequency_hz: np.ndarray, more_sweeps: int = 2,
            fmax_hz: float | None = None) -> SweepRun:
-    """Check ``circuit`` at ``frequency_hz``, then re-sample at each ``next_sweep`` (the old
-    points, the new band's stretches and the asked points: ``resample``) up to ``more_sweeps``
-    times or until the verdict is final."""
+    """Check ``circuit`` at ``frequency_hz``, then follow each ``next_sweep``: simulate the
+    points it asks for (``resample``: a log sweep of the new band's stretches and the extra
+    points), merge them into the request (``workers.engine.samples.merge_samples``, as the
+    service does) and check again, up to ``more_sweeps`` times or until the verdict is final."""
     from workers.engine import run_check
 
-    f = np.asarray(frequency_hz, dtype=float)
+    request = request_at(circuit, np.asarray(frequency_hz, dtype=float), fmax_hz)
     verdicts, grids = [], []
     for _ in range(more_sweeps + 1):
-        verdict = run_check(request_at(circuit, f, fmax_hz))
+        verdict = run_check(request)
         verdicts.append(verdict)
-        grids.append(f)
+        grids.append(request.frequency_hz)
         if is_final(verdict):
             break
-        f = resample(f, verdict.next_sweep.band_hz, verdict.next_sweep.frequencies_hz)
+        wanted = resample(request.frequency_hz, verdict.next_sweep.band_hz,
+                          verdict.next_sweep.frequencies_hz)
+        new = np.setdiff1d(wanted, request.frequency_hz)
+        request = merge_samples(request, samples_at(circuit, new))
     return SweepRun(circuit, tuple(verdicts), tuple(grids))

@@ -13,7 +13,9 @@ settled when the band includes 0 Hz, or when over at least the lowest octave of 
 [0, f_low] is then closed along the asymptote, a nearly vertical segment from N₀ to NDF(f_low)
 that cannot pass the origin: its phase change is arg(NDF(f_low) / N₀).
 *Assumes* that no natural frequency below the band shows in the lowest octave by less than the
-tolerance. A resonance below the band leaves a tail ∝ 1/f in Im NDF (and ∝ 1/f² in Re NDF), the
+tolerance. An NDF whose magnitude shrinks towards DC (as √f or faster: a zero at or near 0 Hz)
+has no non-zero DC value to close on: only a sample at 0 Hz settles that end. A resonance below
+the band leaves a tail ∝ 1/f in Im NDF (and ∝ 1/f² in Re NDF), the
 opposite trend, so a band that starts near or above one fails the test. A small |NDF − 1| or a
 share that falls towards DC is not evidence of anything here.
 
@@ -51,6 +53,7 @@ MIN_EDGE_SAMPLES = 4          # samples an edge test uses at least (beyond the o
 DC_SHAPE_TOLERANCE = 0.02     # relative spread of Im NDF/f and of Re NDF over the lowest octave
 DC_REAL_FLOOR = 1e-9          # |Im NDF| below this × |NDF| everywhere there: NDF is real
 DC_ZERO_LIMIT = 1e-6          # |N₀| below this (relative to max |NDF| there): a zero at DC
+DC_ORIGIN_SLOPE = 0.5         # |NDF| shrinking towards DC at least as f^this: it heads for 0
 TOP_SHARE_LIMIT = 0.5         # largest |NDF − 1| at the top sample of a settled top edge
 TOP_SLOPE_TOLERANCE = 0.1     # the share must fall at least as fast as f^−(1 − this)
 NEGLIGIBLE_SHARE = 1e-8       # |NDF − 1| below this at the top: the devices are gone
@@ -117,9 +120,12 @@ def judge_low_edge(frequency_hz: np.ndarray, h: np.ndarray) -> EdgeJudgement:
     re_spread = float(np.max(np.abs(hw.real - n0)) / abs(n0)) if n0 != 0 else math.inf
     spread = max(im_spread, re_spread)
     octave = span[1] >= 2.0 * span[0] * (1 - 1e-9)
-    if abs(n0) <= DC_ZERO_LIMIT * level:
-        reason = (f"Re NDF at {span[0]:.6g} Hz is {n0:.3g}: NDF heads for the origin at DC (a "
-                  "natural frequency at or near 0 Hz); sample down to 0 Hz")
+    magnitude_slope = float(np.polyfit(np.log(fw), np.log(np.abs(hw)), 1)[0]) \
+        if np.all(np.abs(hw) > 0) else math.inf
+    if abs(n0) <= DC_ZERO_LIMIT * level or magnitude_slope >= DC_ORIGIN_SLOPE:
+        reason = (f"|NDF| shrinks towards DC as f^{magnitude_slope:.2f} over {span[0]:.6g}–"
+                  f"{span[1]:.6g} Hz (Re NDF {n0:.3g} at the lowest sample): NDF heads for the "
+                  "origin at DC (a natural frequency at or near 0 Hz); sample down to 0 Hz")
         return EdgeJudgement("low", False, "open", 0.0, span[0], share, None, span, reason,
                              spread, needs_dc=True)
     if not octave:

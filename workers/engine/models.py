@@ -154,6 +154,7 @@ class RationalModel:
     poles_rad_s: np.ndarray
     doublets_removed: int
     unmatched_zeros: int
+    misses: np.ndarray | None = None  # (F,) leave-out miss per sample / max|H| (NaN: not left out)
 
     @property
     def terms(self) -> int:
@@ -249,6 +250,9 @@ def fit_response(frequency_hz: np.ndarray, h: np.ndarray) -> RationalModel:
                                                 - h[unseen[1]])])
         sampled = np.concatenate([sampled, np.abs(h[unseen[1]])])
     halves = (even,) if odd is None else (even, odd)
+    misses = np.full(f.size, np.nan)
+    left_out = unseen[0] if odd is None else np.concatenate([unseen[0], unseen[1]])
+    misses[left_out] = missed / level
     noise = max(noise, 1e-14)
     leave_out = float(np.max(missed)) / level
     with np.errstate(divide="ignore", invalid="ignore"):
@@ -274,7 +278,7 @@ def fit_response(frequency_hz: np.ndarray, h: np.ndarray) -> RationalModel:
         frequency_hz=f, scale_rad_s=scale, even=even, odd=odd, fit_error=fit_error,
         leave_out_error=leave_out, local_error=local, noise_floor=noise, validated=validated,
         zeros_rad_s=confirmed * scale, poles_rad_s=poles * scale, doublets_removed=doublets,
-        unmatched_zeros=unmatched,
+        unmatched_zeros=unmatched, misses=misses,
     )
 
 

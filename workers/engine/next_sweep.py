@@ -14,8 +14,9 @@ the extra points where the samples are too sparse.
   ``FLAT_TOP_FACTOR`` × the old top. A model zero in the right half-plane above the band asks for
   three times its frequency. Never more than ``MAX_FACTOR`` × the old band.
 * Points: around each right-half-plane zero that the samples cannot pin down (σ-spaced, where its
-  phase turns); inside every segment whose phase step the refinement could not resolve; around
-  each sharp Kurokawa point that nothing explains. At most ``MAX_POINTS``.
+  phase turns); inside every segment whose phase step the refinement could not resolve; beside
+  every sample that a model which failed its leave-out check missed by more than the validation
+  limit; around each sharp Kurokawa point that nothing explains. At most ``MAX_POINTS``.
 """
 
 from __future__ import annotations
@@ -26,6 +27,7 @@ import numpy as np
 
 from workers.engine.check import Analysis
 from workers.engine.edges import TOP_SHARE_LIMIT, EdgeJudgement
+from workers.engine.models import VALIDATION_LIMIT
 from workers.engine.refined_check import RefinedCheck
 from workers.engine.verdict import Diagnostic, NextSweep
 
@@ -93,7 +95,8 @@ def _mode_points(refined: RefinedCheck | None) -> list[float]:
     for z, pinned in zip(refined.rhp_zeros_rad_s, refined.pinned, strict=True):
         if pinned:
             continue
-        centre, width = abs(z.imag) / (2 * np.pi), max(abs(z.real) / (2 * np.pi), 1e-6 * abs(z))
+        centre = abs(z.imag) / (2 * np.pi)
+        width = max(abs(z.real), 1e-6 * abs(z)) / (2 * np.pi)
         points += [centre + k * width for k in MODE_OFFSETS if centre + k * width > 0]
     return points
 
@@ -113,6 +116,25 @@ def _segment_points(analysis: Analysis, refined: RefinedCheck | None) -> list[fl
     points = []
     for i in order:
         points += list(np.linspace(f[i], f[i + 1], SEGMENT_POINTS + 2)[1:-1])
+    return points
+
+
+def _unvalidated_points(analysis: Analysis, refined: RefinedCheck | None) -> list[float]:
+    """Points on both sides of every sample that a model which failed its leave-out check
+    missed by more than the validation limit, worst first: where the samples are too sparse
+    for the model to follow the response."""
+    model = None if refined is None else refined.model
+    if model is None or model.validated or model.misses is None:
+        return []
+    f = model.frequency_hz
+    misses = np.where(np.isfinite(model.misses), model.misses, 0.0)
+    points = []
+    for i in np.argsort(-misses):
+        if misses[i] <= VALIDATION_LIMIT:
+            break
+        for a, b in ((i - 1, i), (i, i + 1)):
+            if 0 <= a and b < f.size:
+                points += list(np.linspace(f[a], f[b], SEGMENT_POINTS + 2)[1:-1])
     return points
 
 
@@ -147,14 +169,15 @@ def next_sweep(analysis: Analysis, refined: RefinedCheck | None,
         if why_high:
             reasons.append(f"top end open ({edges.high.reason}): {why_high}")
     mode_points = _mode_points(refined)
-    segment_points = _segment_points(analysis, refined)
+    segment_points = _segment_points(analysis, refined) + _unvalidated_points(analysis, refined)
     kurokawa_points = _kurokawa_points(diagnostics)
     if mode_points:
         reasons.append(f"{len(mode_points) // len(MODE_OFFSETS) or 1} right-half-plane zero(s) "
                        "of the model not pinned down by the samples: points around them")
     if segment_points:
         reasons.append(f"{len(segment_points) // SEGMENT_POINTS} segment(s) where NDF turns "
-                       "faster than the phase-step limit and the model could not fill in")
+                       "faster than the phase-step limit, or where the model missed the samples "
+                       "it did not see, so that it could not fill in")
     if kurokawa_points:
         reasons.append("points around Kurokawa points that nothing explains")
     if not reasons:

@@ -13,7 +13,10 @@ mirror: at some sample the mirrored NDF, NDF·A, would differ from the data by a
 max |NDF|), and by at least ``PIN_MIN_PHASE_DEG`` of phase. The model reproduces the samples to
 that error level (it validated on samples it did not see), so any model that put the zero in the
 left half-plane instead would miss the samples by far more than their noise: the data, not the
-model's extrapolation, place the zero in the right half-plane. A zero whose mirror the samples
+model's extrapolation, place the zero in the right half-plane. The error level is the largest
+miss over all left-out samples, about 3–4 standard deviations of the data's noise for a few
+hundred samples, so a mirror missing one sample by ``PIN_MARGIN`` times that level sits some 30
+standard deviations out (common practice for Gaussian noise). A zero whose mirror the samples
 cannot reject (too few samples near it for its sharpness against the data's noise) is reported
 but not counted, and the next sweep asks for points around it.
 """
@@ -24,7 +27,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
-PIN_MARGIN = 30.0        # the mirror must miss the data by this × the model's error level
+PIN_MARGIN = 10.0        # the mirror must miss the data by this × the model's error level
 PIN_MIN_PHASE_DEG = 2.0  # ... and move the phase at some sample by at least this
 REAL_ZERO = 1e-9         # |Im z| below this × |z|: a real zero (no conjugate partner)
 

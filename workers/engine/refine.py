@@ -130,7 +130,9 @@ def suspect_intervals(frequency_hz: np.ndarray, ndf: np.ndarray, phase_step_limi
                 continue
             d = np.asarray(values, dtype=float) - 1.0
             with np.errstate(invalid="ignore"):
-                change = np.nonzero(np.sign(d[:-1]) * np.sign(d[1:]) < 0)[0]
+                # a sign change, a sample exactly at 1 included (it ends one interval)
+                change = np.nonzero(((d[:-1] < 0) & (d[1:] >= 0))
+                                    | ((d[:-1] > 0) & (d[1:] <= 0)))[0]
             for i in change:
                 found.append((ff[i], ff[i + 1], name))
     return _merge(found)

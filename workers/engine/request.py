@@ -67,7 +67,8 @@ class Network:
 class CheckOptions:
     """Numerical tolerances of a check (all have defaults that suit sampled RF data).
 
-    closure_tolerance: how close NDF must come to its asymptote (relative) at each band edge.
+    closure_tolerance: how far NDF may be from 1 at the top of a trusted band before the verdict
+        notes it (``asymptote_not_unity``); the band edges are judged by ``workers.engine.edges``.
     phase_step_limit_deg: largest NDF phase change allowed between neighbouring samples.
     consistency_tolerance: relative mismatch allowed between ``gain_off`` data and the devices.
     refine: run the rational-model refinement and natural-frequency identification.

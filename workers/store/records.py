@@ -64,6 +64,7 @@ class CheckRecord:
     verdict: dict[str, Any] | None = None
     error: str | None = None
     summary: VerdictSummary | None = None
+    extends: str | None = None
 
 
 @dataclass(frozen=True)
@@ -81,11 +82,13 @@ class BatchRecord:
 class NewCheck:
     """A check to store: its validated request in a stored form (``payload``, bytes the store
     keeps as they are), the name of that form (``encoding``, e.g.
-    ``workers.intake.REQUEST_ENCODING``) and an optional label."""
+    ``workers.intake.REQUEST_ENCODING``), an optional label, and ``extends``: the check whose
+    samples it merges with new ones (``POST /v1/checks/{id}/samples``), if any."""
 
     payload: bytes
     encoding: str
     label: str | None = None
+    extends: str | None = None
 
 
 @dataclass(frozen=True)

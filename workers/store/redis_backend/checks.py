@@ -91,6 +91,7 @@ class RedisCheckStore(RedisCheckLifecycle):
                 "updated_at": _t(now), "attempts": 0, "batch_id": batch_id or "",
                 "seq": seq, "label": c.label if c.label is not None else "",
                 "encoding": c.encoding, "shared": " ".join(digests),
+                "extends": c.extends or "",
             })
             pipe.expire(ck, ttl)
             pipe.set(f"{self.p}req:{ids[seq]}", c.payload, ex=ttl)

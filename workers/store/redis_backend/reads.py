@@ -22,7 +22,7 @@ SHARED_CACHE_BYTES = 64 * 1024 * 1024  # shared bytes kept per store object, by 
 FIELDS = (
     "tenant", "status", "created_at", "updated_at", "attempts", "batch_id", "label", "started_at",
     "finished_at", "lease_expires_at", "error", "verdict_name", "unstable_count",
-    "first_frequency_hz", "first_node",
+    "first_frequency_hz", "first_node", "extends",
 )
 
 
@@ -49,6 +49,7 @@ def _record(check_id: str, values: list[str | None], verdict_text: str | None) -
         started_at=_num(f["started_at"]), finished_at=_num(f["finished_at"]),
         lease_expires_at=_num(f["lease_expires_at"]), error=f["error"] or None,
         verdict=json.loads(verdict_text) if verdict_text is not None else None, summary=summary,
+        extends=f["extends"] or None,
     )
 
 

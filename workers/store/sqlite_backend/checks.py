@@ -26,7 +26,7 @@ class SqliteCheckStore(SqliteCheckLifecycle):
         blobs = dict(shared or {})  # complete once the source is read
         digests = " ".join(blobs) or None
         rows = [(cid, tenant, now, now, now, batch_id, seq, c.label, c.payload, c.encoding,
-                 digests) for seq, (cid, c) in enumerate(made)]
+                 digests, c.extends) for seq, (cid, c) in enumerate(made)]
         with self._write() as db:
             if max_unfinished is not None:
                 unfinished = self._count_unfinished(db, tenant)
@@ -44,8 +44,8 @@ class SqliteCheckStore(SqliteCheckLifecycle):
                 )
             db.executemany(
                 "INSERT INTO checks (id, tenant, status, created_at, updated_at, queued_at, "
-                "batch_id, seq, label, request, encoding, shared) "
-                "VALUES (?, ?, 'queued', ?, ?, ?, ?, ?, ?, ?, ?, ?)",
+                "batch_id, seq, label, request, encoding, shared, extends) "
+                "VALUES (?, ?, 'queued', ?, ?, ?, ?, ?, ?, ?, ?, ?, ?)",
                 rows,
             )
         if on_stored is not None:  # one transaction: handed over once, after the commit

@@ -40,7 +40,8 @@ CREATE TABLE IF NOT EXISTS checks (
     unstable_count INTEGER,
     first_frequency_hz REAL,
     first_node TEXT,
-    error TEXT
+    error TEXT,
+    extends TEXT
 );
 CREATE INDEX IF NOT EXISTS checks_tenant_status ON checks (tenant, status);
 CREATE INDEX IF NOT EXISTS checks_batch_seq ON checks (batch_id, seq);
@@ -81,7 +82,7 @@ CREATE TABLE IF NOT EXISTS rates (
 );
 """
 # Columns a file made by an earlier version lacks (its checks then read as of unknown encoding).
-ADDED_COLUMNS = {"checks": ("encoding TEXT", "shared TEXT")}
+ADDED_COLUMNS = {"checks": ("encoding TEXT", "shared TEXT", "extends TEXT")}
 
 
 class SqliteDatabase:

@@ -18,7 +18,7 @@ from workers.store.sqlite_backend.database import SqliteBase
 RECORD_COLUMNS = (
     "id, tenant, status, created_at, updated_at, attempts, batch_id, label, started_at, "
     "finished_at, lease_expires_at, error, verdict_name, unstable_count, first_frequency_hz, "
-    "first_node"
+    "first_node, extends"
 )
 
 
@@ -37,7 +37,7 @@ def record_from_row(row: sqlite3.Row, verdict_text: str | None = None) -> CheckR
         batch_id=row["batch_id"], label=row["label"], started_at=row["started_at"],
         finished_at=row["finished_at"], lease_expires_at=row["lease_expires_at"],
         verdict=json.loads(verdict_text) if verdict_text is not None else None,
-        error=row["error"], summary=summary,
+        error=row["error"], summary=summary, extends=row["extends"],
     )
 
 
