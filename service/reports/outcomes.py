@@ -99,8 +99,10 @@ def unstable_message(item: Mapping[str, Any], check: Mapping[str, Any] | None) -
     shown = item.get("first_unstable_node") or "?"
     lever = _leverage_node(modes[0]) if modes else None
     leverage = f"; most leverage at node {lever}" if lever and lever != shown else ""
+    sweep = sweep_next_text(verdict)
+    incomplete = f"; the count may be incomplete ({sweep})" if sweep else ""
     return (f"oscillates: {said}; first at {format_hz(item.get('first_unstable_frequency_hz'))}, "
-            f"node {shown}{devices}{leverage}")
+            f"node {shown}{devices}{leverage}{incomplete}")
 
 
 def indeterminate_message(check: Mapping[str, Any] | None) -> str:
@@ -120,7 +122,22 @@ def indeterminate_message(check: Mapping[str, Any] | None) -> str:
         parts.append(f"Kurokawa point at {format_hz(kurokawa[0])}, node {kurokawa[1]}")
     else:
         parts.append("no node singled out")
+    sweep = sweep_next_text(verdict)
+    if sweep:
+        parts.append(sweep)
     return "; ".join(parts)
+
+
+def sweep_next_text(verdict: Mapping[str, Any]) -> str | None:
+    """'sweep next: 3 MHz to 120 GHz, 11 more points' from the verdict's ``next_sweep``."""
+    sweep = verdict.get("next_sweep")
+    if not isinstance(sweep, Mapping):
+        return None
+    band = sweep.get("band_hz") or [None, None]
+    low = "DC" if band[0] == 0 else format_hz(band[0])
+    points = len(sweep.get("frequencies_hz") or [])
+    more = f", {points} more point{'s' if points != 1 else ''}" if points else ""
+    return f"sweep next: {low} to {format_hz(band[1])}{more}"
 
 
 def failed_message(check: Mapping[str, Any] | None) -> str:
