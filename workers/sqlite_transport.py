@@ -13,6 +13,13 @@ directly, measured against the alternatives by ``python -m tests.benchmarks.benc
 As with every virtual transport, acknowledgement is kept in the consuming process: a message
 fetched by a worker that is then killed is gone. The reconciler (``workers.reconciler``) re-queues
 such checks from the store, which is the record of truth.
+
+**Event loop.** The transport says it is asynchronous and polls the file from a timer of the
+worker's event loop (``register_with_event_loop``), so that Celery runs its prefork pool as on
+Redis (``AsynPool``: one pipe per pool process, ``-O fair``). With a transport that has no event
+loop Celery falls back to billiard's blocking pool, whose processes share one job pipe behind
+one lock: measured here, a pool process killed with ``kill -9`` while it held that lock left the
+replacement and the surviving process waiting on it for ever (two processes, no check taken).
 """
 
 from __future__ import annotations
@@ -116,6 +123,7 @@ class Transport(virtual.Transport):
 
     Channel = Channel
     max_drain_wait_s: float | None = None
+    implements = virtual.Transport.implements.extend(asynchronous=True)
 
     def __init__(self, client: Any, **kwargs: Any) -> None:
         super().__init__(client, **kwargs)
@@ -128,6 +136,20 @@ class Transport(virtual.Transport):
         if cap is not None and (timeout is None or timeout > cap):
             timeout = cap
         super().drain_events(connection, timeout=timeout)
+
+    def register_with_event_loop(self, connection: Any, loop: Any) -> None:
+        """Poll the file every ``polling_interval`` seconds from the event loop's timer."""
+        loop.call_repeatedly(self.polling_interval, self._deliver_ready, connection)
+
+    def _deliver_ready(self, connection: Any) -> None:
+        """Deliver what is waiting, as long as the consumers' prefetch allows (the channel
+        raises ``Empty`` when it is full or nothing waits)."""
+        while True:
+            try:
+                virtual.Transport.drain_events(self, connection, timeout=0)
+            except TimeoutError:  # socket.timeout, raised when nothing more can be taken
+                return
+
     can_parse_url = True
     default_port = 0
     driver_type = "sql"
