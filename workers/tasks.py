@@ -105,17 +105,18 @@ class CheckRequest(Request):
 def run_check(self: Any, check_id: str) -> str:
     """Run one stored check; returns what happened (for the worker log): done/failed/skipped.
 
-    The cyclic garbage collector is paused for the task: the request and the engine's
-    intermediate objects are freed by reference counting when the task ends, unscanned
-    (``workers.collector.collector_paused``).
+    The claim names this worker (``self.request.hostname``), so that the reconciler can hand the
+    check on if this worker's heartbeat stops. The cyclic garbage collector is paused for the
+    task: the request and the engine's intermediate objects are freed by reference counting when
+    the task ends, unscanned (``workers.collector.collector_paused``).
     """
     with collector_paused():
-        return _run_check(check_id)
+        return _run_check(check_id, getattr(self.request, "hostname", None))
 
 
-def _run_check(check_id: str) -> str:
+def _run_check(check_id: str, worker: str | None = None) -> str:
     store = process_stores().checks
-    record = store.claim(check_id, config.lease_s, config.max_attempts)
+    record = store.claim(check_id, config.lease_s, config.max_attempts, worker=worker)
     if record is None or record.status != "running":
         return "skipped"
     stored = store.get_request(check_id)

@@ -26,7 +26,7 @@ from workers.celery_app import make_app
 from workers.intake import SharedArrays
 from workers.queue import publish
 from workers.runtime_config import load_config
-from workers.store import CheckStore
+from workers.store import CheckStore, Priority, Submission
 from workers.worker_process import worker_argv
 
 REDIS_SERVER = shutil.which("redis-server")
@@ -189,21 +189,23 @@ def engine_verdicts(requests: list[dict], env: dict[str, str]) -> list[dict]:
 
 
 def stored_batch(store: CheckStore, requests: list[tuple[str, dict]],
-                 tenant: str = "t") -> list[str]:
+                 tenant: str = "t", priority: Priority = "normal") -> list[str]:
     """Store checks as the API does: validated, as one batch with its shared arrays."""
     arrays = SharedArrays()
     checks = [new_check(load_request(r), label, arrays) for label, r in requests]
-    _, ids = store.create_checks(tenant, checks, as_batch=True, shared=arrays.blobs)
+    _, ids = store.create_checks(tenant, checks, as_batch=True, shared=arrays.blobs,
+                                 submission=Submission(priority=priority))
     return ids
 
 
 def submit(store: CheckStore, env: dict[str, str], requests: list[tuple[str, dict]],
-           tenant: str = "t") -> list[str]:
-    """Store checks as the API does (one batch) and publish their ids to the env's broker."""
-    ids = stored_batch(store, requests, tenant)
+           tenant: str = "t", priority: Priority = "normal") -> list[str]:
+    """Store checks as the API does (one batch) and publish their ids to the tenant's queue on
+    the env's broker."""
+    ids = stored_batch(store, requests, tenant, priority)
     app = make_app(load_config(env))
     try:
-        publish(app, ids)
+        publish(app, ids, tenant, priority)
     finally:
         app.close()
     return ids

@@ -133,7 +133,8 @@ class CheckStore(Protocol):
         ...
 
     def tenants(self) -> list[str]:
-        """The tenants whose queues workers consume (every tenant that has queued checks)."""
+        """The tenants whose queues workers consume: every tenant that has ever queued checks
+        (a check re-queued after its worker died may be the only one of its tenant)."""
         ...
 
     def running_workers(self) -> dict[str, str | None]:

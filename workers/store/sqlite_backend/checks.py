@@ -44,6 +44,7 @@ class SqliteCheckStore(SqliteCheckLifecycle):
                 urgent = self._count_unfinished(db, tenant, urgent=True)
                 if urgent + len(checks) > max_urgent:
                     raise UrgentQuotaExceededError(max_urgent, urgent, len(checks))
+            db.execute("INSERT OR IGNORE INTO tenants (tenant) VALUES (?)", (tenant,))
             db.executemany(
                 "INSERT OR IGNORE INTO blobs (hash, body, created_at) VALUES (?, ?, ?)",
                 [(digest, body, now) for digest, body in blobs.items()],

@@ -82,6 +82,9 @@ CREATE TABLE IF NOT EXISTS idempotency (
     expires_at REAL NOT NULL,
     PRIMARY KEY (tenant, key)
 );
+CREATE TABLE IF NOT EXISTS tenants (
+    tenant TEXT PRIMARY KEY
+);
 CREATE TABLE IF NOT EXISTS webhook_secrets (
     tenant TEXT PRIMARY KEY,
     current TEXT NOT NULL,

@@ -155,8 +155,7 @@ class SqliteCheckLifecycle(SqliteCheckReads):
         return out
 
     def tenants(self) -> list[str]:
-        return [r[0] for r in self._conn().execute(
-            "SELECT DISTINCT tenant FROM checks WHERE status = 'queued' ORDER BY tenant")]
+        return [r[0] for r in self._conn().execute("SELECT tenant FROM tenants ORDER BY tenant")]
 
     def running_workers(self) -> dict[str, str | None]:
         return {r[0]: r[1] for r in self._conn().execute(
