@@ -84,3 +84,39 @@ def test_pool_refills_after_its_processes_are_killed(layout, redis_server, tmp_p
     finally:
         worker.stop()
         store.close()
+
+
+@pytest.mark.parametrize("layout", ["redis", "embedded"])
+def test_check_of_a_dead_main_process_runs_again_by_heartbeat(layout, redis_server, tmp_path):
+    """The main process of the worker running a check is killed (its pool process is left
+    running, orphaned). With a hard limit of 60 s the lease is 66 s; the heartbeat TTL is 3 s and
+    the reconciler runs every second, so the check must run again on the other worker and finish
+    well inside one lease (here: within 30 s of the kill)."""
+    env = worker_env(redis_server.url if layout == "redis" else None, tmp_path / "data",
+                     BALLAST_TEST_PAUSE_LABEL="slow", BALLAST_TEST_PAUSE_S="45")
+    store = open_stores(load_config(env).store_url).checks
+    first = Worker(tmp_path, env, name="first").start()
+    second: Worker | None = None
+    try:
+        (variant,) = variants(1, points=101)
+        (want,) = engine_verdicts([variant.request], env)
+        (check_id,) = submit(store, env, [("slow", variant.request)])
+        wait_until(lambda: store.get_check_any(check_id).status == "running", 30,
+                   "the first worker to start the check")
+        assert store.get_check_any(check_id).worker == "first@test"
+        second = Worker(tmp_path, {**env, "BALLAST_TEST_PAUSE_LABEL": "none"},
+                        name="second").start()
+        first.kill9_main()
+        killed_at = time.monotonic()
+        record = wait_until(
+            lambda: (r := store.get_check_any(check_id)).status in ("done", "failed") and r,
+            30, "the check to finish on the other worker")
+        assert time.monotonic() - killed_at < load_config(env).lease_s / 2
+        assert record.status == "done", record.error
+        assert record.attempts == 2 and record.worker == "second@test"
+        assert record.verdict == want
+    finally:
+        first.stop()
+        if second is not None:
+            second.stop()
+        store.close()

@@ -74,15 +74,22 @@ def enqueue(check_ids: list[str], tenant: str | None = None, priority: str = "no
                     exc)
 
 
-def withdraw(tenant: str, check_ids: Iterable[str]) -> int:
+def _app(celery_app: Celery | None) -> Celery:
+    if celery_app is not None:
+        return celery_app
+    from workers.celery_app import app
+
+    return app
+
+
+def withdraw(tenant: str, check_ids: Iterable[str], celery_app: Celery | None = None) -> int:
     """Remove the messages of ``check_ids`` (cancelled) from ``tenant``'s queue, so that they
     hold neither a worker nor the queue; returns how many went. Never raises for the broker: a
     message left behind finds its check cancelled and does nothing."""
     wanted = list(check_ids)
     if not wanted:
         return 0
-    from workers.celery_app import app
-
+    app = _app(celery_app)
     try:
         with app.connection_for_write() as connection:
             return int(connection.default_channel.withdraw(tenant_queue(tenant), wanted))
@@ -92,11 +99,9 @@ def withdraw(tenant: str, check_ids: Iterable[str]) -> int:
         return 0
 
 
-def queue_size(tenant: str | None) -> int:
+def queue_size(tenant: str | None, celery_app: Celery | None = None) -> int:
     """Messages waiting in ``tenant``'s queue (not counting those delivered, unacknowledged)."""
-    from workers.celery_app import app
-
-    with app.connection_for_write() as connection, connection.channel() as channel:
+    with _app(celery_app).connection_for_write() as connection, connection.channel() as channel:
         return int(channel.queue_declare(queue=tenant_queue(tenant), passive=False)
                    .message_count)
 

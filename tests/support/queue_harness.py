@@ -7,6 +7,7 @@ process group so that ``kill -9`` takes the pool processes with it.
 
 from __future__ import annotations
 
+import contextlib
 import json
 import os
 import shutil
@@ -133,8 +134,17 @@ class Worker:
         os.killpg(self.process.pid, signal.SIGKILL)
         self.process.wait(timeout=10)
 
+    def kill9_main(self) -> None:
+        """SIGKILL to the worker's main process only (its pool processes are left orphaned)."""
+        assert self.process is not None
+        os.kill(self.process.pid, signal.SIGKILL)
+        self.process.wait(timeout=10)
+
     def stop(self) -> None:
         if not self.alive():
+            if self.process is not None:  # orphaned pool processes of a killed main process
+                with contextlib.suppress(ProcessLookupError):
+                    os.killpg(self.process.pid, signal.SIGKILL)
             return
         assert self.process is not None
         os.killpg(self.process.pid, signal.SIGTERM)
