@@ -51,6 +51,7 @@ def _queue_functions(config: dict[str, Any]) -> dict[str, Callable[..., Any]]:
         "enqueue": config.get("BALLAST_ENQUEUE"),
         "workers_alive": config.get("BALLAST_WORKERS_ALIVE"),
         "queue_reachable": config.get("BALLAST_QUEUE_REACHABLE"),
+        "withdraw": config.get("BALLAST_WITHDRAW"),
     }
     if any(f is None for f in functions.values()):
         from workers import queue
@@ -59,16 +60,17 @@ def _queue_functions(config: dict[str, Any]) -> dict[str, Callable[..., Any]]:
             queue.load_publisher()
             functions["enqueue"] = queue.enqueue
         functions["workers_alive"] = functions["workers_alive"] or queue.workers_alive
+        functions["withdraw"] = functions["withdraw"] or queue.withdraw
         # a queue module without its own broker probe: a live worker implies a reachable broker
         functions["queue_reachable"] = functions["queue_reachable"] or getattr(
             queue, "broker_reachable", functions["workers_alive"])
     return functions  # type: ignore[return-value]
 
 
-def _safe_enqueue(enqueue: Callable[[list[str]], None]) -> Callable[[list[str]], None]:
-    def publish(check_ids: list[str]) -> None:
+def _safe_enqueue(enqueue: Callable[..., None]) -> Callable[..., None]:
+    def publish(check_ids: list[str], **route: Any) -> None:
         try:
-            enqueue(check_ids)
+            enqueue(check_ids, **route)
         except Exception as exc:  # stored as queued already: the reconciler will publish them
             log.warning("enqueue of %d check(s) failed: %s", len(check_ids), exc)
 
@@ -98,6 +100,7 @@ def create_app(config: dict[str, Any] | None = None) -> Flask:
         "enqueue": _safe_enqueue(functions["enqueue"]),
         "workers_alive": functions["workers_alive"],
         "queue_reachable": functions["queue_reachable"],
+        "withdraw": functions["withdraw"],
     }
     api = ProblemApi(app)
     for blueprint in BLUEPRINTS:

@@ -8,7 +8,7 @@ from __future__ import annotations
 
 from marshmallow import RAISE, Schema, fields, validate
 
-from workers.store import CHECK_STATUSES, VERDICT_NAMES
+from workers.store import CHECK_STATUSES, PRIORITIES, VERDICT_NAMES
 
 
 class CheckAcceptedSchema(Schema):
@@ -33,6 +33,7 @@ class CheckSchema(Schema):
         "description": "the engine's verdict document when status is done, else null"})
     reason = fields.String(allow_none=True, required=True, metadata={
         "description": "why the check failed, when status is failed, else null"})
+    priority = fields.String(required=True, validate=validate.OneOf(PRIORITIES))
 
 
 class BatchAcceptedSchema(Schema):
@@ -57,6 +58,10 @@ class BatchSchema(Schema):
     finished = fields.Boolean(required=True, metadata={"description": "no check left to run"})
     counts_by_status = fields.Nested(StatusCountsSchema, required=True)
     counts_by_verdict = fields.Nested(VerdictCountsSchema, required=True)
+    priority = fields.String(required=True, validate=validate.OneOf(PRIORITIES))
+    callback_url = fields.String(allow_none=True, required=True)
+    callback_status = fields.String(allow_none=True, required=True, metadata={
+        "description": "waiting, delivered or failed (null without a callback_url)"})
 
 
 class BatchListSchema(Schema):
