@@ -8,7 +8,7 @@ from typing import Any
 
 from flask import Flask
 
-from service.api import ProblemApi, batches, checks, health
+from service.api import ProblemApi, batches, callbacks, checks, health
 from service.api.body_limit import BodyLimitMiddleware
 from service.config import app_config
 from service.problems import PROBLEM_CONTENT_TYPE
@@ -18,7 +18,7 @@ log = logging.getLogger("ballast.api")
 
 API_TITLE = "ballast"
 API_VERSION = "1"
-BLUEPRINTS = (health.blp, checks.blp, batches.blp)
+BLUEPRINTS = (health.blp, checks.blp, batches.blp, callbacks.blp)
 
 _SPEC_OPTIONS = {
     "info": {

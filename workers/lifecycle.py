@@ -16,6 +16,7 @@ from typing import Any
 
 from celery.signals import worker_ready, worker_shutdown
 
+from workers.callbacks.sender import CallbackSender
 from workers.celery_app import config
 from workers.heartbeat import beat, forget, live_workers
 from workers.queue import enqueue, queue_size
@@ -111,7 +112,10 @@ def _start_services(sender: Any = None, **_: Any) -> None:
     reconciler = Reconciler(config, stores.checks, enqueue, queue_size, owner=name,
                             access=stores.access, live_workers=lambda: live_workers(config))
     reconciler.start()
-    _running.update(heartbeat=heartbeat, reconciler=reconciler, queues=queues)
+    callbacks = CallbackSender(stores.checks, stores.access)
+    callbacks.start()
+    _running.update(heartbeat=heartbeat, reconciler=reconciler, queues=queues,
+                    callbacks=callbacks)
     log.info("ballast worker %s ready (layout %s, max attempts %d, limits %g/%g s)", name,
              config.layout, config.max_attempts, config.soft_time_limit_s,
              config.hard_time_limit_s)
@@ -119,7 +123,7 @@ def _start_services(sender: Any = None, **_: Any) -> None:
 
 @worker_shutdown.connect
 def _stop_services(**_: Any) -> None:
-    for part in ("queues", "reconciler"):
+    for part in ("queues", "reconciler", "callbacks"):
         service = _running.pop(part, None)
         if service is not None:
             service.stop()

@@ -110,3 +110,11 @@ class ReadySchema(Schema):
     store = fields.Boolean(required=True)
     queue = fields.Boolean(required=True)
     workers = fields.Boolean(required=True)
+
+
+class WebhookSecretSchema(Schema):
+    secret = fields.String(required=True, metadata={
+        "description": "whsec_ + base64 of the HMAC-SHA256 key (Standard Webhooks)"})
+    previous = fields.String(allow_none=True, required=True, metadata={
+        "description": "the secret before the last rotation, while it still signs"})
+    scheme = fields.String(required=True)
