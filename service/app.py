@@ -1,14 +1,21 @@
 """The WSGI application: ``create_app(config)``; gunicorn runs ``service.app:create_app()``."""
 
+# ruff: noqa: E402 (the host's metrics folder is set before prometheus_client's first import)
+
 from __future__ import annotations
 
 import logging
+import os
 from collections.abc import Callable
 from typing import Any
 
 from flask import Flask
 
-from service.api import ProblemApi, batches, callbacks, checks, health
+from workers.metrics_dir import use_metrics_dir
+
+use_metrics_dir(os.environ)  # before prometheus_client is first imported (workers.metrics)
+
+from service.api import ProblemApi, batches, callbacks, checks, health, request_id
 from service.api.body_limit import BodyLimitMiddleware
 from service.config import app_config
 from service.problems import PROBLEM_CONTENT_TYPE
@@ -52,6 +59,7 @@ def _queue_functions(config: dict[str, Any]) -> dict[str, Callable[..., Any]]:
         "workers_alive": config.get("BALLAST_WORKERS_ALIVE"),
         "queue_reachable": config.get("BALLAST_QUEUE_REACHABLE"),
         "withdraw": config.get("BALLAST_WITHDRAW"),
+        "queue_size": config.get("BALLAST_QUEUE_SIZE"),
     }
     if any(f is None for f in functions.values()):
         from workers import queue
@@ -61,6 +69,7 @@ def _queue_functions(config: dict[str, Any]) -> dict[str, Callable[..., Any]]:
             functions["enqueue"] = queue.enqueue
         functions["workers_alive"] = functions["workers_alive"] or queue.workers_alive
         functions["withdraw"] = functions["withdraw"] or queue.withdraw
+        functions["queue_size"] = functions["queue_size"] or queue.queue_size
         # a queue module without its own broker probe: a live worker implies a reachable broker
         functions["queue_reachable"] = functions["queue_reachable"] or getattr(
             queue, "broker_reachable", functions["workers_alive"])
@@ -101,6 +110,7 @@ def create_app(config: dict[str, Any] | None = None) -> Flask:
         "workers_alive": functions["workers_alive"],
         "queue_reachable": functions["queue_reachable"],
         "withdraw": functions["withdraw"],
+        "queue_size": functions["queue_size"],
     }
     api = ProblemApi(app)
     for blueprint in BLUEPRINTS:
@@ -110,6 +120,12 @@ def create_app(config: dict[str, Any] | None = None) -> Flask:
 
     app.register_blueprint(reports_blueprint)
     # ---
+    from service.api.metrics import blp as metrics_blueprint
+    from workers.logs import configure_json_logging
+
+    app.register_blueprint(metrics_blueprint)
+    request_id.install(app)
+    configure_json_logging()
     app.wsgi_app = BodyLimitMiddleware(  # type: ignore[method-assign]
         app.wsgi_app, int(app.config["BALLAST_MAX_BODY_BYTES"]))
     return app

@@ -46,6 +46,7 @@ def api_config(stores: Stores, queue: FakeQueue, **overrides: Any) -> dict[str, 
         "BALLAST_WORKERS_ALIVE": lambda: queue.alive,
         "BALLAST_QUEUE_REACHABLE": lambda: queue.reachable,
         "BALLAST_WITHDRAW": queue.withdraw,
+        "BALLAST_QUEUE_SIZE": lambda tenant: 0,
         **overrides,
     }
 

@@ -11,13 +11,17 @@ from __future__ import annotations
 import os
 from typing import Any
 
+from workers.metrics_dir import use_metrics_dir
 from workers.threads import pin_engine_threads
 
-# One BLAS thread per worker process, set before numpy is first imported (by workers.tasks).
+# One BLAS thread per worker process, set before numpy is first imported (by workers.tasks);
+# the host's metrics folder before prometheus_client is first imported (workers.metrics).
 pin_engine_threads(os.environ)
+use_metrics_dir(os.environ)
 
 from celery import Celery  # noqa: E402 (after the thread settings)
 
+from workers.logs import configure_json_logging  # noqa: E402
 from workers.runtime_config import (  # noqa: E402
     CHECK_QUEUE,
     PRIORITY_STEPS,
@@ -105,3 +109,4 @@ def make_app(config: RuntimeConfig | None = None) -> Celery:
 
 config = load_config()
 app = make_app(config)
+configure_json_logging()

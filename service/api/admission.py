@@ -18,6 +18,7 @@ from service.api.tenancy import access_store, check_store, retry_after, tenant
 from service.config import tenant_limit
 from service.problems import abort_problem, field_errors
 from workers.callbacks.targets import TargetRefusedError, check_target
+from workers.metrics import SUBMITTED
 from workers.store import CheckSource, Submission, UrgentQuotaExceededError
 
 log = logging.getLogger("ballast.api")
@@ -64,7 +65,7 @@ def admit(checks: CheckSource, submission: Submission, **kwargs: Any
         enqueue(ids, tenant=who, priority=submission.priority)
 
     try:
-        return check_store().create_checks(
+        created = check_store().create_checks(
             who, checks, max_unfinished=int(tenant_limit(cfg, who, "max_unfinished")),
             max_urgent=max_urgent, submission=submission, on_stored=queue, **kwargs)
     except UrgentQuotaExceededError as exc:
@@ -75,6 +76,10 @@ def admit(checks: CheckSource, submission: Submission, **kwargs: Any
     except BaseException:
         access_store().count_checks(who, window, rate, -count)
         raise
+    SUBMITTED.labels(submission.priority).inc(len(created[1]))
+    log.info("accepted %d check(s)", len(created[1]),
+             extra={"tenant": who, "batch_id": created[0], "priority": submission.priority})
+    return created
 
 
 def submission(priority: str = "normal", callback_url: str | None = None) -> Submission:
