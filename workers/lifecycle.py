@@ -1,7 +1,8 @@
 """What a worker's main process runs beside Celery: the heartbeat, the reconciler, the discovery
 of tenants' queues (a worker starts consuming a tenant's queue within ``QUEUE_REFRESH_S`` of its
-first check: Celery's ``Consumer.add_task_queue``, what its ``add_consumer`` control command
-does, called on the consumer's event loop with ``call_soon``) and the sender of batch callbacks.
+token, or of its first check: Celery's ``Consumer.add_task_queue``, what its ``add_consumer``
+control command does, called on the consumer's event loop with ``call_soon``) and the sender of
+batch callbacks.
 
 Connected to Celery's ``worker_ready`` / ``worker_shutdown`` signals, so every worker started with
 ``celery -A workers.celery_app worker`` or ``ballast worker`` takes part; the pool processes that
@@ -22,7 +23,7 @@ from workers.heartbeat import beat, forget, live_workers
 from workers.queue import enqueue, queue_size
 from workers.reconciler import Reconciler
 from workers.runtime_config import tenant_queue
-from workers.store import CheckStore
+from workers.store import Stores
 from workers.store_access import open_configured_stores
 
 log = logging.getLogger("ballast.worker")
@@ -31,12 +32,13 @@ QUEUE_REFRESH_S = 1.0
 
 
 class _TenantQueues:
-    """Every ``QUEUE_REFRESH_S``, the tenants with queued checks; a queue not consumed yet is
-    handed to the consumer's event loop to start consuming."""
+    """Every ``QUEUE_REFRESH_S``, the tenants that have tokens or have queued checks; a queue not
+    consumed yet is handed to the consumer's event loop to start consuming (so a tenant's queue
+    is consumed from the moment its token exists, before its first check)."""
 
-    def __init__(self, consumer: Any, store: CheckStore) -> None:
+    def __init__(self, consumer: Any, stores: Stores) -> None:
         self.consumer = consumer
-        self.store = store
+        self.stores = stores
         self.consumed: set[str] = set()
         self._stop = threading.Event()
         self._thread = threading.Thread(target=self._loop, name="ballast-queues", daemon=True)
@@ -44,7 +46,9 @@ class _TenantQueues:
     def _loop(self) -> None:
         while True:
             try:
-                for tenant in self.store.tenants():
+                known = set(self.stores.checks.tenants())
+                known.update(t.tenant for t in self.stores.access.list_tokens())
+                for tenant in sorted(known):
                     name = tenant_queue(tenant)
                     if name not in self.consumed:
                         self.consumed.add(name)
@@ -107,7 +111,7 @@ def _start_services(sender: Any = None, **_: Any) -> None:
     heartbeat = _Heartbeat(name)
     heartbeat.start()
     stores = open_configured_stores(config)
-    queues = _TenantQueues(sender, stores.checks)
+    queues = _TenantQueues(sender, stores)
     queues.start()
     reconciler = Reconciler(config, stores.checks, enqueue, queue_size, owner=name,
                             access=stores.access, live_workers=lambda: live_workers(config))
