@@ -20,9 +20,8 @@ import requests
 
 from tests.support.queue_harness import REDIS_SERVER, engine_verdicts, wait_until
 from tests.support.queue_variants import variants
-from tests.support.tenant_load import Stack, batch_body, wait_done
-from tests.test_callbacks import Receiver
-from tests.test_observability import samples
+from tests.support.tenant_load import Stack, batch_body, samples, wait_done
+from tests.support.webhook_receiver import Receiver
 from workers.callbacks.signing import verify
 
 pytestmark = [

@@ -18,7 +18,6 @@ from pathlib import Path
 
 import pytest
 import requests
-from prometheus_client.parser import text_string_to_metric_families
 
 from service.app import create_app
 from service.auth import create_token
@@ -31,20 +30,13 @@ from tests.support.queue_harness import (
     wait_until,
     worker_env,
 )
+from tests.support.tenant_load import samples
 from workers.celery_app import make_app
 from workers.queue import publish
 from workers.runtime_config import load_config
 from workers.store import open_stores
 
 METRICS_TOKEN = "operators-only-9f3c2b"
-
-
-def samples(text: str) -> dict[tuple[str, tuple[tuple[str, str], ...]], float]:
-    out = {}
-    for family in text_string_to_metric_families(text):
-        for sample in family.samples:
-            out[(sample.name, tuple(sorted(sample.labels.items())))] = sample.value
-    return out
 
 
 def test_metrics_are_for_the_operators_token_only(api_stores, fake_queue, auth):

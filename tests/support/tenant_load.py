@@ -15,6 +15,7 @@ from typing import Any
 
 import numpy as np
 import requests
+from prometheus_client.parser import text_string_to_metric_families
 
 from service.auth import create_token
 from service.schemas.request import pack_array
@@ -136,3 +137,13 @@ def wait_done(session: requests.Session, base: str, check_id: str, headers: dict
 
 def cpu_count() -> int:
     return os.cpu_count() or 1
+
+
+def samples(text: str) -> dict[tuple[str, tuple[tuple[str, str], ...]], float]:
+    """Each sample of a Prometheus text exposition by (name, sorted labels), read with
+    prometheus_client's own parser."""
+    out = {}
+    for family in text_string_to_metric_families(text):
+        for sample in family.samples:
+            out[(sample.name, tuple(sorted(sample.labels.items())))] = sample.value
+    return out
