@@ -18,17 +18,13 @@ from pathlib import Path
 import pytest
 import requests
 
-from tests.support.queue_harness import REDIS_SERVER, engine_verdicts, wait_until
+from tests.support.queue_harness import QUEUE_TEST_MARKS, engine_verdicts, wait_until
 from tests.support.queue_variants import variants
 from tests.support.tenant_load import Stack, batch_body, samples, wait_done
 from tests.support.webhook_receiver import Receiver
 from workers.callbacks.signing import verify
 
-pytestmark = [
-    pytest.mark.integration,
-    pytest.mark.slow,
-    pytest.mark.skipif(REDIS_SERVER is None, reason="needs redis-server"),
-]
+pytestmark = [*QUEUE_TEST_MARKS, pytest.mark.slow]
 
 UNIQUE = 40  # distinct circuits; each tenant's variants cycle through them
 FEW = 4  # checks that may start between the urgent check's submission and its own start

@@ -14,7 +14,7 @@ from pathlib import Path
 import pytest
 
 from tests.support.queue_harness import (
-    REDIS_SERVER,
+    QUEUE_TEST_MARKS,
     RedisServer,
     Worker,
     all_final,
@@ -28,10 +28,7 @@ from workers.queue import queue_size, withdraw
 from workers.runtime_config import load_config
 from workers.store import open_stores
 
-pytestmark = [
-    pytest.mark.integration,
-    pytest.mark.skipif(REDIS_SERVER is None, reason="needs redis-server"),
-]
+pytestmark = QUEUE_TEST_MARKS
 
 BACKLOG = 150
 # What may run between a check's submission and its start: the backlog's check running, the one

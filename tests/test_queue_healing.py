@@ -15,13 +15,11 @@ import os
 import signal
 import subprocess
 import time
-from pathlib import Path
 
 import pytest
 
 from tests.support.queue_harness import (
-    REDIS_SERVER,
-    RedisServer,
+    QUEUE_TEST_MARKS,
     Worker,
     all_final,
     engine_verdicts,
@@ -34,10 +32,7 @@ from tests.support.queue_variants import variants
 from workers.runtime_config import load_config
 from workers.store import open_stores
 
-pytestmark = [
-    pytest.mark.integration,
-    pytest.mark.skipif(REDIS_SERVER is None, reason="needs redis-server"),
-]
+pytestmark = QUEUE_TEST_MARKS
 
 
 def pool_processes(worker: Worker) -> set[int]:
@@ -46,14 +41,6 @@ def pool_processes(worker: Worker) -> set[int]:
     out = subprocess.run(["pgrep", "-P", str(worker.process.pid)], capture_output=True,
                          text=True, check=False).stdout.split()
     return {int(pid) for pid in out}
-
-
-@pytest.fixture
-def redis_server(tmp_path: Path):
-    server = RedisServer(tmp_path / "redis")
-    server.start()
-    yield server
-    server.stop()
 
 
 @pytest.mark.parametrize("layout", ["redis", "embedded"])

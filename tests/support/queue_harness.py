@@ -20,6 +20,7 @@ from collections.abc import Callable
 from pathlib import Path
 from typing import Any
 
+import pytest
 import redis
 
 from service.intake import load_request, new_check
@@ -31,6 +32,11 @@ from workers.store import CheckStore, Priority, Submission
 from workers.worker_process import worker_argv
 
 REDIS_SERVER = shutil.which("redis-server")
+# the marks of a test module that runs real workers on private redis-servers
+QUEUE_TEST_MARKS = [
+    pytest.mark.integration,
+    pytest.mark.skipif(REDIS_SERVER is None, reason="needs redis-server"),
+]
 
 
 def free_port() -> int:
