@@ -90,7 +90,7 @@ def test_check_of_a_dead_main_process_runs_again_by_heartbeat(layout, redis_serv
         (check_id,) = submit(store, env, [("slow", variant.request)])
         wait_until(lambda: store.get_check_any(check_id).status == "running", 30,
                    "the first worker to start the check")
-        assert store.get_check_any(check_id).worker == "first@test"
+        assert store.get_check_any(check_id).worker == f"first@test#{first.process.pid}"
         second = Worker(tmp_path, {**env, "BALLAST_TEST_PAUSE_LABEL": "none"},
                         name="second").start()
         first.kill9_main()
@@ -100,7 +100,8 @@ def test_check_of_a_dead_main_process_runs_again_by_heartbeat(layout, redis_serv
             30, "the check to finish on the other worker")
         assert time.monotonic() - killed_at < load_config(env).lease_s / 2
         assert record.status == "done", record.error
-        assert record.attempts == 2 and record.worker == "second@test"
+        assert record.attempts == 2
+        assert record.worker == f"second@test#{second.process.pid}"
         assert record.verdict == want
     finally:
         first.stop()

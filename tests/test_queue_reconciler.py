@@ -118,17 +118,21 @@ def test_running_checks_of_a_worker_without_heartbeat_are_handed_on(setup):
     routed: list[tuple[list[str], dict]] = []
     reconciler = Reconciler(config, store, lambda got, **route: routed.append((got, route)),
                             lambda tenant: 0, stale_after_s=30.0,
-                            live_workers=lambda: ["alive@host"])
-    store.claim(ids[0], config.lease_s, config.max_attempts, worker="gone@host")
-    store.claim(ids[1], config.lease_s, config.max_attempts, worker="alive@host")
+                            live_workers=lambda: ["alive@host#41", "restarted@host#77"])
+    store.claim(ids[0], config.lease_s, config.max_attempts, worker="gone@host#12")
+    store.claim(ids[1], config.lease_s, config.max_attempts, worker="alive@host#41")
+    # the same name, restarted (systemd): the instance that claimed it is gone
+    store.claim(ids[2], config.lease_s, config.max_attempts, worker="restarted@host#76")
     clock.now += 1  # well inside the lease
     report = reconciler.tick(clock.now)
-    assert report.orphaned == (ids[0],)
-    assert routed == [([ids[0]], {"tenant": "t", "priority": "normal"})]
-    again = store.claim(ids[0], config.lease_s, config.max_attempts, worker="alive@host")
+    assert report.orphaned == tuple(sorted([ids[0], ids[2]]))
+    assert routed == [(sorted([ids[0], ids[2]]), {"tenant": "t", "priority": "normal"})]
+    again = store.claim(ids[0], config.lease_s, config.max_attempts, worker="alive@host#41")
     assert again is not None and again.attempts == 2
     assert store.claim(ids[1], config.lease_s, config.max_attempts) is None  # still running
-    assert reconciler.tick(clock.now + 1).orphaned == ()
+    later = reconciler.tick(clock.now + 1)
+    assert later.orphaned == (ids[2],)  # still not claimed again by anyone
+    assert later.expired == () and len(routed) == 1  # but not queued twice within a lease
 
 
 def test_no_worker_is_judged_dead_when_no_heartbeat_can_be_read(setup):

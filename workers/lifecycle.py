@@ -19,7 +19,7 @@ from celery.signals import worker_ready, worker_shutdown
 
 from workers.callbacks.sender import CallbackSender
 from workers.celery_app import config
-from workers.heartbeat import beat, forget, live_workers
+from workers.heartbeat import beat, forget, live_instances
 from workers.queue import enqueue, queue_size
 from workers.reconciler import Reconciler
 from workers.runtime_config import tenant_queue
@@ -114,7 +114,7 @@ def _start_services(sender: Any = None, **_: Any) -> None:
     queues = _TenantQueues(sender, stores)
     queues.start()
     reconciler = Reconciler(config, stores.checks, enqueue, queue_size, owner=name,
-                            access=stores.access, live_workers=lambda: live_workers(config))
+                            access=stores.access, live_workers=lambda: live_instances(config))
     reconciler.start()
     callbacks = CallbackSender(stores.checks, stores.access)
     callbacks.start()

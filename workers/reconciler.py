@@ -101,8 +101,8 @@ class Reconciler:
         live_workers: Callable[[], list[str]] | None = None,
     ) -> None:
         """``publish(ids, tenant=, priority=)`` queues checks; ``queue_size(tenant)`` counts the
-        messages waiting in a tenant's queue; ``live_workers()`` names the workers with a
-        heartbeat (None: no re-queue by heartbeat)."""
+        messages waiting in a tenant's queue; ``live_workers()`` names the worker instances with a
+        heartbeat (``workers.heartbeat.live_instances``; None: no re-queue by heartbeat)."""
         self.config = config
         self.store = store
         self.access = access
@@ -163,15 +163,16 @@ class Reconciler:
             self._lock.release()
 
     def _orphans(self) -> list[str]:
-        """Running checks claimed by a worker that has no heartbeat now (none are judged when no
-        worker at all beats: this reconciler's own worker does, so its store read failed)."""
+        """Running checks claimed by a worker instance (``<name>#<pid>``) that has no heartbeat
+        now: gone, or restarted under its name as another instance. None are judged when no
+        worker at all beats (this reconciler's own worker does, so the read failed)."""
         if self.live_workers is None:
             return []
-        live = {name.replace("/", "_") for name in self.live_workers()}
+        live = set(self.live_workers())
         if not live:
             return []
         return sorted(cid for cid, worker in self.store.running_workers().items()
-                      if worker and worker.replace("/", "_") not in live)
+                      if worker and worker not in live)
 
     def _undelivered(self, now: float) -> list[str]:
         """Queued checks older than ``stale_after_s`` of the tenants whose queue is empty."""

@@ -23,7 +23,8 @@ from celery.worker.request import Request
 
 from workers.celery_app import app, config
 from workers.collector import collector_paused
-from workers.engine import run_check as run_engine  # loaded before the worker forks its pool
+from workers.engine import run_check as run_engine
+from workers.heartbeat import instance  # loaded before the worker forks its pool
 from workers.intake import StoredRequestError, decode_stored
 from workers.logs import REQUEST_ID
 from workers.metrics import ENGINE_SECONDS, FAILED, FINISHED, REDELIVERED
@@ -109,13 +110,15 @@ class CheckRequest(Request):
 def run_check(self: Any, check_id: str) -> str:
     """Run one stored check; returns what happened (for the worker log): done/failed/skipped.
 
-    The claim names this worker (``self.request.hostname``), so that the reconciler can hand the
-    check on if this worker's heartbeat stops. The cyclic garbage collector is paused for the
+    The claim names this worker instance (``self.request.hostname`` and the pid of its main
+    process, the pool process's parent), so that the reconciler can hand the check on if that
+    instance's heartbeat stops. The cyclic garbage collector is paused for the
     task: the request and the engine's intermediate objects are freed by reference counting when
     the task ends, unscanned (``workers.collector.collector_paused``).
     """
     with collector_paused():
-        return _run_check(check_id, getattr(self.request, "hostname", None))
+        hostname = getattr(self.request, "hostname", None)
+        return _run_check(check_id, instance(hostname, os.getppid()) if hostname else None)
 
 
 def _run_check(check_id: str, worker: str | None = None) -> str:
