@@ -23,8 +23,8 @@ from celery.worker.request import Request
 
 from workers.celery_app import app, config
 from workers.collector import collector_paused
-from workers.engine import run_check as run_engine
-from workers.heartbeat import instance  # loaded before the worker forks its pool
+from workers.engine import run_check as run_engine  # loaded before the worker forks its pool
+from workers.heartbeat import instance
 from workers.intake import StoredRequestError, decode_stored
 from workers.logs import REQUEST_ID
 from workers.metrics import ENGINE_SECONDS, FAILED, FINISHED, REDELIVERED
