@@ -1,14 +1,21 @@
 """The WSGI application: ``create_app(config)``; gunicorn runs ``service.app:create_app()``."""
 
+# ruff: noqa: E402 (the host's metrics folder is set before prometheus_client's first import)
+
 from __future__ import annotations
 
 import logging
+import os
 from collections.abc import Callable
 from typing import Any
 
 from flask import Flask
 
-from service.api import ProblemApi, batches, checks, health
+from workers.metrics_dir import use_metrics_dir
+
+use_metrics_dir(os.environ)  # before prometheus_client is first imported (workers.metrics)
+
+from service.api import ProblemApi, batches, callbacks, checks, health, request_id
 from service.api.body_limit import BodyLimitMiddleware
 from service.config import app_config
 from service.problems import PROBLEM_CONTENT_TYPE
@@ -18,7 +25,7 @@ log = logging.getLogger("ballast.api")
 
 API_TITLE = "ballast"
 API_VERSION = "1"
-BLUEPRINTS = (health.blp, checks.blp, batches.blp)
+BLUEPRINTS = (health.blp, checks.blp, batches.blp, callbacks.blp)
 
 _SPEC_OPTIONS = {
     "info": {
@@ -51,6 +58,8 @@ def _queue_functions(config: dict[str, Any]) -> dict[str, Callable[..., Any]]:
         "enqueue": config.get("BALLAST_ENQUEUE"),
         "workers_alive": config.get("BALLAST_WORKERS_ALIVE"),
         "queue_reachable": config.get("BALLAST_QUEUE_REACHABLE"),
+        "withdraw": config.get("BALLAST_WITHDRAW"),
+        "queue_size": config.get("BALLAST_QUEUE_SIZE"),
     }
     if any(f is None for f in functions.values()):
         from workers import queue
@@ -59,16 +68,18 @@ def _queue_functions(config: dict[str, Any]) -> dict[str, Callable[..., Any]]:
             queue.load_publisher()
             functions["enqueue"] = queue.enqueue
         functions["workers_alive"] = functions["workers_alive"] or queue.workers_alive
+        functions["withdraw"] = functions["withdraw"] or queue.withdraw
+        functions["queue_size"] = functions["queue_size"] or queue.queue_size
         # a queue module without its own broker probe: a live worker implies a reachable broker
         functions["queue_reachable"] = functions["queue_reachable"] or getattr(
             queue, "broker_reachable", functions["workers_alive"])
     return functions  # type: ignore[return-value]
 
 
-def _safe_enqueue(enqueue: Callable[[list[str]], None]) -> Callable[[list[str]], None]:
-    def publish(check_ids: list[str]) -> None:
+def _safe_enqueue(enqueue: Callable[..., None]) -> Callable[..., None]:
+    def publish(check_ids: list[str], **route: Any) -> None:
         try:
-            enqueue(check_ids)
+            enqueue(check_ids, **route)
         except Exception as exc:  # stored as queued already: the reconciler will publish them
             log.warning("enqueue of %d check(s) failed: %s", len(check_ids), exc)
 
@@ -98,6 +109,8 @@ def create_app(config: dict[str, Any] | None = None) -> Flask:
         "enqueue": _safe_enqueue(functions["enqueue"]),
         "workers_alive": functions["workers_alive"],
         "queue_reachable": functions["queue_reachable"],
+        "withdraw": functions["withdraw"],
+        "queue_size": functions["queue_size"],
     }
     api = ProblemApi(app)
     for blueprint in BLUEPRINTS:
@@ -107,6 +120,12 @@ def create_app(config: dict[str, Any] | None = None) -> Flask:
 
     app.register_blueprint(reports_blueprint)
     # ---
+    from service.api.metrics import blp as metrics_blueprint
+    from workers.logs import configure_json_logging
+
+    app.register_blueprint(metrics_blueprint)
+    request_id.install(app)
+    configure_json_logging()
     app.wsgi_app = BodyLimitMiddleware(  # type: ignore[method-assign]
         app.wsgi_app, int(app.config["BALLAST_MAX_BODY_BYTES"]))
     return app

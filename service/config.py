@@ -11,7 +11,15 @@ Keys (all upper case, in the Flask config):
 - ``BALLAST_MAX_VARIANTS``: largest batch.
 - ``BALLAST_MAX_UNFINISHED``: queued + running checks per tenant (429 above).
 - ``BALLAST_RATE_LIMIT`` requests per ``BALLAST_RATE_WINDOW_S`` seconds per tenant (429 above).
-- ``BALLAST_TENANT_LIMITS``: ``{tenant: {"max_unfinished": n, "rate_limit": n}}`` overrides.
+- ``BALLAST_CHECK_RATE_LIMIT`` checks created per ``BALLAST_RATE_WINDOW_S`` per tenant (429
+  above; a batch counts each of its variants).
+- ``BALLAST_MAX_URGENT``: unfinished urgent checks per tenant (429 above; 422 for a batch larger
+  than it).
+- ``BALLAST_TENANT_LIMITS``: ``{tenant: {"max_unfinished": n, "rate_limit": n,
+  "check_rate_limit": n, "max_urgent": n}}`` overrides.
+- ``BALLAST_CALLBACK_ALLOW_PRIVATE``: ``1`` lets batch callbacks go to loopback, link-local and
+  private addresses (refused with 422 otherwise).
+- ``BALLAST_METRICS_TOKEN``: the operators' token for ``GET /metrics`` (unset: 404).
 - ``BALLAST_RETENTION_S``: how long checks and batches are kept (default 7 days).
 - ``BALLAST_RETRY_AFTER_S``: the polling interval suggested with 202 responses.
 """
@@ -34,6 +42,12 @@ DEFAULTS: dict[str, Any] = {
     "BALLAST_MAX_UNFINISHED": 50_000,
     "BALLAST_RATE_LIMIT": 1_200,
     "BALLAST_RATE_WINDOW_S": 60.0,
+    "BALLAST_CHECK_RATE_LIMIT": 20_000,
+    "BALLAST_MAX_URGENT": 20,
+    "BALLAST_CALLBACK_ALLOW_PRIVATE": False,
+    "BALLAST_METRICS_TOKEN": None,
+    "BALLAST_WITHDRAW": None,
+    "BALLAST_QUEUE_SIZE": None,
     "BALLAST_TENANT_LIMITS": {},
     "BALLAST_RETENTION_S": 7 * 24 * 3600.0,
     "BALLAST_RETRY_AFTER_S": 2,
@@ -51,6 +65,9 @@ _FROM_ENV = {
     "BALLAST_MAX_UNFINISHED": int,
     "BALLAST_RATE_LIMIT": int,
     "BALLAST_RATE_WINDOW_S": float,
+    "BALLAST_CHECK_RATE_LIMIT": int,
+    "BALLAST_MAX_URGENT": int,
+    "BALLAST_METRICS_TOKEN": str,
     "BALLAST_RETENTION_S": float,
     "BALLAST_RETRY_AFTER_S": int,
 }
@@ -65,6 +82,9 @@ def app_config(overrides: dict[str, Any] | None = None,
         raw = env.get(name, "").strip()
         if raw:
             config[name] = kind(raw)
+    allow = env.get("BALLAST_CALLBACK_ALLOW_PRIVATE", "").strip().lower()
+    if allow:
+        config["BALLAST_CALLBACK_ALLOW_PRIVATE"] = allow in ("1", "true", "yes")
     limits = env.get("BALLAST_TENANT_LIMITS", "").strip()
     if limits:  # JSON: {"tenant": {"max_unfinished": n, "rate_limit": n}}
         config["BALLAST_TENANT_LIMITS"] = json.loads(limits)
@@ -72,9 +92,18 @@ def app_config(overrides: dict[str, Any] | None = None,
     return config
 
 
+_LIMIT_SETTINGS = {
+    "max_unfinished": "BALLAST_MAX_UNFINISHED",
+    "rate_limit": "BALLAST_RATE_LIMIT",
+    "check_rate_limit": "BALLAST_CHECK_RATE_LIMIT",
+    "max_urgent": "BALLAST_MAX_URGENT",
+}
+
+
 def tenant_limit(config: dict[str, Any], tenant: str, name: str) -> Any:
-    """A per-tenant limit (``max_unfinished`` or ``rate_limit``), falling back to the default."""
+    """A per-tenant limit (``max_unfinished``, ``rate_limit``, ``check_rate_limit`` or
+    ``max_urgent``), falling back to the default."""
     override = (config.get("BALLAST_TENANT_LIMITS") or {}).get(tenant, {})
     if name in override:
         return override[name]
-    return config["BALLAST_MAX_UNFINISHED" if name == "max_unfinished" else "BALLAST_RATE_LIMIT"]
+    return config[_LIMIT_SETTINGS[name]]

@@ -128,9 +128,22 @@ def prepare_token(config: RuntimeConfig) -> str:
     return token
 
 
+def metrics_folder(config: RuntimeConfig) -> Path:
+    """The folder the API and worker processes share for their metrics samples, emptied (a new
+    run starts its counters at zero, as prometheus_client's multiprocess mode asks)."""
+    folder = Path(os.environ.get("BALLAST_METRICS_DIR") or config.data_dir / "metrics")
+    if folder.is_dir():
+        for sample in folder.glob("*.db"):
+            sample.unlink()
+    folder.mkdir(parents=True, exist_ok=True)
+    return folder
+
+
 def child_processes(config: RuntimeConfig, options: ServeOptions) -> list[Child]:
     env = dict(os.environ)
     env["BALLAST_DATA_DIR"] = str(config.data_dir)
+    env["BALLAST_METRICS_DIR"] = str(metrics_folder(config))
+    env.pop("PROMETHEUS_MULTIPROC_DIR", None)
     env.setdefault("PYTHONUNBUFFERED", "1")
     pin_engine_threads(env)  # honours BALLAST_ENGINE_THREADS, as workers/celery_app.py does
     logs = config.data_dir / "logs"

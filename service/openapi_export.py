@@ -38,6 +38,7 @@ def generate() -> dict[str, Any]:
         "BALLAST_STORES": Stores(_NoStore(), _NoStore()),  # type: ignore[arg-type]
         "BALLAST_ENQUEUE": unused,
         "BALLAST_WORKERS_ALIVE": unused, "BALLAST_QUEUE_REACHABLE": unused,
+        "BALLAST_WITHDRAW": unused, "BALLAST_QUEUE_SIZE": unused,
     })
     with app.app_context():
         return app.extensions["flask-smorest"]["apis"][""]["ext_obj"].spec.to_dict()

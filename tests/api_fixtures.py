@@ -25,11 +25,18 @@ from workers.store.sqlite_backend import SqliteAccessStore, SqliteCheckStore, Sq
 @dataclass
 class FakeQueue:
     enqueued: list[str] = field(default_factory=list)
+    routes: list[dict[str, Any]] = field(default_factory=list)
+    withdrawn: list[tuple[str, list[str]]] = field(default_factory=list)
     alive: bool = True
     reachable: bool = True
 
-    def enqueue(self, check_ids: list[str]) -> None:
+    def enqueue(self, check_ids: list[str], **route: Any) -> None:
         self.enqueued += check_ids
+        self.routes.append(route)
+
+    def withdraw(self, tenant: str, check_ids: list[str]) -> int:
+        self.withdrawn.append((tenant, list(check_ids)))
+        return len(check_ids)
 
 
 def api_config(stores: Stores, queue: FakeQueue, **overrides: Any) -> dict[str, Any]:
@@ -38,6 +45,8 @@ def api_config(stores: Stores, queue: FakeQueue, **overrides: Any) -> dict[str, 
         "BALLAST_ENQUEUE": queue.enqueue,
         "BALLAST_WORKERS_ALIVE": lambda: queue.alive,
         "BALLAST_QUEUE_REACHABLE": lambda: queue.reachable,
+        "BALLAST_WITHDRAW": queue.withdraw,
+        "BALLAST_QUEUE_SIZE": lambda tenant: 0,
         **overrides,
     }
 

@@ -38,7 +38,7 @@ class InlineQueue:
         self._thread = threading.Thread(target=self._work, name="inline-queue", daemon=True)
         self._thread.start()
 
-    def enqueue(self, check_ids: list[str]) -> None:
+    def enqueue(self, check_ids: list[str], **route: Any) -> None:
         for check_id in check_ids:
             self._ids.put(check_id)
 

@@ -65,6 +65,18 @@ def sqlite_stores(path, clock: FakeClock, **kwargs: float) -> Stores:
                   SqliteAccessStore(database=database, clock=clock, **kwargs))
 
 
+@pytest.fixture
+def redis_server(tmp_path):
+    """A private redis-server on a spare port for the worker tests (tests.support.queue_harness),
+    shut down afterwards."""
+    from tests.support.queue_harness import RedisServer
+
+    server = RedisServer(tmp_path / "redis")
+    server.start()
+    yield server
+    server.stop()
+
+
 @pytest.fixture(params=["sqlite", "redis"])
 def stores(request: pytest.FixtureRequest, tmp_path, clock: FakeClock) -> Iterator[Stores]:
     """The same tests run on both store implementations."""

@@ -53,6 +53,7 @@ def test_every_endpoint_of_the_issue_is_documented():
         "/v1/batches": {"post", "get"}, "/v1/batches/{batch_id}": {"get", "delete"},
         "/v1/batches/{batch_id}/checks": {"get"}, "/healthz": {"get"}, "/readyz": {"get"},
         "/v1/checks/{check_id}/samples": {"post"},
+        "/v1/callbacks/secret": {"get", "post"},  # issue 10: verifying batch callbacks
     }
     assert {p: set(ops) - {"parameters"} for p, ops in paths.items()} == expected
 
@@ -67,6 +68,7 @@ _FUZZ_DIR = Path(tempfile.mkdtemp(prefix="ballast-fuzz-"))
 _FUZZ_STORE = sqlite_file_stores(_FUZZ_DIR / "fuzz.sqlite3")
 _FUZZ_TOKEN = create_token(_FUZZ_STORE.access, "fuzz")
 _FUZZ_APP = create_app(api_config(_FUZZ_STORE, FakeQueue(), BALLAST_RATE_LIMIT=10**9,
+                                  BALLAST_CHECK_RATE_LIMIT=10**9,
                                   BALLAST_MAX_BODY_BYTES=1 << 20))
 schema = schemathesis.openapi.from_wsgi("/openapi.json", _FUZZ_APP)
 

@@ -34,8 +34,8 @@ def setup(tmp_path: Path):
     store = SqliteCheckStore(tmp_path / "store.sqlite3", clock=clock)
     published: list[list[str]] = []
     queue_size = {"n": 0}
-    reconciler = Reconciler(config, store, published.append, lambda: queue_size["n"],
-                            stale_after_s=30.0)
+    reconciler = Reconciler(config, store, lambda ids, **route: published.append(ids),
+                            lambda tenant: queue_size["n"], stale_after_s=30.0)
     new = [NewCheck(b"request %d" % i, "test/opaque", f"c{i}") for i in range(3)]
     _, ids = store.create_checks("t", new, as_batch=True)
     yield config, clock, store, published, queue_size, reconciler, ids
@@ -101,10 +101,55 @@ def test_final_checks_are_never_requeued(setup):
 
 def test_only_one_reconciler_runs_a_pass_at_a_time(setup):
     config, clock, store, _, _, reconciler, _ = setup
-    other = Reconciler(config, store, lambda ids: None, lambda: 0, owner="other")
+    other = Reconciler(config, store, lambda ids, **route: None, lambda tenant: 0,
+                       owner="other")
     assert other._lock.acquire("other")  # another process in the middle of its pass
     try:
         assert reconciler.tick(clock.now).skipped_not_leader
     finally:
         other._lock.release()
     assert not reconciler.tick(clock.now).skipped_not_leader
+
+
+def test_running_checks_of_a_worker_without_heartbeat_are_handed_on(setup):
+    """A worker whose main process died stops beating: its running checks are released and
+    re-queued on the next pass, long before their lease ends (issue 10, workers that heal)."""
+    config, clock, store, _, _, _, ids = setup
+    routed: list[tuple[list[str], dict]] = []
+    reconciler = Reconciler(config, store, lambda got, **route: routed.append((got, route)),
+                            lambda tenant: 0, stale_after_s=30.0,
+                            live_workers=lambda: ["alive@host#41", "restarted@host#77"])
+    store.claim(ids[0], config.lease_s, config.max_attempts, worker="gone@host#12")
+    store.claim(ids[1], config.lease_s, config.max_attempts, worker="alive@host#41")
+    # the same name, restarted (systemd): the instance that claimed it is gone
+    store.claim(ids[2], config.lease_s, config.max_attempts, worker="restarted@host#76")
+    clock.now += 1  # well inside the lease
+    report = reconciler.tick(clock.now)
+    assert report.orphaned == tuple(sorted([ids[0], ids[2]]))
+    assert routed == [(sorted([ids[0], ids[2]]), {"tenant": "t", "priority": "normal"})]
+    again = store.claim(ids[0], config.lease_s, config.max_attempts, worker="alive@host#41")
+    assert again is not None and again.attempts == 2
+    assert store.claim(ids[1], config.lease_s, config.max_attempts) is None  # still running
+    later = reconciler.tick(clock.now + 1)
+    assert later.orphaned == (ids[2],)  # still not claimed again by anyone
+    assert later.expired == () and len(routed) == 1  # but not queued twice within a lease
+
+
+def test_no_worker_is_judged_dead_when_no_heartbeat_can_be_read(setup):
+    config, clock, store, _, _, _, ids = setup
+    reconciler = Reconciler(config, store, lambda got, **route: None, lambda tenant: 0,
+                            live_workers=lambda: [])
+    store.claim(ids[0], config.lease_s, config.max_attempts, worker="w@host")
+    assert reconciler.tick(clock.now + 1).orphaned == ()
+
+
+def test_undelivered_checks_are_requeued_per_tenant_whose_queue_is_empty(setup):
+    config, clock, store, *_ = setup
+    _, other = store.create_checks("u", [NewCheck(b"x", "test/opaque", "u0")])
+    routed: list[tuple[list[str], dict]] = []
+    sizes = {"t": 4, "u": 0}  # t's messages are still waiting; u's queue is empty
+    reconciler = Reconciler(config, store, lambda got, **route: routed.append((got, route)),
+                            lambda tenant: sizes[tenant], stale_after_s=30.0)
+    clock.now += 31
+    assert reconciler.tick(clock.now).undelivered == tuple(other)
+    assert routed == [(other, {"tenant": "u", "priority": "normal"})]

@@ -41,14 +41,6 @@ SHORT_LIMITS = {"BALLAST_SOFT_TIME_LIMIT_S": "2", "BALLAST_HARD_TIME_LIMIT_S": "
 
 
 @pytest.fixture
-def redis_server(tmp_path: Path):
-    server = RedisServer(tmp_path / "redis")
-    server.start()
-    yield server
-    server.stop()
-
-
-@pytest.fixture
 def store(redis_server: RedisServer):
     store = open_stores(redis_server.url).checks
     yield store

@@ -11,14 +11,23 @@ from __future__ import annotations
 import os
 from typing import Any
 
+from workers.metrics_dir import use_metrics_dir
 from workers.threads import pin_engine_threads
 
-# One BLAS thread per worker process, set before numpy is first imported (by workers.tasks).
+# One BLAS thread per worker process, set before numpy is first imported (by workers.tasks);
+# the host's metrics folder before prometheus_client is first imported (workers.metrics).
 pin_engine_threads(os.environ)
+use_metrics_dir(os.environ)
 
 from celery import Celery  # noqa: E402 (after the thread settings)
 
-from workers.runtime_config import CHECK_QUEUE, RuntimeConfig, load_config  # noqa: E402
+from workers.logs import configure_json_logging  # noqa: E402
+from workers.runtime_config import (  # noqa: E402
+    CHECK_QUEUE,
+    PRIORITY_STEPS,
+    RuntimeConfig,
+    load_config,
+)
 
 REDIS_TRANSPORT = "workers.redis_transport:Transport"
 SQLITE_TRANSPORT = "workers.sqlite_transport:Transport"
@@ -72,6 +81,10 @@ def celery_settings(config: RuntimeConfig) -> dict[str, Any]:
             "socket_keepalive": True,
             "retry_on_timeout": True,
             "health_check_interval": 10,
+            # one list per queue and priority: urgent (0) before normal (5), tenants' queues
+            # taken in turn (kombu's default round_robin queue order)
+            "priority_steps": list(PRIORITY_STEPS),
+            "queue_order_strategy": "round_robin",
         }
     elif config.broker_url.startswith("sqlite:///"):
         # The embedded broker: one SQLite file polled every 0.1 s (workers.sqlite_transport).
@@ -96,3 +109,4 @@ def make_app(config: RuntimeConfig | None = None) -> Celery:
 
 config = load_config()
 app = make_app(config)
+configure_json_logging()

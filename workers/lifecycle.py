@@ -1,4 +1,8 @@
-"""What a worker's main process runs beside Celery: the heartbeat and the reconciler.
+"""What a worker's main process runs beside Celery: the heartbeat, the reconciler, the discovery
+of tenants' queues (a worker starts consuming a tenant's queue within ``QUEUE_REFRESH_S`` of its
+token, or of its first check: Celery's ``Consumer.add_task_queue``, what its ``add_consumer``
+control command does, called on the consumer's event loop with ``call_soon``) and the sender of
+batch callbacks.
 
 Connected to Celery's ``worker_ready`` / ``worker_shutdown`` signals, so every worker started with
 ``celery -A workers.celery_app worker`` or ``ballast worker`` takes part; the pool processes that
@@ -13,20 +17,61 @@ from typing import Any
 
 from celery.signals import worker_ready, worker_shutdown
 
-from workers.celery_app import app, config
-from workers.heartbeat import beat, forget
-from workers.queue import enqueue
+from workers.callbacks.sender import CallbackSender
+from workers.celery_app import config
+from workers.heartbeat import beat, forget, live_instances
+from workers.queue import enqueue, queue_size
 from workers.reconciler import Reconciler
-from workers.runtime_config import CHECK_QUEUE
+from workers.runtime_config import tenant_queue
+from workers.store import Stores
 from workers.store_access import open_configured_stores
 
 log = logging.getLogger("ballast.worker")
 
+QUEUE_REFRESH_S = 1.0
 
-def broker_queue_size() -> int:
-    """Messages waiting in the check queue (not counting those delivered and unacknowledged)."""
-    with app.connection_for_write() as connection, connection.channel() as channel:
-        return int(channel.queue_declare(queue=CHECK_QUEUE).message_count)
+
+class _TenantQueues:
+    """Every ``QUEUE_REFRESH_S``, the tenants that have tokens or have queued checks; a queue not
+    consumed yet is handed to the consumer's event loop to start consuming (so a tenant's queue
+    is consumed from the moment its token exists, before its first check)."""
+
+    def __init__(self, consumer: Any, stores: Stores) -> None:
+        self.consumer = consumer
+        self.stores = stores
+        self.consumed: set[str] = set()
+        self._stop = threading.Event()
+        self._thread = threading.Thread(target=self._loop, name="ballast-queues", daemon=True)
+
+    def _loop(self) -> None:
+        while True:
+            try:
+                known = set(self.stores.checks.tenants())
+                known.update(t.tenant for t in self.stores.access.list_tokens())
+                for tenant in sorted(known):
+                    name = tenant_queue(tenant)
+                    if name not in self.consumed:
+                        self.consumed.add(name)
+                        self.consumer.call_soon(self._consume, name)
+            except Exception as exc:  # the store may be restarting
+                log.warning("could not list the tenants' queues: %s", exc)
+            if self._stop.wait(QUEUE_REFRESH_S):
+                return
+
+    def _consume(self, name: str) -> None:
+        """On the consumer's event loop: start consuming ``name`` (again after a reconnect)."""
+        if self.consumer.task_consumer is None:  # reconnecting: try again on the next pass
+            self.consumed.discard(name)
+            return
+        self.consumer.add_task_queue(name, exchange=name, exchange_type="direct",
+                                     routing_key=name)
+
+    def start(self) -> None:
+        self._thread.start()
+
+    def stop(self) -> None:
+        self._stop.set()
+        self._thread.join(timeout=5)
 
 
 class _Heartbeat:
@@ -66,10 +111,15 @@ def _start_services(sender: Any = None, **_: Any) -> None:
     heartbeat = _Heartbeat(name)
     heartbeat.start()
     stores = open_configured_stores(config)
-    reconciler = Reconciler(config, stores.checks, enqueue, broker_queue_size, owner=name,
-                            access=stores.access)
+    queues = _TenantQueues(sender, stores)
+    queues.start()
+    reconciler = Reconciler(config, stores.checks, enqueue, queue_size, owner=name,
+                            access=stores.access, live_workers=lambda: live_instances(config))
     reconciler.start()
-    _running.update(heartbeat=heartbeat, reconciler=reconciler)
+    callbacks = CallbackSender(stores.checks, stores.access)
+    callbacks.start()
+    _running.update(heartbeat=heartbeat, reconciler=reconciler, queues=queues,
+                    callbacks=callbacks)
     log.info("ballast worker %s ready (layout %s, max attempts %d, limits %g/%g s)", name,
              config.layout, config.max_attempts, config.soft_time_limit_s,
              config.hard_time_limit_s)
@@ -77,9 +127,10 @@ def _start_services(sender: Any = None, **_: Any) -> None:
 
 @worker_shutdown.connect
 def _stop_services(**_: Any) -> None:
-    reconciler = _running.pop("reconciler", None)
-    if reconciler is not None:
-        reconciler.stop()
+    for part in ("queues", "reconciler", "callbacks"):
+        service = _running.pop(part, None)
+        if service is not None:
+            service.stop()
     heartbeat = _running.pop("heartbeat", None)
     if heartbeat is not None:
         heartbeat.stop()

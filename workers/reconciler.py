@@ -2,9 +2,12 @@
 
 Every ``reconcile_interval_s`` one reconciler (a leader lock elects one per tick across hosts):
 
+* re-queues ``running`` checks whose worker has stopped sending heartbeats (its main process
+  died: the heartbeat key expires after ``BALLAST_HEARTBEAT_TTL_S``), ending their lease now,
+  so that they run again within about TTL + interval instead of after a whole lease;
 * re-queues ``running`` checks whose lease has expired (their worker died or hung past the hard
   limit); the next claim counts the attempt, so a check that kills every worker ends ``failed``;
-* when the broker's check queue is empty, re-queues ``queued`` checks older than
+* for each tenant whose queue is empty, re-queues its ``queued`` checks older than
   ``stale_after_s``: with nothing waiting in the queue, such a check was never delivered (a
   publish that failed, a message dropped with a killed worker's prefetch);
 * once an hour, purges what is older than the stores' retention (checks, batches, their shared
@@ -29,7 +32,7 @@ from typing import IO
 import redis
 
 from workers.runtime_config import RuntimeConfig
-from workers.store import AccessStore, CheckStore
+from workers.store import AccessStore, CheckStore, Route
 
 log = logging.getLogger("ballast.reconciler")
 
@@ -43,6 +46,7 @@ class TickReport:
 
     expired: tuple[str, ...] = ()
     undelivered: tuple[str, ...] = ()
+    orphaned: tuple[str, ...] = ()
     skipped_not_leader: bool = False
 
 
@@ -88,18 +92,23 @@ class Reconciler:
         self,
         config: RuntimeConfig,
         store: CheckStore,
-        publish: Callable[[list[str]], None],
-        queue_size: Callable[[], int],
+        publish: Callable[..., None],
+        queue_size: Callable[[str], int],
         *,
         owner: str = "reconciler",
         stale_after_s: float | None = None,
         access: AccessStore | None = None,
+        live_workers: Callable[[], list[str]] | None = None,
     ) -> None:
+        """``publish(ids, tenant=, priority=)`` queues checks; ``queue_size(tenant)`` counts the
+        messages waiting in a tenant's queue; ``live_workers()`` names the worker instances with a
+        heartbeat (``workers.heartbeat.live_instances``; None: no re-queue by heartbeat)."""
         self.config = config
         self.store = store
         self.access = access
         self.publish = publish
         self.queue_size = queue_size
+        self.live_workers = live_workers
         self.owner = owner
         if stale_after_s is None:
             stale_after_s = max(3 * config.reconcile_interval_s, 10.0)
@@ -126,18 +135,21 @@ class Reconciler:
         if not self._lock.acquire(self.owner):
             return TickReport(skipped_not_leader=True)
         try:
-            expired = self._fresh(self.store.expired_leases(now), now, self.config.lease_s)
-            undelivered: list[str] = []
-            if self.queue_size() == 0:
-                # touch_queued below restarts their clocks: no re-queue before stale_after_s
-                undelivered = self.store.queued_ids(older_than=now - self.stale_after_s)
+            orphaned = self._orphans()
+            for check_id in orphaned:
+                self.store.release(check_id)  # its lease ends now: the next delivery claims it
+            lost = sorted(set(self.store.expired_leases(now)) | set(orphaned))
+            expired = self._fresh(lost, now, self.config.lease_s)
+            undelivered = self._undelivered(now)
             todo = expired + undelivered
             if todo:
-                self.publish(todo)
+                self._publish_routed(todo)
                 if undelivered:
+                    # touch_queued restarts their clocks: no re-queue before stale_after_s
                     self.store.touch_queued(undelivered, now)
-                log.warning("re-queued %d expired lease(s) and %d undelivered check(s)",
-                            len(expired), len(undelivered))
+                log.warning("re-queued %d check(s) of workers without a heartbeat, %d expired "
+                            "lease(s) and %d undelivered check(s)", len(orphaned),
+                            len(set(expired) - set(orphaned)), len(undelivered))
             if now - self._last_purge >= PURGE_EVERY_S:
                 self._last_purge = now
                 purged = self.store.purge(now)
@@ -145,9 +157,39 @@ class Reconciler:
                     self.access.purge(now)
                 if purged:
                     log.info("purged %d check(s) older than the retention", purged)
-            return TickReport(expired=tuple(expired), undelivered=tuple(undelivered))
+            return TickReport(expired=tuple(expired), undelivered=tuple(undelivered),
+                              orphaned=tuple(orphaned))
         finally:
             self._lock.release()
+
+    def _orphans(self) -> list[str]:
+        """Running checks claimed by a worker instance (``<name>#<pid>``) that has no heartbeat
+        now: gone, or restarted under its name as another instance. None are judged when no
+        worker at all beats (this reconciler's own worker does, so the read failed)."""
+        if self.live_workers is None:
+            return []
+        live = set(self.live_workers())
+        if not live:
+            return []
+        return sorted(cid for cid, worker in self.store.running_workers().items()
+                      if worker and worker not in live)
+
+    def _undelivered(self, now: float) -> list[str]:
+        """Queued checks older than ``stale_after_s`` of the tenants whose queue is empty."""
+        empty = {t for t in self.store.tenants() if self.queue_size(t) == 0}
+        if not empty:
+            return []
+        stale = self.store.queued_ids(older_than=now - self.stale_after_s)
+        routes = self.store.routes(stale)
+        return [cid for cid in stale if cid in routes and routes[cid].tenant in empty]
+
+    def _publish_routed(self, check_ids: list[str]) -> None:
+        """Publish each check to its tenant's queue at its priority."""
+        groups: dict[Route, list[str]] = {}
+        for check_id, route in self.store.routes(check_ids).items():
+            groups.setdefault(route, []).append(check_id)
+        for route, ids in groups.items():
+            self.publish(ids, tenant=route.tenant, priority=route.priority)
 
     # -- background thread -------------------------------------------------------------------
     def _loop(self) -> None:

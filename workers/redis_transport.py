@@ -16,6 +16,10 @@ borrowing a connection from the pool.
 
 ``Channel.collected_puts()`` lets a publisher of many messages (the API queueing a batch) push
 them in one pipelined round trip instead of one LPUSH round trip each.
+
+``Channel.withdraw(queue, check_ids)`` takes the messages of cancelled checks out of a queue in
+one Lua script per priority list (atomic with the workers' BRPOP and the API's LPUSH), so that a
+cancelled batch of thousands of checks leaves nothing behind for workers to skip.
 """
 
 from __future__ import annotations
@@ -27,7 +31,32 @@ from typing import Any
 from kombu.transport import redis as kombu_redis
 from kombu.utils.json import dumps
 
+from workers.runtime_config import CHECK_HEADER
+
 DEFAULT_RESTORE_INTERVAL_S = 10.0
+
+# KEYS[1] = one priority list of a queue; ARGV = check ids -> how many messages were removed.
+# The survivors are pushed back in their order (LRANGE reads head to tail; RPUSH appends).
+LUA_WITHDRAW = """
+local wanted = {}
+for i = 1, #ARGV do wanted[ARGV[i]] = true end
+local items = redis.call('LRANGE', KEYS[1], 0, -1)
+local keep = {}
+local removed = 0
+for _, item in ipairs(items) do
+  local ok, message = pcall(cjson.decode, item)
+  local ref = ok and type(message) == 'table' and type(message.headers) == 'table'
+    and message.headers['""" + CHECK_HEADER + """']
+  if ref and wanted[ref] then removed = removed + 1 else keep[#keep + 1] = item end
+end
+if removed > 0 then
+  redis.call('DEL', KEYS[1])
+  for i = 1, #keep, 1000 do
+    redis.call('RPUSH', KEYS[1], unpack(keep, i, math.min(i + 999, #keep)))
+  end
+end
+return removed
+"""
 
 
 class QoS(kombu_redis.QoS):
@@ -70,6 +99,18 @@ class Channel(kombu_redis.Channel):
             return
         priority = self._get_message_priority(message, reverse=False)
         self._collected.append((self._q_for_pri(queue, priority), dumps(message)))
+
+    def withdraw(self, queue: str, check_ids: list[str]) -> int:
+        """Remove the messages naming ``check_ids`` (header ``ballast_check``) from ``queue``'s
+        lists; returns how many were removed."""
+        removed = 0
+        with self.conn_or_acquire() as client:
+            script = client.register_script(LUA_WITHDRAW)
+            for pri in self.priority_steps:
+                for start in range(0, len(check_ids), 5000):
+                    removed += int(script(keys=[self._q_for_pri(queue, pri)],
+                                          args=check_ids[start:start + 5000]))
+        return removed
 
     @contextmanager
     def conn_or_acquire(self, client: Any = None) -> Iterator[Any]:

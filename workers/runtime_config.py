@@ -23,6 +23,18 @@ Layout = Literal["redis", "embedded"]
 
 CHECK_QUEUE = "ballast.checks"
 RUN_CHECK_TASK = "ballast.run_check"
+# Each tenant's checks wait in a queue of their own, which workers consume round-robin; within
+# it, urgent messages are taken first (kombu message priorities: the lower number first, on the
+# Redis transport and on the embedded SQLite one alike).
+MESSAGE_PRIORITY = {"urgent": 0, "normal": 5}
+PRIORITY_STEPS = (0, 5)
+CHECK_HEADER = "ballast_check"  # message header naming the check (to withdraw cancelled ones)
+
+
+def tenant_queue(tenant: str | None) -> str:
+    """The queue of ``tenant``'s checks (``ballast.checks.<tenant>``); no tenant: the shared
+    queue that messages of earlier versions used."""
+    return f"{CHECK_QUEUE}.{tenant}" if tenant else CHECK_QUEUE
 
 
 def _env_float(env: dict[str, str], name: str, default: float) -> float:

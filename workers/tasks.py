@@ -24,8 +24,12 @@ from celery.worker.request import Request
 from workers.celery_app import app, config
 from workers.collector import collector_paused
 from workers.engine import run_check as run_engine  # loaded before the worker forks its pool
+from workers.heartbeat import instance
 from workers.intake import StoredRequestError, decode_stored
+from workers.logs import REQUEST_ID
+from workers.metrics import ENGINE_SECONDS, FAILED, FINISHED, REDELIVERED
 from workers.runtime_config import RUN_CHECK_TASK
+from workers.store import CheckStore
 from workers.store_access import process_stores
 
 log = logging.getLogger("ballast.worker")
@@ -87,7 +91,8 @@ class CheckRequest(Request):
         check_id = str(self.args[0])
         reason = f"time limit exceeded: the check ran longer than {timeout:g} s (hard limit)"
         try:
-            process_stores().checks.fail(check_id, reason)
+            if process_stores().checks.fail(check_id, reason):
+                FAILED.inc()
         except Exception:  # the lease expiry path still ends the check
             log.exception("could not record the hard time-out of %s", check_id)
 
@@ -105,44 +110,65 @@ class CheckRequest(Request):
 def run_check(self: Any, check_id: str) -> str:
     """Run one stored check; returns what happened (for the worker log): done/failed/skipped.
 
-    The cyclic garbage collector is paused for the task: the request and the engine's
-    intermediate objects are freed by reference counting when the task ends, unscanned
-    (``workers.collector.collector_paused``).
+    The claim names this worker instance (``self.request.hostname`` and the pid of its main
+    process, the pool process's parent), so that the reconciler can hand the check on if that
+    instance's heartbeat stops. The cyclic garbage collector is paused for the
+    task: the request and the engine's intermediate objects are freed by reference counting when
+    the task ends, unscanned (``workers.collector.collector_paused``).
     """
     with collector_paused():
-        return _run_check(check_id)
+        hostname = getattr(self.request, "hostname", None)
+        return _run_check(check_id, instance(hostname, os.getppid()) if hostname else None)
 
 
-def _run_check(check_id: str) -> str:
+def _run_check(check_id: str, worker: str | None = None) -> str:
     store = process_stores().checks
-    record = store.claim(check_id, config.lease_s, config.max_attempts)
+    record = store.claim(check_id, config.lease_s, config.max_attempts, worker=worker)
     if record is None or record.status != "running":
         return "skipped"
+    if record.attempts > 1:
+        REDELIVERED.inc()
+    token = REQUEST_ID.set(record.request_id)  # the request that sent it, in every line below
+    fields = {"check_id": check_id, "tenant": record.tenant, "attempt": record.attempts,
+              "priority": record.priority, "batch_id": record.batch_id}
+    try:
+        log.info("check started", extra=fields)
+        outcome = _run_claimed(store, check_id, record.label, fields)
+        log.info("check %s", outcome, extra=fields)
+        return outcome
+    finally:
+        REQUEST_ID.reset(token)
+
+
+def _fail(store: CheckStore, check_id: str, reason: str) -> str:
+    if store.fail(check_id, reason):
+        FAILED.inc()
+    return "failed"
+
+
+def _run_claimed(store: CheckStore, check_id: str, label: str | None,
+                 fields: dict[str, Any]) -> str:
     stored = store.get_request(check_id)
     if stored is None:
-        store.fail(check_id, "the check's request is missing from the store")
-        return "failed"
+        return _fail(store, check_id, "the check's request is missing from the store")
+    started = time.perf_counter()
     try:
-        _test_hooks(record.label)
+        _test_hooks(label)
         verdict = run_engine(decode_stored(stored)).to_dict()
     except SoftTimeLimitExceeded:
-        reason = (
-            f"time limit exceeded: the check ran longer than {config.soft_time_limit_s:g} s"
-        )
-        store.fail(check_id, reason)
-        return "failed"
+        return _fail(store, check_id, "time limit exceeded: the check ran longer than "
+                                      f"{config.soft_time_limit_s:g} s")
     except StoredRequestError as exc:  # a damaged record, or one stored by another version
-        reason = f"the stored request cannot be read: {exc}"
-        store.fail(check_id, reason)
-        return "failed"
+        return _fail(store, check_id, f"the stored request cannot be read: {exc}")
     except ValueError as exc:  # the engine's InputError and TouchstoneError
-        reason = f"invalid check request: {exc}"
-        store.fail(check_id, reason)
-        return "failed"
+        return _fail(store, check_id, f"invalid check request: {exc}")
     except Exception as exc:
-        log.exception("engine error on check %s", check_id)
-        reason = f"engine error: {type(exc).__name__}: {exc}"
-        store.fail(check_id, reason)
-        return "failed"
-    store.complete(check_id, verdict)
+        log.exception("engine error on check %s", check_id, extra=fields)
+        return _fail(store, check_id, f"engine error: {type(exc).__name__}: {exc}")
+    seconds = time.perf_counter() - started
+    ENGINE_SECONDS.observe(seconds)
+    fields.update(verdict=verdict.get("verdict"), engine_seconds=round(seconds, 4))
+    if not store.complete(check_id, verdict):
+        return "skipped"  # cancelled (or handed on) while it ran
+    FINISHED.labels(str(verdict.get("verdict"))).inc()
     return "done"

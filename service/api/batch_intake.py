@@ -39,7 +39,7 @@ from workers.engine.errors import TouchstoneError
 from workers.engine.touchstone import decode_text
 from workers.engine.touchstone.options import ports_from_filename
 from workers.intake import SharedArrays
-from workers.store import NewCheck
+from workers.store import NewCheck, Priority
 
 MAX_REPORTED_ERRORS = 100
 
@@ -52,6 +52,8 @@ class BatchIntake:
     label: str | None
     checks: ValidatedVariants
     fingerprint: str | None
+    priority: Priority = "normal"
+    callback_url: str | None = None
 
 
 class _Problems:
@@ -158,7 +160,7 @@ def json_batch() -> BatchIntake:
 
     return BatchIntake(body.get("label"),
                        ValidatedVariants(len(texts), variant, shared, "variants"),
-                       g.body_digest)
+                       g.body_digest, body["priority"], body.get("callback_url"))
 
 
 def multipart_form() -> dict[str, Any]:
@@ -201,14 +203,16 @@ def multipart_batch() -> BatchIntake:
     fingerprint = (_upload_fingerprint(label, shared, files)
                    if request.headers.get(IDEMPOTENCY_HEADER) is not None else None)
     return BatchIntake(label, ValidatedVariants(len(files), variant, shared, "files"),
-                       fingerprint)
+                       fingerprint, body["priority"], body.get("callback_url"))
 
 
 def _upload_fingerprint(label: str | None, shared: dict[str, Any],
                         files: Sequence[tuple[str | None, bytes]]) -> str:
     """SHA-256 over the label, the map and each file's name and bytes (a multipart body's part
     boundaries change from one sending to the next, so its bytes cannot be the fingerprint)."""
-    digest = hashlib.sha256(json.dumps([label, shared], sort_keys=True).encode())
+    digest = hashlib.sha256(json.dumps(
+        [label, shared, request.form.get("priority"), request.form.get("callback_url")],
+        sort_keys=True).encode())
     for name, data in files:
         digest.update(json.dumps(name).encode() + hashlib.sha256(data).digest())
     return digest.hexdigest()

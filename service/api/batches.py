@@ -20,6 +20,7 @@ from flask import current_app, request, url_for
 from flask_smorest import Blueprint
 from marshmallow import RAISE
 
+from service.api.admission import submission, withdraw_cancelled
 from service.api.batch_intake import json_batch, multipart_batch
 from service.api.checks import IDEMPOTENCY_PARAMETER
 from service.api.common import (
@@ -88,9 +89,11 @@ def submit_batch():
 
 def _submit_batch() -> tuple[dict[str, Any], int, dict[str, str]]:
     intake = multipart_batch() if request.mimetype == "multipart/form-data" else json_batch()
+    hook = intake.callback_url
 
     def create() -> str:
-        batch_id, _ = store_checks(intake.checks, as_batch=True, batch_label=intake.label,
+        batch_id, _ = store_checks(intake.checks, submission(intake.priority, hook),
+                                   as_batch=True, batch_label=intake.label,
                                    shared=intake.checks.arrays.blobs)
         assert batch_id is not None
         return batch_id
@@ -110,6 +113,9 @@ def batch_view(record: BatchRecord, size: int | None = None) -> dict[str, Any]:
         "finished": not any(by_status[s] for s in UNFINISHED_STATUSES),
         "counts_by_status": by_status,
         "counts_by_verdict": by_verdict,
+        "priority": record.priority,
+        "callback_url": record.callback_url,
+        "callback_status": record.callback_status,
     }
 
 
@@ -150,6 +156,8 @@ def cancel_batch(batch_id: str):
     record = check_store().cancel_batch(tenant(), batch_id)
     if record is None:
         abort_problem(404, f"no batch {batch_id!r}", kind="not-found")
+    if record.counts_by_status.get("cancelled"):
+        withdraw_cancelled(list(record.check_ids))
     return batch_view(record, size=len(record.check_ids))
 
 

@@ -8,6 +8,7 @@ from flask import current_app, g, url_for
 from flask_smorest import Blueprint
 from marshmallow import ValidationError
 
+from service.api.admission import submission, withdraw_cancelled
 from service.api.common import (
     IDEMPOTENCY_HEADER,
     accept_once,
@@ -24,6 +25,7 @@ from service.problems import abort_problem
 from service.schemas.api import CheckAcceptedSchema, CheckSchema
 from service.schemas.request import CheckRequestSchema
 from service.schemas.samples import SamplesSchema, merged_request
+from service.schemas.submission import CheckSubmissionSchema, load_priority
 from workers.collector import collector_paused
 from workers.engine.request import CheckRequest
 from workers.intake import StoredRequestError
@@ -67,7 +69,7 @@ def validate_request(body: dict[str, Any]) -> CheckRequest:
     operationId="submitCheck",
     parameters=[IDEMPOTENCY_PARAMETER],
     requestBody={"required": True,
-                 "content": {"application/json": {"schema": CheckRequestSchema}}},
+                 "content": {"application/json": {"schema": CheckSubmissionSchema}}},
 )
 @blp.response(202, CheckAcceptedSchema, headers=ACCEPTED_HEADERS,
               description="Accepted: the check is queued")
@@ -79,10 +81,15 @@ def submit_check():
 
 
 def _submit_check() -> tuple[dict[str, Any], int, dict[str, str]]:
-    check = new_check(validate_request(json_object_body()))  # stored as validated
+    body = json_object_body()
+    try:  # how it is queued is not part of the check request
+        priority = load_priority(body.pop("priority", "normal"))
+    except ValidationError as exc:
+        validation_problem(exc)
+    check = new_check(validate_request(body))  # stored as validated
 
     def create() -> str:
-        _, (check_id,) = store_checks([check])
+        _, (check_id,) = store_checks([check], submission(priority))
         return check_id
 
     check_id = accept_once(idempotency_key(), g.body_digest, create, replay=lambda found: found)
@@ -118,14 +125,16 @@ def _add_samples(check_id: str) -> tuple[dict[str, Any], int, dict[str, str]]:
         old = load_request(stored)
     except StoredRequestError as exc:
         abort_problem(409, f"check {check_id!r} cannot be extended: {exc}", kind="conflict")
-    try:
-        merged = merged_request(json_object_body(), old)
+    body = json_object_body()
+    try:  # queued like the check it extends unless the body says otherwise
+        priority = load_priority(body.pop("priority", record.priority))
+        merged = merged_request(body, old)
     except ValidationError as exc:
         validation_problem(exc)
     check = new_check(merged, record.label, extends=check_id)
 
     def create() -> str:
-        _, (new_id,) = store_checks([check])
+        _, (new_id,) = store_checks([check], submission(priority))
         return new_id
 
     new_id = accept_once(idempotency_key(), g.body_digest, create, replay=lambda found: found)
@@ -165,4 +174,6 @@ def cancel_check(check_id: str):
     record = check_store().cancel_check(tenant(), check_id)
     if record is None:
         abort_problem(404, f"no check {check_id!r}", kind="not-found")
+    if record.status == "cancelled":
+        withdraw_cancelled([check_id])
     return check_view(record)

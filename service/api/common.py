@@ -14,11 +14,10 @@ from marshmallow import ValidationError
 
 from service.api.body_limit import BODY_BYTES_KEY
 from service.api.jsonbody import parse_body, reject_constant
-from service.api.tenancy import access_store, check_store, retry_after, tenant
-from service.config import tenant_limit
+from service.api.tenancy import access_store, retry_after, tenant
 from service.problems import PROBLEM_CONTENT_TYPE, ProblemSchema, abort_problem, field_errors
 from service.schemas.errors import flatten_errors
-from workers.store import CheckRecord, CheckSource, QuotaExceededError
+from workers.store import CheckRecord, CheckSource, QuotaExceededError, Submission
 
 IDEMPOTENCY_HEADER = "Idempotency-Key"
 _RETRY_AFTER = {"Retry-After": {"schema": {"type": "integer"},
@@ -164,13 +163,13 @@ def create_with_quota(create: Callable[[], str]) -> str:
                       headers={"Retry-After": retry_after(30)})
 
 
-def store_checks(checks: CheckSource, **kwargs: Any) -> tuple[str | None, list[str]]:
-    """Store for the current tenant under its unfinished-checks quota; the ids are queued as the
-    store reports them stored (chunk by chunk for a large batch in Redis)."""
-    limit = int(tenant_limit(current_app.config, tenant(), "max_unfinished"))
-    enqueue = current_app.extensions["ballast"]["enqueue"]
-    return check_store().create_checks(tenant(), checks, max_unfinished=limit,
-                                       on_stored=enqueue, **kwargs)
+def store_checks(checks: CheckSource, submission: Submission | None = None, **kwargs: Any
+                 ) -> tuple[str | None, list[str]]:
+    """Store for the current tenant under its quotas and rate of checks, and queue the ids as
+    the store reports them stored (``service.api.admission``)."""
+    from service.api.admission import admit
+
+    return admit(checks, submission or Submission(), **kwargs)
 
 
 def check_view(record: CheckRecord) -> dict[str, Any]:
@@ -187,4 +186,5 @@ def check_view(record: CheckRecord) -> dict[str, Any]:
         "verdict": record.verdict if record.status == "done" else None,
         "reason": record.error if record.status == "failed" else None,
         "extends": record.extends,
+        "priority": record.priority,
     }

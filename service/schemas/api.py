@@ -8,7 +8,7 @@ from __future__ import annotations
 
 from marshmallow import RAISE, Schema, fields, validate
 
-from workers.store import CHECK_STATUSES, VERDICT_NAMES
+from workers.store import CHECK_STATUSES, PRIORITIES, VERDICT_NAMES
 
 
 class CheckAcceptedSchema(Schema):
@@ -38,6 +38,7 @@ class CheckSchema(Schema):
     extends = fields.String(allow_none=True, required=True, metadata={
         "description": "the check whose samples this one merges with new ones "
                        "(POST /v1/checks/{id}/samples), else null"})
+    priority = fields.String(required=True, validate=validate.OneOf(PRIORITIES))
 
 
 class BatchAcceptedSchema(Schema):
@@ -62,6 +63,10 @@ class BatchSchema(Schema):
     finished = fields.Boolean(required=True, metadata={"description": "no check left to run"})
     counts_by_status = fields.Nested(StatusCountsSchema, required=True)
     counts_by_verdict = fields.Nested(VerdictCountsSchema, required=True)
+    priority = fields.String(required=True, validate=validate.OneOf(PRIORITIES))
+    callback_url = fields.String(allow_none=True, required=True)
+    callback_status = fields.String(allow_none=True, required=True, metadata={
+        "description": "waiting, delivered or failed (null without a callback_url)"})
 
 
 class BatchListSchema(Schema):
@@ -110,3 +115,11 @@ class ReadySchema(Schema):
     store = fields.Boolean(required=True)
     queue = fields.Boolean(required=True)
     workers = fields.Boolean(required=True)
+
+
+class WebhookSecretSchema(Schema):
+    secret = fields.String(required=True, metadata={
+        "description": "whsec_ + base64 of the HMAC-SHA256 key (Standard Webhooks)"})
+    previous = fields.String(allow_none=True, required=True, metadata={
+        "description": "the secret before the last rotation, while it still signs"})
+    scheme = fields.String(required=True)

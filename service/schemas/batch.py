@@ -26,6 +26,7 @@ from marshmallow import RAISE, Schema, ValidationError, fields, validate
 
 from service.schemas.errors import flatten_errors
 from service.schemas.request import CheckRequestSchema
+from service.schemas.submission import callback_url_field, priority_field
 from workers.engine.request import CheckRequest
 
 # Check request members a batch's shared map or one of its variants may give.
@@ -123,6 +124,8 @@ class BatchRequestSchema(_Strict):
     map = SharedMap(BatchMapSchema, metadata={"description": "shared members, stored once"})
     variants = VariantList(fields.Nested(BatchVariantSchema), required=True,
                            validate=validate.Length(min=1))
+    priority = priority_field()
+    callback_url = callback_url_field()
 
 
 class BatchUploadSchema(_Strict):
@@ -139,6 +142,8 @@ class BatchUploadSchema(_Strict):
         metadata={"description": "Touchstone files; each file's name is its label"},
         error_messages={"required": "send one Touchstone file per variant in parts named 'files'"},
     )
+    priority = priority_field()
+    callback_url = callback_url_field()
 
 
 class VariantError(Exception):

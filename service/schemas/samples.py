@@ -15,6 +15,7 @@ import numpy as np
 from marshmallow import RAISE, ValidationError, fields, post_load
 
 from service.schemas.request import FloatArray, NetworkSchema, Transconductance, _network
+from service.schemas.submission import priority_field
 from workers.engine.errors import InputError
 from workers.engine.request import MAX_POINTS, CheckRequest
 from workers.engine.samples import AddedSamples, merge_samples
@@ -33,6 +34,7 @@ class SamplesSchema(NetworkSchema):
     gain_off = fields.Nested(NetworkSchema, metadata={
         "description": "required when the check has gain_off data: the same at the new "
                        "frequencies"})
+    priority = priority_field()  # read by the API before the schema: how the new check queues
     gm_s = fields.Dict(keys=fields.String(), values=Transconductance(), metadata={
         "description": "by device name: the transconductance at the new frequencies, for "
                        "devices whose gm varies with frequency"})

@@ -7,6 +7,7 @@ process group so that ``kill -9`` takes the pool processes with it.
 
 from __future__ import annotations
 
+import contextlib
 import json
 import os
 import shutil
@@ -19,6 +20,7 @@ from collections.abc import Callable
 from pathlib import Path
 from typing import Any
 
+import pytest
 import redis
 
 from service.intake import load_request, new_check
@@ -26,10 +28,15 @@ from workers.celery_app import make_app
 from workers.intake import SharedArrays
 from workers.queue import publish
 from workers.runtime_config import load_config
-from workers.store import CheckStore
+from workers.store import CheckStore, Priority, Submission
 from workers.worker_process import worker_argv
 
 REDIS_SERVER = shutil.which("redis-server")
+# the marks of a test module that runs real workers on private redis-servers
+QUEUE_TEST_MARKS = [
+    pytest.mark.integration,
+    pytest.mark.skipif(REDIS_SERVER is None, reason="needs redis-server"),
+]
 
 
 def free_port() -> int:
@@ -133,8 +140,17 @@ class Worker:
         os.killpg(self.process.pid, signal.SIGKILL)
         self.process.wait(timeout=10)
 
+    def kill9_main(self) -> None:
+        """SIGKILL to the worker's main process only (its pool processes are left orphaned)."""
+        assert self.process is not None
+        os.kill(self.process.pid, signal.SIGKILL)
+        self.process.wait(timeout=10)
+
     def stop(self) -> None:
         if not self.alive():
+            if self.process is not None:  # orphaned pool processes of a killed main process
+                with contextlib.suppress(ProcessLookupError):
+                    os.killpg(self.process.pid, signal.SIGKILL)
             return
         assert self.process is not None
         os.killpg(self.process.pid, signal.SIGTERM)
@@ -189,21 +205,23 @@ def engine_verdicts(requests: list[dict], env: dict[str, str]) -> list[dict]:
 
 
 def stored_batch(store: CheckStore, requests: list[tuple[str, dict]],
-                 tenant: str = "t") -> list[str]:
+                 tenant: str = "t", priority: Priority = "normal") -> list[str]:
     """Store checks as the API does: validated, as one batch with its shared arrays."""
     arrays = SharedArrays()
     checks = [new_check(load_request(r), label, arrays) for label, r in requests]
-    _, ids = store.create_checks(tenant, checks, as_batch=True, shared=arrays.blobs)
+    _, ids = store.create_checks(tenant, checks, as_batch=True, shared=arrays.blobs,
+                                 submission=Submission(priority=priority))
     return ids
 
 
 def submit(store: CheckStore, env: dict[str, str], requests: list[tuple[str, dict]],
-           tenant: str = "t") -> list[str]:
-    """Store checks as the API does (one batch) and publish their ids to the env's broker."""
-    ids = stored_batch(store, requests, tenant)
+           tenant: str = "t", priority: Priority = "normal") -> list[str]:
+    """Store checks as the API does (one batch) and publish their ids to the tenant's queue on
+    the env's broker."""
+    ids = stored_batch(store, requests, tenant, priority)
     app = make_app(load_config(env))
     try:
-        publish(app, ids)
+        publish(app, ids, tenant, priority)
     finally:
         app.close()
     return ids

@@ -17,8 +17,11 @@ from workers.store.records import (
     BatchRecord,
     CheckRecord,
     CheckSource,
+    DueCallback,
     IdempotencyState,
+    Route,
     StoredRequest,
+    Submission,
     TokenRecord,
 )
 
@@ -34,8 +37,13 @@ class CheckStore(Protocol):
         as_batch: bool = False, shared: Mapping[str, bytes] | None = None,
         max_unfinished: int | None = None,
         on_stored: Callable[[list[str]], None] | None = None,
+        submission: Submission | None = None, max_urgent: int | None = None,
     ) -> tuple[str | None, list[str]]:
         """Store requests as ``queued``; returns (batch id or None, check ids).
+
+        ``submission`` gives their priority, the id of the request that sent them and a batch's
+        callback URL; urgent checks also count against ``max_urgent`` unfinished urgent checks
+        per tenant (:class:`UrgentQuotaExceededError`, storing nothing).
 
         ``shared`` (content hash → bytes) is what the checks' payloads may refer to: each entry
         is stored once and handed back with every check's request; a lazy source may add to it
@@ -73,10 +81,13 @@ class CheckStore(Protocol):
     def count_unfinished(self, tenant: str) -> int: ...
 
     # -- state changes (compare-and-set) ----------------------------------------------------------
-    def claim(self, check_id: str, lease_s: float, max_attempts: int) -> CheckRecord | None:
+    def claim(self, check_id: str, lease_s: float, max_attempts: int,
+              worker: str | None = None) -> CheckRecord | None:
         """queued (or running with an expired lease) → running, attempts += 1; else None.
 
         A check whose attempts already reached ``max_attempts`` becomes ``failed`` instead.
+        ``worker`` (the claiming worker's name) is kept while it runs, so that the reconciler can
+        hand the check on when that worker's heartbeat stops.
         """
         ...
 
@@ -116,6 +127,32 @@ class CheckStore(Protocol):
         """Delete what is older than the retention; returns how many checks went (Redis: TTLs)."""
         ...
 
+    # -- queues per tenant, running checks per worker ---------------------------------------------
+    def routes(self, check_ids: list[str]) -> dict[str, Route]:
+        """Each known check's tenant and priority (what its queue message needs)."""
+        ...
+
+    def tenants(self) -> list[str]:
+        """The tenants whose queues workers consume: every tenant that has ever queued checks
+        (a check re-queued after its worker died may be the only one of its tenant)."""
+        ...
+
+    def running_workers(self) -> dict[str, str | None]:
+        """Running checks and the worker that claimed each (None: claimed by an older version)."""
+        ...
+
+    # -- batch callbacks --------------------------------------------------------------------------
+    def due_callbacks(self, now: float, lease_s: float, limit: int = 20) -> list[DueCallback]:
+        """Finished batches whose callback waits and is due; each is held for ``lease_s`` (not
+        handed out again meanwhile), so that one sender delivers it at a time."""
+        ...
+
+    def callback_result(self, batch_id: str, *, delivered: bool, attempts: int,
+                        next_at: float | None, error: str | None = None) -> None:
+        """Record an attempt: delivered, to be tried again at ``next_at``, or (``next_at`` None
+        and not delivered) given up."""
+        ...
+
     def ping(self) -> bool: ...
     def close(self) -> None: ...
 
@@ -142,6 +179,21 @@ class AccessStore(Protocol):
     def revoke_token(self, token_hash: str) -> bool: ...
     def hit_rate(self, tenant: str, window_s: float, limit: int) -> float:
         """Count one request in the tenant's current window; 0 if allowed, else seconds to wait."""
+        ...
+
+    def count_checks(self, tenant: str, window_s: float, limit: int, amount: int) -> float:
+        """Count ``amount`` checks created in the tenant's current window if they fit under
+        ``limit`` (0 returned), else count nothing and return the seconds to wait; a negative
+        ``amount`` gives checks back (a submission that failed after counting)."""
+        ...
+
+    def webhook_secrets(self, tenant: str, now: float) -> tuple[str, ...]:
+        """The tenant's callback signing secrets: the current one first, then a previous one
+        still inside its grace period after a rotation; empty if none was made."""
+        ...
+
+    def put_webhook_secret(self, tenant: str, secret: str, now: float, grace_s: float) -> None:
+        """Make ``secret`` the current one; the one it replaces stays valid for ``grace_s``."""
         ...
 
     def purge(self, now: float) -> int:

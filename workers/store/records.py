@@ -14,6 +14,9 @@ UNFINISHED_STATUSES: frozenset[str] = frozenset({"queued", "running"})
 VerdictName = Literal["stable", "unstable", "indeterminate"]
 VERDICT_NAMES: tuple[str, ...] = ("stable", "unstable", "indeterminate")
 IdempotencyState = Literal["new", "pending", "mismatch", "done"]
+Priority = Literal["normal", "urgent"]
+PRIORITIES: tuple[str, ...] = ("normal", "urgent")
+CallbackStatus = Literal["waiting", "delivered", "failed"]
 
 DEFAULT_RETENTION_S = 7 * 24 * 3600.0
 RELEASED_LEASE_AGE_S = 1.0  # a released lease reads as having ended this long ago
@@ -23,13 +26,22 @@ UNKNOWN_ENCODING = "unknown (stored by an earlier version)"
 class QuotaExceededError(Exception):
     """Storing these checks would take the tenant above its limit of unfinished checks."""
 
+    what = "unfinished checks"
+
     def __init__(self, limit: int, unfinished: int, requested: int) -> None:
         super().__init__(
-            f"{unfinished} unfinished checks + {requested} new would exceed the limit of {limit}"
+            f"{unfinished} {self.what} + {requested} new would exceed the limit of {limit}"
         )
         self.limit = limit
         self.unfinished = unfinished
         self.requested = requested
+
+
+class UrgentQuotaExceededError(QuotaExceededError):
+    """Storing these urgent checks would take the tenant above its limit of unfinished urgent
+    checks (urgent is bounded per tenant so that it cannot become the default)."""
+
+    what = "unfinished urgent checks"
 
 
 @dataclass(frozen=True)
@@ -65,6 +77,9 @@ class CheckRecord:
     error: str | None = None
     summary: VerdictSummary | None = None
     extends: str | None = None
+    priority: Priority = "normal"
+    request_id: str | None = None
+    worker: str | None = None
 
 
 @dataclass(frozen=True)
@@ -76,6 +91,42 @@ class BatchRecord:
     label: str | None = None
     counts_by_status: dict[str, int] = field(default_factory=dict)
     counts_by_verdict: dict[str, int] = field(default_factory=dict)
+    priority: Priority = "normal"
+    callback_url: str | None = None
+    callback_status: CallbackStatus | None = None
+
+    @property
+    def finished(self) -> bool:
+        """No check of the batch is queued or running."""
+        return not any(self.counts_by_status.get(s, 0) for s in UNFINISHED_STATUSES)
+
+
+@dataclass(frozen=True)
+class Submission:
+    """How checks are to be queued: their priority, the request that sent them (its id travels
+    into the worker's log lines) and, for a batch, the URL to call once it has finished."""
+
+    priority: Priority = "normal"
+    request_id: str | None = None
+    callback_url: str | None = None
+
+
+@dataclass(frozen=True)
+class Route:
+    """Where a check's queue message goes: its tenant's queue, at its priority."""
+
+    tenant: str
+    priority: Priority = "normal"
+
+
+@dataclass(frozen=True)
+class DueCallback:
+    """A finished batch whose callback is due: ``attempts`` made so far."""
+
+    batch_id: str
+    tenant: str
+    url: str
+    attempts: int
 
 
 @dataclass(frozen=True)

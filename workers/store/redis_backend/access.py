@@ -29,6 +29,7 @@ class RedisAccessStore(RedisBase):
         super().__init__(*args, **kwargs)
         self._idem_begin = self.r.register_script(scripts.LUA_IDEM_BEGIN)
         self._idem_release = self.r.register_script(scripts.LUA_IDEM_RELEASE)
+        self._count = self.r.register_script(scripts.LUA_COUNT)
 
     # -- idempotency ------------------------------------------------------------------------------
     def _idem_key(self, tenant: str, key: str) -> str:
@@ -84,6 +85,33 @@ class RedisAccessStore(RedisBase):
         pipe.srem(f"{self.p}tokens", token_hash)
         deleted, _ = pipe.execute()
         return int(deleted) == 1
+
+    def count_checks(self, tenant: str, window_s: float, limit: int, amount: int) -> float:
+        now = self.clock()
+        bucket = int(now // window_s)
+        counted = self._count(keys=[f"{self.p}t:{tenant}:checks:{bucket}"],
+                              args=[int(amount), int(limit), max(int(window_s * 2), 1)])
+        if int(counted):
+            return 0.0
+        return max((bucket + 1) * window_s - now, 0.001)
+
+    def webhook_secrets(self, tenant: str, now: float) -> tuple[str, ...]:
+        head = self.r.hgetall(f"{self.p}t:{tenant}:webhook")
+        if not head.get("current"):
+            return ()
+        if head.get("previous") and float(head.get("previous_until") or 0) > now:
+            return head["current"], head["previous"]
+        return (head["current"],)
+
+    def put_webhook_secret(self, tenant: str, secret: str, now: float, grace_s: float) -> None:
+        key = f"{self.p}t:{tenant}:webhook"
+        pipe = self.r.pipeline(transaction=True)
+        pipe.watch(key)
+        old = pipe.hget(key, "current")
+        pipe.multi()
+        pipe.hset(key, mapping={"current": secret, "previous": old or "",
+                                "previous_until": _t(now + grace_s)})
+        pipe.execute()
 
     def hit_rate(self, tenant: str, window_s: float, limit: int) -> float:
         now = self.clock()

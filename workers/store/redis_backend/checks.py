@@ -9,7 +9,13 @@ from typing import Any
 import redis
 
 from workers.store.ids import new_batch_id, new_check_id
-from workers.store.records import CheckSource, NewCheck, QuotaExceededError
+from workers.store.records import (
+    CheckSource,
+    NewCheck,
+    QuotaExceededError,
+    Submission,
+    UrgentQuotaExceededError,
+)
 from workers.store.redis_backend import scripts
 from workers.store.redis_backend.connection import timestamp as _t
 from workers.store.redis_backend.lifecycle import RedisCheckLifecycle
@@ -30,6 +36,7 @@ class RedisCheckStore(RedisCheckLifecycle):
         as_batch: bool = False, shared: Mapping[str, bytes] | None = None,
         max_unfinished: int | None = None,
         on_stored: Callable[[list[str]], None] | None = None,
+        submission: Submission | None = None, max_urgent: int | None = None,
     ) -> tuple[str | None, list[str]]:
         """Reserve the tenant's quota (Lua), then write the checks in chunks of about
         ``STORE_CHUNK_BYTES`` (one MULTI/EXEC each, with the shared bytes not yet written) as
@@ -38,13 +45,18 @@ class RedisCheckStore(RedisCheckLifecycle):
         iterating ``checks`` included, the checks already written are deleted again
         (:meth:`_discard`)."""
         now = self.clock()
+        submission = submission or Submission()
         batch_id = new_batch_id() if as_batch else None
         ids = [new_check_id() for _ in range(len(checks))]
-        open_key = f"{self.p}t:{tenant}:open"
+        urgent = submission.priority == "urgent"
+        urgent_limit = (-1 if not urgent else -2 if max_urgent is None else max_urgent)
         accepted, unfinished = self._reserve(
-            keys=[open_key], args=[-1 if max_unfinished is None else max_unfinished, *ids])
-        if not int(accepted):
+            keys=[f"{self.p}t:{tenant}:open", f"{self.p}t:{tenant}:urgent"],
+            args=[-1 if max_unfinished is None else max_unfinished, urgent_limit, *ids])
+        if int(accepted) == 0:
             raise QuotaExceededError(int(max_unfinished or 0), int(unfinished), len(checks))
+        if int(accepted) == 2:
+            raise UrgentQuotaExceededError(int(max_urgent or 0), int(unfinished), len(checks))
         stored = 0
         written: set[str] = set()
         try:
@@ -57,7 +69,7 @@ class RedisCheckStore(RedisCheckLifecycle):
                         or n == len(ids)):
                     first = stored
                     stored = self._store_chunk(tenant, ids, pending, first, now, batch_id,
-                                               shared or {}, written)
+                                               shared or {}, written, submission)
                     if on_stored is not None:
                         on_stored(ids[first:stored])
                     pending, size = [], 0
@@ -65,7 +77,7 @@ class RedisCheckStore(RedisCheckLifecycle):
                 raise ValueError(f"{stored + len(pending)} checks given where len() said "
                                  f"{len(ids)}")
             if batch_id is not None:
-                self._store_batch(tenant, batch_id, batch_label, len(ids), now)
+                self._store_batch(tenant, batch_id, batch_label, len(ids), now, submission)
         except BaseException:
             self._discard(tenant, ids, batch_id)
             raise
@@ -73,7 +85,7 @@ class RedisCheckStore(RedisCheckLifecycle):
 
     def _store_chunk(self, tenant: str, ids: list[str], chunk: list[NewCheck], first: int,
                      now: float, batch_id: str | None, shared: Mapping[str, bytes],
-                     written: set[str]) -> int:
+                     written: set[str], submission: Submission) -> int:
         """``chunk`` as ``queued`` under ``ids[first:]`` (with its batch's id list and counts,
         and the shared bytes not in ``written`` yet); returns how many checks are stored now."""
         ttl = self._ttl
@@ -92,10 +104,12 @@ class RedisCheckStore(RedisCheckLifecycle):
                 "seq": seq, "label": c.label if c.label is not None else "",
                 "encoding": c.encoding, "shared": " ".join(digests),
                 "extends": c.extends or "",
+                "priority": submission.priority, "request_id": submission.request_id or "",
             })
             pipe.expire(ck, ttl)
             pipe.set(f"{self.p}req:{ids[seq]}", c.payload, ex=ttl)
         pipe.zadd(f"{self.p}queued", dict.fromkeys(ids[first:stop], now))
+        pipe.sadd(f"{self.p}tenants", tenant)
         if batch_id is not None:
             bkey = f"{self.p}batch:{batch_id}"
             pipe.rpush(f"{bkey}:ids", *ids[first:stop])
@@ -121,6 +135,7 @@ class RedisCheckStore(RedisCheckLifecycle):
                 pipe.zrem(f"{self.p}queued", *ids)
                 pipe.zrem(f"{self.p}leases", *ids)
                 pipe.srem(f"{self.p}t:{tenant}:open", *ids)
+                pipe.srem(f"{self.p}t:{tenant}:urgent", *ids)
             if batch_id is not None:
                 bkey = f"{self.p}batch:{batch_id}"
                 pipe.delete(bkey, f"{bkey}:ids", f"{bkey}:counts")
@@ -130,14 +145,20 @@ class RedisCheckStore(RedisCheckLifecycle):
             pass  # records left behind run as usual and expire; the purge drops reserved ids
 
     def _store_batch(self, tenant: str, batch_id: str, label: str | None, size: int,
-                     now: float) -> None:
-        """The batch's own record and its place in the tenant's list: written last."""
+                     now: float, submission: Submission) -> None:
+        """The batch's own record and its place in the tenant's list: written last (with its
+        callback, if any, in the ``callbacks`` zset that the senders watch)."""
         ttl = self._ttl
         bkey = f"{self.p}batch:{batch_id}"
         pipe = self.r.pipeline(transaction=True)
         pipe.hset(bkey, mapping={
             "tenant": tenant, "created_at": _t(now), "label": label or "", "size": size,
+            "priority": submission.priority,
         })
+        if submission.callback_url:
+            pipe.hset(bkey, mapping={"callback_url": submission.callback_url,
+                                     "callback_status": "waiting", "callback_attempts": 0})
+            pipe.zadd(f"{self.p}callbacks", {batch_id: now})
         pipe.expire(bkey, ttl)
         tb = f"{self.p}t:{tenant}:batches"
         pipe.zadd(tb, {batch_id: now})

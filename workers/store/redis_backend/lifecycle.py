@@ -9,6 +9,8 @@ from workers.store.records import (
     RELEASED_LEASE_AGE_S,
     BatchRecord,
     CheckRecord,
+    DueCallback,
+    Route,
     summarize_verdict,
 )
 from workers.store.redis_backend import scripts
@@ -27,12 +29,15 @@ class RedisCheckLifecycle(RedisCheckReads):
         self._finish = self.r.register_script(scripts.LUA_FINISH)
         self._release = self.r.register_script(scripts.LUA_RELEASE)
         self._cancel_batch = self.r.register_script(scripts.LUA_CANCEL_BATCH)
+        self._take_callback = self.r.register_script(scripts.LUA_TAKE_CALLBACK)
 
-    def claim(self, check_id: str, lease_s: float, max_attempts: int) -> CheckRecord | None:
+    def claim(self, check_id: str, lease_s: float, max_attempts: int,
+              worker: str | None = None) -> CheckRecord | None:
         now = self.clock()
         outcome = self._claim(args=[
             self.p, check_id, _t(now), _t(now + lease_s), int(max_attempts), self._ttl,
             "gave up after %d attempts: every attempt ended its worker or outlived its lease",
+            worker or "",
         ])
         # a check just claimed is running: it has no verdict to read
         return self._records([check_id], with_verdict=False)[0] if int(outcome) == 1 else None
@@ -103,3 +108,63 @@ class RedisCheckLifecycle(RedisCheckReads):
                 if not present:
                     gone += self.r.srem(open_key, cid)
         return gone
+
+    # -- queues per tenant, running checks per worker ---------------------------------------------
+    def routes(self, check_ids: list[str]) -> dict[str, Route]:
+        pipe = self.r.pipeline(transaction=False)
+        for cid in check_ids:
+            pipe.hmget(f"{self.p}check:{cid}", ["tenant", "priority"])
+        out = {}
+        for cid, (tenant, priority) in zip(check_ids, pipe.execute(), strict=True):
+            if tenant:
+                out[cid] = Route(tenant, "urgent" if priority == "urgent" else "normal")
+        return out
+
+    def tenants(self) -> list[str]:
+        return sorted(self.r.smembers(f"{self.p}tenants"))
+
+    def running_workers(self) -> dict[str, str | None]:
+        ids = self.r.zrange(f"{self.p}leases", 0, -1)
+        pipe = self.r.pipeline(transaction=False)
+        for cid in ids:
+            pipe.hmget(f"{self.p}check:{cid}", ["status", "worker"])
+        return {cid: worker or None for cid, (status, worker) in zip(ids, pipe.execute(),
+                                                                     strict=True)
+                if status == "running"}
+
+    # -- batch callbacks --------------------------------------------------------------------------
+    def due_callbacks(self, now: float, lease_s: float, limit: int = 20) -> list[DueCallback]:
+        """Looks at the earliest due entries of ``callbacks``; a batch still running is looked at
+        again a second later, a finished one is taken (held for ``lease_s``)."""
+        key = f"{self.p}callbacks"
+        out: list[DueCallback] = []
+        for batch_id in self.r.zrangebyscore(key, "-inf", _t(now), start=0, num=10 * limit):
+            bkey = f"{self.p}batch:{batch_id}"
+            head = self.r.hgetall(bkey)
+            if not head or head.get("callback_status") != "waiting":
+                self.r.zrem(key, batch_id)
+                continue
+            by_status, _ = self._split_counts(self.r.hgetall(f"{bkey}:counts"))
+            if by_status.get("queued", 0) or by_status.get("running", 0):
+                self.r.zadd(key, {batch_id: now + 1.0}, xx=True)
+                continue
+            if int(self._take_callback(keys=[key], args=[batch_id, _t(now),
+                                                         _t(now + lease_s)])):
+                out.append(DueCallback(batch_id, head["tenant"], head["callback_url"],
+                                       int(head.get("callback_attempts") or 0)))
+            if len(out) >= limit:
+                break
+        return out
+
+    def callback_result(self, batch_id: str, *, delivered: bool, attempts: int,
+                        next_at: float | None, error: str | None = None) -> None:
+        status = "delivered" if delivered else "waiting" if next_at is not None else "failed"
+        pipe = self.r.pipeline(transaction=True)
+        pipe.hset(f"{self.p}batch:{batch_id}", mapping={
+            "callback_status": status, "callback_attempts": attempts,
+            "callback_error": error or ""})
+        if status == "waiting":
+            pipe.zadd(f"{self.p}callbacks", {batch_id: next_at})
+        else:
+            pipe.zrem(f"{self.p}callbacks", batch_id)
+        pipe.execute()

@@ -22,7 +22,7 @@ SHARED_CACHE_BYTES = 64 * 1024 * 1024  # shared bytes kept per store object, by 
 FIELDS = (
     "tenant", "status", "created_at", "updated_at", "attempts", "batch_id", "label", "started_at",
     "finished_at", "lease_expires_at", "error", "verdict_name", "unstable_count",
-    "first_frequency_hz", "first_node", "extends",
+    "first_frequency_hz", "first_node", "extends", "priority", "request_id", "worker",
 )
 
 
@@ -50,6 +50,8 @@ def _record(check_id: str, values: list[str | None], verdict_text: str | None) -
         lease_expires_at=_num(f["lease_expires_at"]), error=f["error"] or None,
         verdict=json.loads(verdict_text) if verdict_text is not None else None, summary=summary,
         extends=f["extends"] or None,
+        priority="urgent" if f["priority"] == "urgent" else "normal",
+        request_id=f["request_id"] or None, worker=f["worker"] or None,
     )
 
 
@@ -148,6 +150,9 @@ class RedisCheckReads(RedisBase):
             id=batch_id, tenant=tenant, created_at=float(head["created_at"]),
             check_ids=tuple(raw[2]) if with_ids else (), label=head.get("label") or None,
             counts_by_status=by_status, counts_by_verdict=by_verdict,
+            priority="urgent" if head.get("priority") == "urgent" else "normal",
+            callback_url=head.get("callback_url") or None,
+            callback_status=head.get("callback_status") or None,  # type: ignore[arg-type]
         )
 
     def get_batch(self, tenant: str, batch_id: str) -> BatchRecord | None:

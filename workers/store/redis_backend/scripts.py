@@ -21,6 +21,7 @@ local function move(P, id, ck, from, to, now, ttl)
     redis.call('HSET', ck, 'finished_at', now)
     redis.call('HDEL', ck, 'lease_expires_at')
     redis.call('SREM', P .. 't:' .. tenant .. ':open', id)
+    redis.call('SREM', P .. 't:' .. tenant .. ':urgent', id)
     redis.call('ZREM', P .. 'queued', id)
     redis.call('ZREM', P .. 'leases', id)
   end
@@ -35,7 +36,7 @@ local function move(P, id, ck, from, to, now, ttl)
 end
 """
 
-# ARGV: prefix, id, now, lease_until, max_attempts, ttl, reason
+# ARGV: prefix, id, now, lease_until, max_attempts, ttl, reason, worker
 # -> 1 claimed, 2 failed (attempts used up), 0 not claimable
 LUA_CLAIM = LUA_MOVE + """
 local P, id = ARGV[1], ARGV[2]
@@ -57,7 +58,7 @@ if attempts >= tonumber(ARGV[5]) then
 end
 move(P, id, ck, st, 'running', ARGV[3], ARGV[6])
 redis.call('HSET', ck, 'attempts', attempts + 1, 'started_at', ARGV[3],
-           'lease_expires_at', ARGV[4])
+           'lease_expires_at', ARGV[4], 'worker', ARGV[8])
 redis.call('ZREM', P .. 'queued', id)
 redis.call('ZADD', P .. 'leases', ARGV[4], id)
 return 1
@@ -130,13 +131,40 @@ if not c then return {'pending', ''} end
 return {'done', c}
 """
 
-# KEYS[1] = the tenant's unfinished set; ARGV: limit (-1: none), ids... -> {accepted, unfinished}
+# KEYS[1] = the tenant's unfinished set, KEYS[2] = its unfinished urgent set; ARGV: limit (-1:
+# none), urgent limit (-1: the checks are not urgent; -2: urgent without a limit), ids...
+# -> {1 accepted | 0 over the limit | 2 over the urgent limit, unfinished (urgent) count}
 LUA_RESERVE = """
 local n = redis.call('SCARD', KEYS[1])
 local limit = tonumber(ARGV[1])
-if limit >= 0 and n + #ARGV - 1 > limit then return {0, n} end
-for i = 2, #ARGV do redis.call('SADD', KEYS[1], ARGV[i]) end
+local count = #ARGV - 2
+if limit >= 0 and n + count > limit then return {0, n} end
+local ulimit = tonumber(ARGV[2])
+if ulimit ~= -1 then
+  local u = redis.call('SCARD', KEYS[2])
+  if ulimit >= 0 and u + count > ulimit then return {2, u} end
+  for i = 3, #ARGV do redis.call('SADD', KEYS[2], ARGV[i]) end
+end
+for i = 3, #ARGV do redis.call('SADD', KEYS[1], ARGV[i]) end
 return {1, n}
+"""
+
+# KEYS[1] = a counter of the current window; ARGV: amount, limit, ttl (s) -> 1 counted, 0 not
+LUA_COUNT = """
+local amount = tonumber(ARGV[1])
+local v = tonumber(redis.call('GET', KEYS[1]) or '0')
+if amount > 0 and v + amount > tonumber(ARGV[2]) then return 0 end
+redis.call('INCRBY', KEYS[1], amount)
+redis.call('EXPIRE', KEYS[1], ARGV[3])
+return 1
+"""
+
+# KEYS[1] = the waiting callbacks zset; ARGV: batch id, now, held until -> 1 taken, 0 not due
+LUA_TAKE_CALLBACK = """
+local at = redis.call('ZSCORE', KEYS[1], ARGV[1])
+if not at or tonumber(at) > tonumber(ARGV[2]) then return 0 end
+redis.call('ZADD', KEYS[1], ARGV[3], ARGV[1])
+return 1
 """
 
 LUA_IDEM_RELEASE = """

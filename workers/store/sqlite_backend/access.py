@@ -81,6 +81,42 @@ class SqliteAccessStore(SqliteBase):
         with self._write() as db:
             return db.execute("DELETE FROM tokens WHERE hash = ?", (token_hash,)).rowcount == 1
 
+    def count_checks(self, tenant: str, window_s: float, limit: int, amount: int) -> float:
+        """Counted in ``rates`` under ``checks:<tenant>`` (a tenant name has no colon)."""
+        now = self.clock()
+        bucket = int(now // window_s)
+        key = f"checks:{tenant}"
+        with self._write() as db:
+            row = db.execute("SELECT hits FROM rates WHERE tenant = ? AND bucket = ?",
+                             (key, bucket)).fetchone()
+            hits = int(row[0]) if row is not None else 0
+            if amount > 0 and hits + amount > limit:
+                return max((bucket + 1) * window_s - now, 0.001)
+            db.execute(
+                "INSERT INTO rates (tenant, bucket, hits) VALUES (?, ?, ?) "
+                "ON CONFLICT (tenant, bucket) DO UPDATE SET hits = hits + excluded.hits",
+                (key, bucket, int(amount)))
+            db.execute("DELETE FROM rates WHERE tenant = ? AND bucket < ?", (key, bucket))
+        return 0.0
+
+    def webhook_secrets(self, tenant: str, now: float) -> tuple[str, ...]:
+        row = self._conn().execute(
+            "SELECT current, previous, previous_until FROM webhook_secrets WHERE tenant = ?",
+            (tenant,)).fetchone()
+        if row is None:
+            return ()
+        if row[1] and (row[2] or 0) > now:
+            return row[0], row[1]
+        return (row[0],)
+
+    def put_webhook_secret(self, tenant: str, secret: str, now: float, grace_s: float) -> None:
+        with self._write() as db:
+            db.execute(
+                "INSERT INTO webhook_secrets (tenant, current, previous, previous_until) "
+                "VALUES (?, ?, NULL, NULL) ON CONFLICT (tenant) DO UPDATE SET "
+                "previous = current, previous_until = ?, current = excluded.current",
+                (tenant, secret, now + grace_s))
+
     def hit_rate(self, tenant: str, window_s: float, limit: int) -> float:
         now = self.clock()
         bucket = int(now // window_s)

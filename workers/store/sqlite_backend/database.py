@@ -41,7 +41,10 @@ CREATE TABLE IF NOT EXISTS checks (
     first_frequency_hz REAL,
     first_node TEXT,
     error TEXT,
-    extends TEXT
+    extends TEXT,
+    priority TEXT NOT NULL DEFAULT 'normal',
+    request_id TEXT,
+    worker TEXT
 );
 CREATE INDEX IF NOT EXISTS checks_tenant_status ON checks (tenant, status);
 CREATE INDEX IF NOT EXISTS checks_batch_seq ON checks (batch_id, seq);
@@ -53,7 +56,13 @@ CREATE TABLE IF NOT EXISTS batches (
     tenant TEXT NOT NULL,
     created_at REAL NOT NULL,
     label TEXT,
-    size INTEGER NOT NULL
+    size INTEGER NOT NULL,
+    priority TEXT NOT NULL DEFAULT 'normal',
+    callback_url TEXT,
+    callback_status TEXT,
+    callback_attempts INTEGER NOT NULL DEFAULT 0,
+    callback_next_at REAL,
+    callback_error TEXT
 );
 CREATE INDEX IF NOT EXISTS batches_tenant_created ON batches (tenant, created_at);
 CREATE TABLE IF NOT EXISTS blobs (
@@ -74,6 +83,15 @@ CREATE TABLE IF NOT EXISTS idempotency (
     expires_at REAL NOT NULL,
     PRIMARY KEY (tenant, key)
 );
+CREATE TABLE IF NOT EXISTS tenants (
+    tenant TEXT PRIMARY KEY
+);
+CREATE TABLE IF NOT EXISTS webhook_secrets (
+    tenant TEXT PRIMARY KEY,
+    current TEXT NOT NULL,
+    previous TEXT,
+    previous_until REAL
+);
 CREATE TABLE IF NOT EXISTS rates (
     tenant TEXT NOT NULL,
     bucket INTEGER NOT NULL,
@@ -81,8 +99,18 @@ CREATE TABLE IF NOT EXISTS rates (
     PRIMARY KEY (tenant, bucket)
 );
 """
-# Columns a file made by an earlier version lacks (its checks then read as of unknown encoding).
-ADDED_COLUMNS = {"checks": ("encoding TEXT", "shared TEXT", "extends TEXT")}
+# Columns a file made by an earlier version lacks (its checks then read as of unknown encoding,
+# normal priority, no callback), and the indexes on them, made once they are there.
+ADDED_COLUMNS = {
+    "checks": ("encoding TEXT", "shared TEXT", "priority TEXT NOT NULL DEFAULT 'normal'",
+               "request_id TEXT", "worker TEXT", "extends TEXT"),
+    "batches": ("priority TEXT NOT NULL DEFAULT 'normal'", "callback_url TEXT",
+                "callback_status TEXT", "callback_attempts INTEGER NOT NULL DEFAULT 0",
+                "callback_next_at REAL", "callback_error TEXT"),
+}
+ADDED_INDEXES = (
+    "CREATE INDEX IF NOT EXISTS batches_callback ON batches (callback_status, callback_next_at)",
+)
 
 
 class SqliteDatabase:
@@ -100,6 +128,8 @@ class SqliteDatabase:
             for column in columns:
                 if column.split()[0] not in present:
                     conn.execute(f"ALTER TABLE {table} ADD COLUMN {column}")
+        for statement in ADDED_INDEXES:
+            conn.execute(statement)
 
     def conn(self) -> sqlite3.Connection:
         """This thread's connection (a new one after a fork)."""

@@ -10,6 +10,8 @@ from workers.store.records import (
     RELEASED_LEASE_AGE_S,
     BatchRecord,
     CheckRecord,
+    DueCallback,
+    Route,
     summarize_verdict,
 )
 from workers.store.sqlite_backend.reads import SqliteCheckReads
@@ -19,7 +21,8 @@ class SqliteCheckLifecycle(SqliteCheckReads):
     """Claims and leases, completion, failure, cancellation; expired leases, undelivered checks
     and the purge of what is older than the retention."""
 
-    def claim(self, check_id: str, lease_s: float, max_attempts: int) -> CheckRecord | None:
+    def claim(self, check_id: str, lease_s: float, max_attempts: int,
+              worker: str | None = None) -> CheckRecord | None:
         now = self.clock()
         with self._write() as db:
             row = db.execute(
@@ -41,9 +44,9 @@ class SqliteCheckLifecycle(SqliteCheckReads):
                 return None
             cur = db.execute(
                 "UPDATE checks SET status = 'running', attempts = attempts + 1, started_at = ?, "
-                "updated_at = ?, lease_expires_at = ? "
+                "updated_at = ?, lease_expires_at = ?, worker = ? "
                 "WHERE id = ? AND status = ? AND attempts = ?",
-                (now, now, now + lease_s, check_id, status, attempts),
+                (now, now, now + lease_s, worker, check_id, status, attempts),
             )
             if cur.rowcount != 1:
                 return None
@@ -138,3 +141,47 @@ class SqliteCheckLifecycle(SqliteCheckReads):
                 (cutoff,),
             )
         return gone
+
+    # -- queues per tenant, running checks per worker ---------------------------------------------
+    def routes(self, check_ids: list[str]) -> dict[str, Route]:
+        out: dict[str, Route] = {}
+        db = self._conn()
+        for start in range(0, len(check_ids), 500):
+            part = check_ids[start:start + 500]
+            for row in db.execute(
+                    "SELECT id, tenant, priority FROM checks WHERE id IN "
+                    f"({', '.join('?' * len(part))})", part):
+                out[row[0]] = Route(row[1], "urgent" if row[2] == "urgent" else "normal")
+        return out
+
+    def tenants(self) -> list[str]:
+        return [r[0] for r in self._conn().execute("SELECT tenant FROM tenants ORDER BY tenant")]
+
+    def running_workers(self) -> dict[str, str | None]:
+        return {r[0]: r[1] for r in self._conn().execute(
+            "SELECT id, worker FROM checks WHERE status = 'running'")}
+
+    # -- batch callbacks --------------------------------------------------------------------------
+    def due_callbacks(self, now: float, lease_s: float, limit: int = 20) -> list[DueCallback]:
+        out: list[DueCallback] = []
+        with self._write() as db:
+            rows = db.execute(
+                "SELECT id, tenant, callback_url, callback_attempts FROM batches b "
+                "WHERE callback_status = 'waiting' AND callback_next_at <= ? AND NOT EXISTS "
+                "(SELECT 1 FROM checks c WHERE c.batch_id = b.id "
+                "AND c.status IN ('queued', 'running')) ORDER BY callback_next_at LIMIT ?",
+                (now, int(limit))).fetchall()
+            for row in rows:
+                db.execute("UPDATE batches SET callback_next_at = ? WHERE id = ?",
+                           (now + lease_s, row[0]))
+                out.append(DueCallback(row[0], row[1], row[2], int(row[3])))
+        return out
+
+    def callback_result(self, batch_id: str, *, delivered: bool, attempts: int,
+                        next_at: float | None, error: str | None = None) -> None:
+        status = "delivered" if delivered else "waiting" if next_at is not None else "failed"
+        with self._write() as db:
+            db.execute(
+                "UPDATE batches SET callback_status = ?, callback_attempts = ?, "
+                "callback_next_at = ?, callback_error = ? WHERE id = ?",
+                (status, attempts, next_at, error, batch_id))

@@ -18,7 +18,7 @@ from workers.store.sqlite_backend.database import SqliteBase
 RECORD_COLUMNS = (
     "id, tenant, status, created_at, updated_at, attempts, batch_id, label, started_at, "
     "finished_at, lease_expires_at, error, verdict_name, unstable_count, first_frequency_hz, "
-    "first_node, extends"
+    "first_node, extends, priority, request_id, worker"
 )
 
 
@@ -38,7 +38,12 @@ def record_from_row(row: sqlite3.Row, verdict_text: str | None = None) -> CheckR
         finished_at=row["finished_at"], lease_expires_at=row["lease_expires_at"],
         verdict=json.loads(verdict_text) if verdict_text is not None else None,
         error=row["error"], summary=summary, extends=row["extends"],
+        priority="urgent" if row["priority"] == "urgent" else "normal",
+        request_id=row["request_id"], worker=row["worker"],
     )
+
+
+BATCH_COLUMNS = "id, tenant, created_at, label, priority, callback_url, callback_status"
 
 
 class SqliteCheckReads(SqliteBase):
@@ -92,7 +97,7 @@ class SqliteCheckReads(SqliteBase):
     def get_batch(self, tenant: str, batch_id: str) -> BatchRecord | None:
         db = self._conn()
         row = db.execute(
-            "SELECT id, tenant, created_at, label FROM batches WHERE id = ? AND tenant = ?",
+            f"SELECT {BATCH_COLUMNS} FROM batches WHERE id = ? AND tenant = ?",
             (batch_id, tenant),
         ).fetchone()
         if row is None:
@@ -100,27 +105,26 @@ class SqliteCheckReads(SqliteBase):
         ids = tuple(r[0] for r in db.execute(
             "SELECT id FROM checks WHERE batch_id = ? ORDER BY seq", (batch_id,)
         ))
-        by_status, by_verdict = self._counts(db, batch_id)
+        return self._batch_record(db, row, ids)
+
+    def _batch_record(self, db: sqlite3.Connection, row: sqlite3.Row,
+                      ids: tuple[str, ...] = ()) -> BatchRecord:
+        by_status, by_verdict = self._counts(db, row["id"])
         return BatchRecord(
             id=row["id"], tenant=row["tenant"], created_at=row["created_at"], check_ids=ids,
             label=row["label"], counts_by_status=by_status, counts_by_verdict=by_verdict,
+            priority="urgent" if row["priority"] == "urgent" else "normal",
+            callback_url=row["callback_url"], callback_status=row["callback_status"],
         )
 
     def list_batches(self, tenant: str, limit: int = 50) -> list[BatchRecord]:
         db = self._conn()
         rows = db.execute(
-            "SELECT id, tenant, created_at, label FROM batches WHERE tenant = ? "
+            f"SELECT {BATCH_COLUMNS} FROM batches WHERE tenant = ? "
             "ORDER BY created_at DESC, rowid DESC LIMIT ?",
             (tenant, int(limit)),
         ).fetchall()
-        out = []
-        for row in rows:
-            by_status, by_verdict = self._counts(db, row["id"])
-            out.append(BatchRecord(
-                id=row["id"], tenant=row["tenant"], created_at=row["created_at"],
-                label=row["label"], counts_by_status=by_status, counts_by_verdict=by_verdict,
-            ))
-        return out
+        return [self._batch_record(db, row) for row in rows]
 
     def list_batch_checks(
         self, tenant: str, batch_id: str, *, after: str | None, limit: int,
@@ -144,9 +148,10 @@ class SqliteCheckReads(SqliteBase):
         return [record_from_row(r) for r in page], cursor
 
     @staticmethod
-    def _count_unfinished(db: sqlite3.Connection, tenant: str) -> int:
+    def _count_unfinished(db: sqlite3.Connection, tenant: str, urgent: bool = False) -> int:
         return int(db.execute(
-            "SELECT COUNT(*) FROM checks WHERE tenant = ? AND status IN ('queued', 'running')",
+            "SELECT COUNT(*) FROM checks WHERE tenant = ? AND status IN ('queued', 'running')"
+            + (" AND priority = 'urgent'" if urgent else ""),
             (tenant,),
         ).fetchone()[0])
 
