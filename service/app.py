@@ -10,6 +10,7 @@ from flask import Flask
 
 from service.api import ProblemApi, batches, checks, health
 from service.api.body_limit import BodyLimitMiddleware
+from service.api.path_ids import CONVERTERS, parameter_schema
 from service.config import app_config
 from service.problems import PROBLEM_CONTENT_TYPE
 from workers.store import Stores
@@ -99,7 +100,10 @@ def create_app(config: dict[str, Any] | None = None) -> Flask:
         "workers_alive": functions["workers_alive"],
         "queue_reachable": functions["queue_reachable"],
     }
+    app.url_map.converters.update(CONVERTERS)
     api = ProblemApi(app)
+    for converter in CONVERTERS.values():
+        api.register_converter(converter, parameter_schema)
     for blueprint in BLUEPRINTS:
         api.register_blueprint(blueprint)
     # --- report pages and plots (service.api.reports; images and HTML, outside the OpenAPI doc)

@@ -154,7 +154,12 @@ def json_batch() -> BatchIntake:
 
     def variant(i: int) -> Any:
         text = texts[i]
-        return loads_json(text) if isinstance(text, bytes) else text
+        if not isinstance(text, bytes):
+            return text
+        try:  # the body's syntax was checked whole; only nesting too deep for the stack is left
+            return loads_json(text)
+        except ValueError as exc:
+            raise VariantError([("", f"is not valid JSON: {exc}")]) from None
 
     return BatchIntake(body.get("label"),
                        ValidatedVariants(len(texts), variant, shared, "variants"),

@@ -18,6 +18,7 @@ from service.api.common import (
     store_checks,
     validation_problem,
 )
+from service.api.path_ids import require_path_ids
 from service.api.tenancy import authenticate, check_store, tenant
 from service.intake import new_check
 from service.problems import abort_problem
@@ -30,6 +31,7 @@ from workers.store import UNFINISHED_STATUSES
 blp = Blueprint("checks", __name__, url_prefix="/v1/checks",
                 description="Single stability checks")
 blp.before_request(authenticate)
+blp.before_request(require_path_ids)  # after the token: 401 first
 
 IDEMPOTENCY_PARAMETER = {
     "in": "header", "name": IDEMPOTENCY_HEADER, "required": False,
@@ -94,7 +96,7 @@ def _found(check_id: str):
     return record
 
 
-@blp.route("/<string:check_id>", methods=["GET"])
+@blp.route("/<check_id:check_id>", methods=["GET"])
 @blp.doc(operationId="getCheck")
 @blp.response(200, CheckSchema, headers={"Retry-After": {
     "schema": {"type": "integer"}, "description": "while unfinished: seconds before polling"}})
@@ -108,7 +110,7 @@ def get_check(check_id: str):
     return check_view(record)
 
 
-@blp.route("/<string:check_id>", methods=["DELETE"])
+@blp.route("/<check_id:check_id>", methods=["DELETE"])
 @blp.doc(operationId="cancelCheck")
 @blp.response(200, CheckSchema, description="The check after cancellation (a finished check "
                                             "is left as it was)")

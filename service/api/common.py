@@ -3,7 +3,6 @@
 from __future__ import annotations
 
 import hashlib
-import json
 from collections.abc import Callable
 from datetime import UTC, datetime
 from typing import Any
@@ -14,6 +13,7 @@ from marshmallow import ValidationError
 
 from service.api.body_limit import BODY_BYTES_KEY
 from service.api.jsonbody import parse_body, reject_constant
+from service.api.jsontext import stdlib_loads
 from service.api.tenancy import access_store, check_store, retry_after, tenant
 from service.config import tenant_limit
 from service.problems import PROBLEM_CONTENT_TYPE, ProblemSchema, abort_problem, field_errors
@@ -67,8 +67,8 @@ def iso(ts: float | None) -> str | None:
 
 def parse_json(data: bytes | str, what: str = "the request body") -> Any:
     try:
-        return json.loads(data, parse_constant=reject_constant)
-    except (ValueError, RecursionError) as exc:  # JSONDecodeError and UnicodeDecodeError too
+        return stdlib_loads(data, parse_constant=reject_constant)
+    except ValueError as exc:  # JSONDecodeError, UnicodeDecodeError, nesting too deep
         abort_problem(400, f"{what} is not valid JSON: {exc}", kind="malformed-json")
 
 

@@ -2,10 +2,11 @@
 
 orjson reads a body (RFC 8259). A body orjson refuses goes to ``json.loads``, which either refuses
 it too (NaN and Infinity included), with its message naming the line, column and what is wrong,
-or reads what orjson does not (a UTF-8 byte order mark, lone surrogate escapes, ``1e400`` read as
-infinity for the schema to refuse). The garbage collector is paused while orjson builds the value
-(``service.api.jsontext``). One difference remains: an integer outside [-2**63, 2**64) is read as
-the nearest float, as the check request schema reads every number anyway.
+or reads what orjson does not (a UTF-8 byte order mark, lone surrogate escapes, ``1e400`` and
+integers beyond the largest float read as infinity for the schema to refuse:
+``service.api.jsontext.stdlib_loads``). The garbage collector is paused while orjson builds the
+value (``service.api.jsontext``). One difference remains: an integer outside [-2**63, 2**64) is
+read as the nearest float, as the check request schema reads every number anyway.
 """
 
 from __future__ import annotations
@@ -16,7 +17,7 @@ from typing import Any
 import msgspec
 import orjson
 
-from service.api.jsontext import loads_json, orjson_loads
+from service.api.jsontext import loads_json, orjson_loads, stdlib_loads
 
 
 def reject_constant(name: str) -> Any:
@@ -29,7 +30,7 @@ def parse_body(raw: bytes | str) -> Any:
     try:
         return orjson_loads(raw)
     except orjson.JSONDecodeError:
-        return json.loads(raw, parse_constant=reject_constant)
+        return stdlib_loads(raw, parse_constant=reject_constant)
 
 
 class _BatchOutline(msgspec.Struct, forbid_unknown_fields=True):

@@ -24,12 +24,14 @@ from typing import Any
 from flask import Blueprint, Response, request, url_for
 
 from service.api.common import check_view
+from service.api.path_ids import require_path_ids
 from service.api.tenancy import authenticate, check_store, tenant
 from service.problems import abort_problem
 from workers.store import StoredRequest
 
 blp = Blueprint("reports", __name__)
 blp.before_request(authenticate)
+blp.before_request(require_path_ids)  # after the token: 401 first
 
 PLOT_NAMES = ("ndf", "admittance", "factors", "circles")
 DEVICE_PLOT = re.compile(r"device-([1-9][0-9]*)")
@@ -140,7 +142,7 @@ def _device_notes(check_id: str, verdict: dict[str, Any]) -> dict[str, str]:
     return json.loads(notes or b"{}")
 
 
-@blp.route("/v1/checks/<string:check_id>/plots/<string:name>.<string:fmt>", methods=["GET"])
+@blp.route("/v1/checks/<check_id:check_id>/plots/<string:name>.<string:fmt>", methods=["GET"])
 def check_plot(check_id: str, name: str, fmt: str) -> Response:
     """One plot of a finished check as SVG or PNG."""
     if name not in PLOT_NAMES and not DEVICE_PLOT.fullmatch(name):
@@ -159,7 +161,7 @@ def check_plot(check_id: str, name: str, fmt: str) -> Response:
                     headers={"Cache-Control": "private, max-age=3600"})
 
 
-@blp.route("/v1/checks/<string:check_id>/report", methods=["GET"])
+@blp.route("/v1/checks/<check_id:check_id>/report", methods=["GET"])
 def check_report(check_id: str) -> Response:
     """The HTML page of one check (plots embedded when it is done)."""
     from service.reports.pages import check_page
@@ -188,7 +190,7 @@ def check_report(check_id: str) -> Response:
     return Response(page, mimetype="text/html")
 
 
-@blp.route("/v1/batches/<string:batch_id>/report", methods=["GET"])
+@blp.route("/v1/batches/<batch_id:batch_id>/report", methods=["GET"])
 def batch_report(batch_id: str) -> Response:
     """The HTML page of a batch: every check, sortable by verdict, frequency and node."""
     from service.api.batches import batch_view, item_view

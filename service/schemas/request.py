@@ -46,9 +46,12 @@ _COMPLEX_DOC = {
 }
 
 
+_NOT_FINITE = "must contain only finite numbers (no NaN or infinity)"
+
+
 def _finite(values: np.ndarray, name: str) -> np.ndarray:
     if not np.isfinite(values).all():
-        raise ValidationError({name: ["must contain only finite numbers (no NaN or infinity)"]})
+        raise ValidationError({name: [_NOT_FINITE]})
     return values
 
 
@@ -114,6 +117,8 @@ def pack_array(values: np.ndarray) -> dict[str, Any]:
 def _as_float_array(raw: Any, name: str, ndim: int) -> np.ndarray:
     try:
         values = np.asarray(raw, dtype=float)
+    except OverflowError as exc:  # an integer beyond the largest float
+        raise ValidationError({name: [_NOT_FINITE]}) from exc
     except (TypeError, ValueError) as exc:
         raise ValidationError(
             {name: [f"must be a {ndim}-dimensional array of numbers with equal-length rows"]}
@@ -169,6 +174,8 @@ class FloatArray(fields.Field):
             raise ValidationError("must be an array of numbers")
         try:
             values = np.asarray(value, dtype=float)
+        except OverflowError as exc:  # an integer beyond the largest float
+            raise ValidationError(_NOT_FINITE) from exc
         except (TypeError, ValueError) as exc:
             raise ValidationError("must be an array of numbers") from exc
         if values.ndim != 1:
@@ -189,14 +196,18 @@ class ComplexNumber(fields.Field):
     def _deserialize(self, value: Any, attr: str | None, data: Any, **kwargs: Any) -> complex:
         if isinstance(value, bool):
             raise ValidationError("must be a number or {re, im}")
-        if isinstance(value, int | float):
-            number = complex(value)
-        elif isinstance(value, dict) and set(value) == {"re", "im"} and all(
-                isinstance(value[k], int | float) and not isinstance(value[k], bool)
-                for k in ("re", "im")):
-            number = complex(value["re"], value["im"])
-        else:
-            raise ValidationError('must be a number or an object {"re": number, "im": number}')
+        try:
+            if isinstance(value, int | float):
+                number = complex(value)
+            elif isinstance(value, dict) and set(value) == {"re", "im"} and all(
+                    isinstance(value[k], int | float) and not isinstance(value[k], bool)
+                    for k in ("re", "im")):
+                number = complex(value["re"], value["im"])
+            else:
+                raise ValidationError(
+                    'must be a number or an object {"re": number, "im": number}')
+        except OverflowError as exc:  # an integer beyond the largest float
+            raise ValidationError("must be finite") from exc
         if not np.isfinite(number):
             raise ValidationError("must be finite")
         return number
@@ -342,8 +353,11 @@ def _network(raw: dict[str, Any], prefix: str, n_ports: int, options: CheckOptio
     if values.shape[1:] != (n_ports, n_ports):
         raise InputError(f"{prefix}data", f"has matrices of shape {values.shape[1:]} but ports "
                                           f"lists {n_ports} ports")
-    z0 = np.asarray(raw.get("z0_ohm", 50.0), dtype=float) if _numeric(raw.get("z0_ohm", 50.0)) \
-        else None
+    try:
+        z0 = np.asarray(raw.get("z0_ohm", 50.0), dtype=float) \
+            if _numeric(raw.get("z0_ohm", 50.0)) else None
+    except OverflowError:  # an integer beyond the largest float
+        raise InputError(f"{prefix}z0_ohm", "must be positive and finite") from None
     if z0 is None or z0.ndim > 1 or (z0.ndim == 1 and z0.size != n_ports):
         raise InputError(f"{prefix}z0_ohm", f"must be one positive number or {n_ports} of them")
     if not (np.isfinite(z0).all() and (z0 > 0).all()):
