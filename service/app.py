@@ -11,6 +11,7 @@ from flask import Flask
 from service.api import ProblemApi, batches, checks, health
 from service.api.body_limit import BodyLimitMiddleware
 from service.api.path_ids import CONVERTERS, parameter_schema
+from service.api.security_headers import SecurityHeadersMiddleware
 from service.config import app_config
 from service.problems import PROBLEM_CONTENT_TYPE
 from workers.store import Stores
@@ -111,6 +112,6 @@ def create_app(config: dict[str, Any] | None = None) -> Flask:
 
     app.register_blueprint(reports_blueprint)
     # ---
-    app.wsgi_app = BodyLimitMiddleware(  # type: ignore[method-assign]
-        app.wsgi_app, int(app.config["BALLAST_MAX_BODY_BYTES"]))
+    app.wsgi_app = SecurityHeadersMiddleware(BodyLimitMiddleware(  # type: ignore[method-assign]
+        app.wsgi_app, int(app.config["BALLAST_MAX_BODY_BYTES"])))
     return app
