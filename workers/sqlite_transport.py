@@ -26,6 +26,8 @@ from typing import Any
 
 from kombu.transport import virtual
 
+from workers.private_files import private_sqlite_file
+
 _SCHEMA = """
 CREATE TABLE IF NOT EXISTS kombu_messages (
     id INTEGER PRIMARY KEY AUTOINCREMENT,
@@ -60,6 +62,7 @@ class Channel(virtual.Channel):
         options = connection.client.transport_options
         path = path_from_url(connection.client.hostname)
         path.parent.mkdir(parents=True, exist_ok=True)
+        private_sqlite_file(path)  # check ids of every tenant: 0600 (workers.private_files)
         self._db = sqlite3.connect(
             path, timeout=float(options.get("busy_timeout_ms", 30_000)) / 1000,
             isolation_level=None, check_same_thread=False,
