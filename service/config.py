@@ -21,6 +21,7 @@ from __future__ import annotations
 import json
 import os
 from typing import Any
+from urllib.parse import urlsplit, urlunsplit
 
 DEFAULTS: dict[str, Any] = {
     "BALLAST_STORES": None,
@@ -78,3 +79,14 @@ def tenant_limit(config: dict[str, Any], tenant: str, name: str) -> Any:
     if name in override:
         return override[name]
     return config["BALLAST_MAX_UNFINISHED" if name == "max_unfinished" else "BALLAST_RATE_LIMIT"]
+
+
+def printable_url(url: str) -> str:
+    """A store or broker URL as it may be printed or logged: its password replaced by ``***``
+    (RFC 3986 §3.2.1 userinfo; ``redis://:secret@host/0`` → ``redis://:***@host/0``)."""
+    parts = urlsplit(url)
+    if parts.password is None:
+        return url
+    user = parts.username or ""
+    host = parts.netloc.rsplit("@", 1)[1]
+    return urlunsplit(parts._replace(netloc=f"{user}:***@{host}"))
