@@ -9,7 +9,7 @@ from typing import Any
 from flask import Flask
 
 from service.api import ProblemApi, batches, checks, health
-from service.api.body_limit import BodyLimitMiddleware
+from service.api.body_gate import BodyGateMiddleware
 from service.api.path_ids import CONVERTERS, parameter_schema
 from service.api.security_headers import SecurityHeadersMiddleware
 from service.config import app_config
@@ -112,6 +112,6 @@ def create_app(config: dict[str, Any] | None = None) -> Flask:
 
     app.register_blueprint(reports_blueprint)
     # ---
-    app.wsgi_app = SecurityHeadersMiddleware(BodyLimitMiddleware(  # type: ignore[method-assign]
-        app.wsgi_app, int(app.config["BALLAST_MAX_BODY_BYTES"])))
+    app.wsgi_app = SecurityHeadersMiddleware(BodyGateMiddleware(  # type: ignore[method-assign]
+        app.wsgi_app, int(app.config["BALLAST_MAX_BODY_BYTES"]), stores.access))
     return app

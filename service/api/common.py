@@ -11,7 +11,7 @@ from flask import current_app, g, request
 from flask_smorest import Blueprint
 from marshmallow import ValidationError
 
-from service.api.body_limit import BODY_BYTES_KEY
+from service.api.body_gate import BODY_BYTES_KEY
 from service.api.jsonbody import parse_body, reject_constant
 from service.api.jsontext import stdlib_loads
 from service.api.tenancy import access_store, check_store, retry_after, tenant
