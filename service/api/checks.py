@@ -18,7 +18,9 @@ from service.api.common import (
     store_checks,
     validation_problem,
 )
+from service.api.jsonbody import parse_body
 from service.api.path_ids import require_path_ids
+from service.api.request_reader import read_request
 from service.api.tenancy import authenticate, check_store, tenant
 from service.intake import new_check
 from service.problems import abort_problem
@@ -79,7 +81,9 @@ def submit_check():
 
 
 def _submit_check() -> tuple[dict[str, Any], int, dict[str, str]]:
-    check = new_check(validate_request(json_object_body()))  # stored as validated
+    body = json_object_body(lambda raw: read_request(raw, parse_body))
+    check = new_check(validate_request(body))  # stored as validated
+    del body  # the parsed arrays: only the stored form is kept while the store writes it
 
     def create() -> str:
         _, (check_id,) = store_checks([check])

@@ -46,23 +46,25 @@ def int_or_infinity(text: str) -> int | float:
     return float("-inf") if text.startswith("-") else float("inf")
 
 
-def stdlib_loads(data: bytes | bytearray | str,
+def stdlib_loads(data: bytes | bytearray | memoryview | str,
                  parse_constant: Callable[[str], Any] | None = None) -> Any:
     """``json.loads`` with huge integers read as infinities; raises ValueError (its message),
     also for nesting deeper than the stack allows."""
+    if isinstance(data, memoryview):  # a slice of a body (json.loads takes no buffers)
+        data = data.tobytes()
     try:
         return json.loads(data, parse_int=int_or_infinity, parse_constant=parse_constant)
     except RecursionError as exc:
         raise ValueError(f"nested too deeply ({exc})") from None
 
 
-def orjson_loads(data: bytes | bytearray | str) -> Any:
+def orjson_loads(data: bytes | bytearray | memoryview | str) -> Any:
     """``orjson.loads`` with the collector paused; raises ``orjson.JSONDecodeError``."""
     with collector_paused():
         return orjson.loads(data)
 
 
-def loads_json(data: bytes | bytearray | str) -> Any:
+def loads_json(data: bytes | bytearray | memoryview | str) -> Any:
     """``data`` read by orjson, or by :func:`stdlib_loads` when orjson refuses it (see module
     doc); raises ValueError when it is not JSON."""
     try:

@@ -88,12 +88,15 @@ def unpack_array(value: dict[str, Any], dtype: str, ndim: int) -> np.ndarray:
             isinstance(n, int) and not isinstance(n, bool) and n >= 0 for n in shape)):
         raise ValidationError({"shape": [f"must be a list of {ndim} non-negative integers"]})
     text = value["base64"]
-    if not isinstance(text, str):
+    if isinstance(text, bytes):  # decoded already while the JSON was read (request_reader)
+        raw = text
+    elif not isinstance(text, str):
         raise ValidationError({"base64": ["must be a string"]})
-    try:
-        raw = b64decode(text, validate=True)
-    except (binascii.Error, ValueError) as exc:
-        raise ValidationError({"base64": [f"is not base64 (RFC 4648): {exc}"]}) from exc
+    else:
+        try:
+            raw = b64decode(text, validate=True)
+        except (binascii.Error, ValueError) as exc:
+            raise ValidationError({"base64": [f"is not base64 (RFC 4648): {exc}"]}) from exc
     item = PACKED_DTYPES[dtype].itemsize
     expected = math.prod(shape) * item  # exact: numpy's int64 product could wrap to a match
     if len(raw) != expected:
@@ -104,7 +107,7 @@ def unpack_array(value: dict[str, Any], dtype: str, ndim: int) -> np.ndarray:
         bad = int(np.flatnonzero(~np.isfinite(values.reshape(-1)))[0])
         raise ValidationError({"base64": [
             f"must hold only finite numbers (value {bad} in row-major order is not)"]})
-    return values.astype(values.dtype.newbyteorder("="))
+    return values.astype(values.dtype.newbyteorder("="), copy=False)  # a view on little-endian
 
 
 def pack_array(values: np.ndarray) -> dict[str, Any]:
@@ -155,7 +158,9 @@ class ComplexArray(fields.Field):
         im = _as_float_array(value["im"], "im", self.ndim)
         if re.shape != im.shape:
             raise ValidationError(f"re has shape {re.shape} but im has shape {im.shape}")
-        return re + 1j * im
+        values = np.empty(re.shape, dtype=complex)  # re + 1j * im without two temporaries
+        values.real, values.imag = re, im
+        return values
 
 
 class FloatArray(fields.Field):
