@@ -107,11 +107,10 @@ def create_app(config: dict[str, Any] | None = None) -> Flask:
         api.register_converter(converter, parameter_schema)
     for blueprint in BLUEPRINTS:
         api.register_blueprint(blueprint)
-    # --- report pages and plots (service.api.reports; images and HTML, outside the OpenAPI doc)
+    # report pages and plots (service.api.reports: images and HTML; matplotlib loads on first use)
     from service.api.reports import blp as reports_blueprint
 
-    app.register_blueprint(reports_blueprint)
-    # ---
+    api.register_blueprint(reports_blueprint)
     app.wsgi_app = SecurityHeadersMiddleware(BodyGateMiddleware(  # type: ignore[method-assign]
         app.wsgi_app, int(app.config["BALLAST_MAX_BODY_BYTES"]), stores.access))
     return app

@@ -30,10 +30,11 @@ _ERROR_HEADERS: dict[int, dict[str, Any]] = {
     429: _RETRY_AFTER,
 }
 _ERROR_MEANING = {
-    400: "Malformed JSON, header or cursor",
+    400: "Malformed JSON, header, cursor or query value",
     401: "No valid bearer token",
     404: "No such check or batch for this tenant",
-    409: "A request with this Idempotency-Key is still being accepted",
+    409: "A request with this Idempotency-Key is still being accepted, or (plots) the check "
+         "has no verdict yet",
     411: "Chunked body on a server that does not de-chunk",
     413: "Request body above the configured limit",
     415: "Body is not application/json (or multipart/form-data for batches)",
