@@ -41,7 +41,7 @@ from typing import Any
 import tornado.httpserver
 from gunicorn.sock import ssl_context
 from gunicorn.workers.gtornado import TornadoWorker
-from tornado import httputil
+from tornado import httputil, iostream
 from tornado.ioloop import IOLoop, PeriodicCallback
 from tornado.wsgi import WSGIContainer
 
@@ -177,6 +177,8 @@ class Front(httputil.HTTPServerConnectionDelegate):
         self.active += 1
         try:
             await self.container.handle_request(request)
+        except iostream.StreamClosedError:  # the client left before the answer
+            log.debug("client gone before the answer to %s %s", request.method, request.path)
         except Exception:
             log.exception("the application failed on %s %s", request.method, request.path)
             with contextlib.suppress(Exception):
