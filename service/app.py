@@ -16,7 +16,9 @@ from workers.metrics_dir import use_metrics_dir
 use_metrics_dir(os.environ)  # before prometheus_client is first imported (workers.metrics)
 
 from service.api import ProblemApi, batches, callbacks, checks, health, request_id
-from service.api.body_limit import BodyLimitMiddleware
+from service.api.body_gate import BodyGateMiddleware
+from service.api.path_ids import CONVERTERS, parameter_schema
+from service.api.security_headers import SecurityHeadersMiddleware
 from service.config import app_config
 from service.problems import PROBLEM_CONTENT_TYPE
 from workers.store import Stores
@@ -112,13 +114,16 @@ def create_app(config: dict[str, Any] | None = None) -> Flask:
         "withdraw": functions["withdraw"],
         "queue_size": functions["queue_size"],
     }
+    app.url_map.converters.update(CONVERTERS)
     api = ProblemApi(app)
+    for converter in CONVERTERS.values():
+        api.register_converter(converter, parameter_schema)
     for blueprint in BLUEPRINTS:
         api.register_blueprint(blueprint)
-    # --- report pages and plots (service.api.reports; images and HTML, outside the OpenAPI doc)
+    # report pages and plots (service.api.reports: images and HTML; matplotlib loads on first use)
     from service.api.reports import blp as reports_blueprint
 
-    app.register_blueprint(reports_blueprint)
+    api.register_blueprint(reports_blueprint)
     # ---
     from service.api.metrics import blp as metrics_blueprint
     from workers.logs import configure_json_logging
@@ -126,6 +131,6 @@ def create_app(config: dict[str, Any] | None = None) -> Flask:
     app.register_blueprint(metrics_blueprint)
     request_id.install(app)
     configure_json_logging()
-    app.wsgi_app = BodyLimitMiddleware(  # type: ignore[method-assign]
-        app.wsgi_app, int(app.config["BALLAST_MAX_BODY_BYTES"]))
+    app.wsgi_app = SecurityHeadersMiddleware(BodyGateMiddleware(  # type: ignore[method-assign]
+        app.wsgi_app, int(app.config["BALLAST_MAX_BODY_BYTES"]), stores.access))
     return app

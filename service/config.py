@@ -8,6 +8,10 @@ Keys (all upper case, in the Flask config):
 - ``BALLAST_ENQUEUE`` (``list[str] -> None``), ``BALLAST_WORKERS_ALIVE`` and
   ``BALLAST_QUEUE_REACHABLE`` (``() -> bool``): the queue's functions, injectable for tests.
 - ``BALLAST_MAX_BODY_BYTES``: largest request body accepted (413 above, chunked bodies too).
+- ``BALLAST_HEADER_TIMEOUT_S``: how long the HTTP front waits for a request's headers (and keeps
+  an idle connection); ``BALLAST_BODY_TIMEOUT_S``: how long a body may take to arrive (408
+  after); ``BALLAST_RECEIVE_BUDGET_BYTES``: the bodies one API process holds at once (503 above;
+  default four times the body limit). See ``service.front``.
 - ``BALLAST_MAX_VARIANTS``: largest batch.
 - ``BALLAST_MAX_UNFINISHED``: queued + running checks per tenant (429 above).
 - ``BALLAST_RATE_LIMIT`` requests per ``BALLAST_RATE_WINDOW_S`` seconds per tenant (429 above).
@@ -29,6 +33,7 @@ from __future__ import annotations
 import json
 import os
 from typing import Any
+from urllib.parse import urlsplit, urlunsplit
 
 DEFAULTS: dict[str, Any] = {
     "BALLAST_STORES": None,
@@ -37,7 +42,10 @@ DEFAULTS: dict[str, Any] = {
     "BALLAST_ENQUEUE": None,
     "BALLAST_WORKERS_ALIVE": None,
     "BALLAST_QUEUE_REACHABLE": None,
-    "BALLAST_MAX_BODY_BYTES": 512 * 1024 * 1024,
+    "BALLAST_MAX_BODY_BYTES": 128 * 1024 * 1024,  # see deploy/README.md, "Body limit"
+    "BALLAST_HEADER_TIMEOUT_S": 15.0,
+    "BALLAST_BODY_TIMEOUT_S": 120.0,
+    "BALLAST_RECEIVE_BUDGET_BYTES": None,
     "BALLAST_MAX_VARIANTS": 10_000,
     "BALLAST_MAX_UNFINISHED": 50_000,
     "BALLAST_RATE_LIMIT": 1_200,
@@ -61,6 +69,9 @@ DEFAULTS: dict[str, Any] = {
 _FROM_ENV = {
     "BALLAST_STORE_URL": str,
     "BALLAST_MAX_BODY_BYTES": int,
+    "BALLAST_HEADER_TIMEOUT_S": float,
+    "BALLAST_BODY_TIMEOUT_S": float,
+    "BALLAST_RECEIVE_BUDGET_BYTES": int,
     "BALLAST_MAX_VARIANTS": int,
     "BALLAST_MAX_UNFINISHED": int,
     "BALLAST_RATE_LIMIT": int,
@@ -107,3 +118,14 @@ def tenant_limit(config: dict[str, Any], tenant: str, name: str) -> Any:
     if name in override:
         return override[name]
     return config[_LIMIT_SETTINGS[name]]
+
+
+def printable_url(url: str) -> str:
+    """A store or broker URL as it may be printed or logged: its password replaced by ``***``
+    (RFC 3986 §3.2.1 userinfo; ``redis://:secret@host/0`` → ``redis://:***@host/0``)."""
+    parts = urlsplit(url)
+    if parts.password is None:
+        return url
+    user = parts.username or ""
+    host = parts.netloc.rsplit("@", 1)[1]
+    return urlunsplit(parts._replace(netloc=f"{user}:***@{host}"))

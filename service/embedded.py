@@ -24,6 +24,8 @@ from pathlib import Path
 
 import requests
 
+from service.config import printable_url
+from workers.private_files import private_directory, private_file
 from workers.runtime_config import RuntimeConfig, load_config
 from workers.threads import pin_engine_threads
 from workers.worker_process import worker_argv
@@ -70,8 +72,8 @@ class Child:
     restarts: list[float] = field(default_factory=list)
 
     def start(self) -> None:
-        self.log_path.parent.mkdir(parents=True, exist_ok=True)
-        with self.log_path.open("ab") as log:  # the child keeps its own descriptor
+        private_directory(self.log_path.parent)
+        with private_file(self.log_path).open("ab") as log:  # the child keeps its own copy
             self.process = subprocess.Popen(
                 self.argv, env=self.env, stdin=subprocess.DEVNULL, stdout=log,
                 stderr=subprocess.STDOUT, preexec_fn=_die_with_parent,
@@ -121,9 +123,8 @@ def prepare_token(config: RuntimeConfig) -> str:
         stores.close()
     if config.layout == "embedded" and not os.environ.get("BALLAST_TOKEN"):
         path = config.data_dir / TOKEN_FILE
-        tmp = path.with_suffix(f".{secrets.token_hex(4)}")
+        tmp = private_file(path.with_suffix(f".{secrets.token_hex(4)}"))  # 0600 from the start
         tmp.write_text(token + "\n")
-        tmp.chmod(0o600)
         tmp.replace(path)
     return token
 
@@ -224,7 +225,7 @@ class Supervisor:
 def serve(options: ServeOptions, out: Callable[[str], None] = print) -> int:
     """Run the service until SIGINT/SIGTERM; with ``options.demo``, run the demo first."""
     config = load_config()
-    config.data_dir.mkdir(parents=True, exist_ok=True)
+    private_directory(config.data_dir)  # a new data directory is 0700, its store files 0600
     token = prepare_token(config)
     supervisor = Supervisor(child_processes(config, options))
     previous = {sig: signal.signal(sig, supervisor.request_stop)
@@ -242,7 +243,7 @@ def serve(options: ServeOptions, out: Callable[[str], None] = print) -> int:
                 err(f"--- {child.log_path} (last lines) ---\n" + "\n".join(tail))
             return 3
         where = (f"store and broker in {config.data_dir}" if config.layout == "embedded"
-                 else f"Redis at {config.redis_url}")
+                 else f"Redis at {printable_url(config.redis_url or '')}")
         out(f"ballast is serving at {options.base_url} ({config.layout}: {where})")
         out(f"token: {token}")
         out(f"logs: {config.data_dir / 'logs'}")

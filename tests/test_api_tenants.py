@@ -75,6 +75,39 @@ def test_admin_command_creates_lists_and_revokes(tmp_path, capsys):
     assert ballast(["token", "--store", url, "create", "--tenant", "bad name!"]) == 3
 
 
+def test_token_commands_refuse_without_a_named_store(tmp_path, capsys, monkeypatch):
+    """Issue 10: without BALLAST_DATA_DIR, ``token create`` made a token in ./var of whatever
+    directory it ran in, a store no service reads."""
+    from service.cli.admin_cmd import STORE_SETTINGS
+
+    for name in STORE_SETTINGS:
+        monkeypatch.delenv(name, raising=False)
+    monkeypatch.chdir(tmp_path)
+    for action in (["create", "--tenant", "acme"], ["list"], ["revoke", "0123456789ab"]):
+        assert ballast(["token", *action]) == 3
+        err = capsys.readouterr().err
+        assert "--store" in err and "BALLAST_DATA_DIR" in err
+    assert list(tmp_path.iterdir()) == []  # no store was made anywhere
+    monkeypatch.setenv("BALLAST_DATA_DIR", str(tmp_path / "data"))
+    assert ballast(["token", "create", "--tenant", "acme"]) == 0
+    out, err = capsys.readouterr()
+    store = tmp_path / "data" / "store.sqlite3"
+    assert f"store sqlite:///{store}" in err and "'acme'" in err
+    assert tenant_of(sqlite_file_stores(store).access, out.strip()) == "acme"
+
+
+def test_the_store_is_named_without_its_password(monkeypatch):
+    from service.cli.admin_cmd import store_url
+    from service.config import printable_url
+
+    env = {"BALLAST_REDIS_URL": "redis://:s3cret@redis.internal:6379/0"}
+    assert store_url(None, env) == env["BALLAST_REDIS_URL"]
+    assert printable_url(env["BALLAST_REDIS_URL"]) == "redis://:***@redis.internal:6379/0"
+    assert printable_url("redis://ops:pw@h/1") == "redis://ops:***@h/1"
+    assert printable_url("sqlite:///var/store.sqlite3") == "sqlite:///var/store.sqlite3"
+    assert store_url("sqlite:///x.sqlite3", {}) == "sqlite:///x.sqlite3"
+
+
 def test_api_on_both_stores_keeps_tenants_apart(stores, clock):
     """The same flow on both back ends (the ``stores`` fixture runs SQLite and a real Redis)."""
     queue = FakeQueue()

@@ -132,3 +132,24 @@ def test_plots_wait_for_the_verdict(served):
         assert page.status_code == 200 and "queued" in page.text and "data:image" not in page.text
     finally:
         live.queue.release()
+
+
+def test_pages_and_plots_carry_the_security_headers(served):
+    """Pages get the policy they carry in their <meta> (plus frame-ancestors); SVG may style
+    itself; PNG may do nothing; all are nosniff (service.api.security_headers)."""
+    from service.reports.pages import PAGE_POLICY
+
+    live, session, batch_id, check_id = served
+    page = session.get(f"{live.url}/v1/checks/{check_id}/report?plots=none", timeout=60)
+    assert page.headers["Content-Security-Policy"] == PAGE_POLICY + "; frame-ancestors 'none'"
+    assert f'content="{PAGE_POLICY}"'.replace("'", "&#39;") in page.text
+    batch = session.get(f"{live.url}/v1/batches/{batch_id}/report", timeout=60)
+    svg = session.get(f"{live.url}/v1/checks/{check_id}/plots/ndf.svg", timeout=120)
+    png = session.get(f"{live.url}/v1/checks/{check_id}/plots/ndf.png", timeout=120)
+    for response in (page, batch, svg, png):
+        assert response.status_code == 200
+        assert response.headers["X-Content-Type-Options"] == "nosniff"
+        assert "frame-ancestors 'none'" in response.headers["Content-Security-Policy"]
+    assert "style-src 'unsafe-inline'" in svg.headers["Content-Security-Policy"]
+    assert png.headers["Content-Security-Policy"].startswith("default-src 'none';")
+    assert svg.headers["Cache-Control"] == "private, max-age=3600"  # the endpoint's own

@@ -139,6 +139,26 @@ def test_k_beyond_the_scale_is_marked_at_its_edge(cases):
     assert ax.get_ylabel().startswith("K, μ")
 
 
+def test_a_unilateral_two_port_plots_its_band():
+    """S12 = 0 (a transconductance from in to out, nothing back): K = (1 − |S11|² − |S22|² +
+    |Δ|²) / (2 |S12 S21|) (Rollett 1962) and μ are infinite or undefined at every frequency, so
+    no factor lies on the axis; the plot still spans the band (found by the API fuzz test: a
+    500, matplotlib refusing a log axis over its default 0..1)."""
+    f = [1e8, 1e9, 2e9, 3e9]
+    request = {
+        "frequency_hz": f, "parameters": "Y",
+        "data": {"re": [[[0.02, 0.0], [0.05, 0.02]]] * 4, "im": [[[0.0, 0.0], [0.0, 0.0]]] * 4},
+        "ports": [{"name": "in", "role": "external"}, {"name": "out", "role": "external"}],
+        "devices": [{"name": "Q1", "gm_s": 0.05, "control": ["in", None],
+                     "output": ["out", None]}],
+    }
+    data = figure_data(request, run_check_json(request))
+    assert np.abs(data.two_port.s[:, 0, 1]).max() == 0.0
+    assert not np.isfinite(data.two_port.factors.k).any()
+    ax = drawn("factors", data).axes[0]
+    assert ax.get_xscale() == "log" and ax.get_xlim() == pytest.approx((1e8, 3e9))
+
+
 def test_unconditionally_stable_two_port_says_so(cases):
     """μ > 1 everywhere by the Edwards–Sinsky closed form, and the note on the circles."""
     _, data = cases["pa_stable"]

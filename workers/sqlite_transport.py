@@ -33,6 +33,7 @@ from typing import Any
 
 from kombu.transport import virtual
 
+from workers.private_files import private_sqlite_file
 from workers.runtime_config import CHECK_HEADER
 
 _SCHEMA = """
@@ -85,6 +86,7 @@ class Channel(virtual.Channel):
         options = connection.client.transport_options
         path = path_from_url(connection.client.hostname)
         path.parent.mkdir(parents=True, exist_ok=True)
+        private_sqlite_file(path)  # check ids of every tenant: 0600 (workers.private_files)
         self._db = sqlite3.connect(
             path, timeout=float(options.get("busy_timeout_ms", 30_000)) / 1000,
             isolation_level=None, check_same_thread=False,

@@ -24,7 +24,7 @@ from marshmallow import ValidationError
 
 from service.api.common import IDEMPOTENCY_HEADER, json_object_body, parse_json
 from service.api.jsonbody import cut_batch
-from service.api.jsontext import loads_json
+from service.api.request_reader import read_request
 from service.intake import new_check
 from service.problems import abort_problem, field_errors
 from service.schemas.batch import (
@@ -32,6 +32,7 @@ from service.schemas.batch import (
     BatchUploadSchema,
     VariantError,
     load_variant,
+    part_bytes,
 )
 from service.schemas.errors import flatten_errors
 from service.schemas.request import CheckRequestSchema
@@ -156,7 +157,12 @@ def json_batch() -> BatchIntake:
 
     def variant(i: int) -> Any:
         text = texts[i]
-        return loads_json(text) if isinstance(text, bytes) else text
+        if not isinstance(text, bytes | memoryview):
+            return text
+        try:  # the body's syntax was checked whole; only nesting too deep for the stack is left
+            return read_request(text)
+        except ValueError as exc:
+            raise VariantError([("", f"is not valid JSON: {exc}")]) from None
 
     return BatchIntake(body.get("label"),
                        ValidatedVariants(len(texts), variant, shared, "variants"),
@@ -182,13 +188,14 @@ def multipart_form() -> dict[str, Any]:
 def multipart_batch() -> BatchIntake:
     """``multipart/form-data``: ``BatchUploadSchema``, one variant per file."""
     body = _envelope(BatchUploadSchema(), multipart_form())
-    files: list[tuple[str | None, bytes]] = body["files"]
+    files: list[tuple[str | None, Any]] = body["files"]
     shared = body["map"]
 
     ports = shared.get("ports") if isinstance(shared, dict) else None
 
     def variant(i: int) -> Any:
-        name, data = files[i]
+        name, part = files[i]
+        data = part_bytes(part)  # one file in memory at a time (werkzeug spools large parts)
         named = ports_from_filename(name)
         if named is not None and isinstance(ports, list) and named != len(ports):
             raise VariantError([("", f"the file name {name!r} says {named} ports (.s{named}p) "
@@ -207,12 +214,12 @@ def multipart_batch() -> BatchIntake:
 
 
 def _upload_fingerprint(label: str | None, shared: dict[str, Any],
-                        files: Sequence[tuple[str | None, bytes]]) -> str:
+                        files: Sequence[tuple[str | None, Any]]) -> str:
     """SHA-256 over the label, the map and each file's name and bytes (a multipart body's part
     boundaries change from one sending to the next, so its bytes cannot be the fingerprint)."""
     digest = hashlib.sha256(json.dumps(
         [label, shared, request.form.get("priority"), request.form.get("callback_url")],
         sort_keys=True).encode())
-    for name, data in files:
-        digest.update(json.dumps(name).encode() + hashlib.sha256(data).digest())
+    for name, part in files:
+        digest.update(json.dumps(name).encode() + hashlib.sha256(part_bytes(part)).digest())
     return digest.hexdigest()

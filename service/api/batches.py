@@ -30,6 +30,7 @@ from service.api.common import (
     iso,
     store_checks,
 )
+from service.api.path_ids import require_path_ids
 from service.api.tenancy import authenticate, check_store, tenant
 from service.problems import abort_problem, field_errors
 from service.schemas.api import (
@@ -53,6 +54,7 @@ from workers.store import (
 blp = Blueprint("batches", __name__, url_prefix="/v1/batches",
                 description="Batches of variants sharing one port/device map")
 blp.before_request(authenticate)
+blp.before_request(require_path_ids)  # after the token: 401 first
 
 def _accepted(batch_id: str) -> tuple[dict[str, Any], int, dict[str, str]]:
     record = check_store().get_batch(tenant(), batch_id)
@@ -136,7 +138,7 @@ def _found(batch_id: str) -> BatchRecord:
     return record
 
 
-@blp.route("/<string:batch_id>", methods=["GET"])
+@blp.route("/<batch_id:batch_id>", methods=["GET"])
 @blp.doc(operationId="getBatch")
 @blp.response(200, BatchSchema)
 @document_errors(blp, 401, 404, 429)
@@ -146,7 +148,7 @@ def get_batch(batch_id: str):
     return batch_view(record, size=len(record.check_ids))
 
 
-@blp.route("/<string:batch_id>", methods=["DELETE"])
+@blp.route("/<batch_id:batch_id>", methods=["DELETE"])
 @blp.doc(operationId="cancelBatch")
 @blp.response(200, BatchSchema, description="The batch after cancelling its unfinished checks")
 @document_errors(blp, 401, 404, 429)
@@ -166,13 +168,19 @@ def encode_cursor(after: str) -> str:
     return base64.urlsafe_b64encode(raw).decode().rstrip("=")
 
 
+# A cursor holds a position within one batch (at most BALLAST_MAX_VARIANTS); anything at or past
+# 2**53 (exact in a Redis score, inside SQLite's and LRANGE's 64-bit integers) was not given out.
+MAX_CURSOR_POSITION = 2**53
+
+
 def decode_cursor(cursor: str) -> str:
     try:
         raw = base64.urlsafe_b64decode(cursor + "=" * (-len(cursor) % 4))
         after = json.loads(raw)["after"]
-        if not isinstance(after, str) or not after.isdigit():
+        if not (isinstance(after, str) and after.isascii() and after.isdigit()
+                and len(after) <= 16 and int(after) < MAX_CURSOR_POSITION):
             raise ValueError(after)
-    except (binascii.Error, ValueError, KeyError, TypeError, UnicodeDecodeError):
+    except (binascii.Error, ValueError, KeyError, TypeError, RecursionError):
         abort_problem(400, "the cursor is not one this API gave out", kind="invalid-cursor",
                       errors=field_errors([("cursor", "unknown cursor")]))
     return after
@@ -191,7 +199,7 @@ def item_view(record: CheckRecord) -> dict[str, Any]:
     }
 
 
-@blp.route("/<string:batch_id>/checks", methods=["GET"])
+@blp.route("/<batch_id:batch_id>/checks", methods=["GET"])
 @blp.doc(operationId="listBatchChecks")
 @blp.arguments(BatchChecksQuerySchema, location="query", as_kwargs=True, unknown=RAISE)
 @blp.response(200, BatchChecksPageSchema, headers={"Link": {

@@ -19,6 +19,9 @@ from service.api.common import (
     store_checks,
     validation_problem,
 )
+from service.api.jsonbody import parse_body
+from service.api.path_ids import require_path_ids
+from service.api.request_reader import read_request
 from service.api.tenancy import authenticate, check_store, tenant
 from service.intake import load_request, new_check
 from service.problems import abort_problem
@@ -34,6 +37,7 @@ from workers.store import UNFINISHED_STATUSES
 blp = Blueprint("checks", __name__, url_prefix="/v1/checks",
                 description="Single stability checks")
 blp.before_request(authenticate)
+blp.before_request(require_path_ids)  # after the token: 401 first
 
 IDEMPOTENCY_PARAMETER = {
     "in": "header", "name": IDEMPOTENCY_HEADER, "required": False,
@@ -81,12 +85,13 @@ def submit_check():
 
 
 def _submit_check() -> tuple[dict[str, Any], int, dict[str, str]]:
-    body = json_object_body()
+    body = json_object_body(lambda raw: read_request(raw, parse_body))
     try:  # how it is queued is not part of the check request
         priority = load_priority(body.pop("priority", "normal"))
     except ValidationError as exc:
         validation_problem(exc)
     check = new_check(validate_request(body))  # stored as validated
+    del body  # the parsed arrays: only the stored form is kept while the store writes it
 
     def create() -> str:
         _, (check_id,) = store_checks([check], submission(priority))
@@ -96,7 +101,7 @@ def _submit_check() -> tuple[dict[str, Any], int, dict[str, str]]:
     return accepted(check_id)
 
 
-@blp.route("/<string:check_id>/samples", methods=["POST"])
+@blp.route("/<check_id:check_id>/samples", methods=["POST"])
 @blp.doc(
     operationId="addSamples",
     parameters=[IDEMPOTENCY_PARAMETER],
@@ -149,7 +154,7 @@ def _found(check_id: str):
     return record
 
 
-@blp.route("/<string:check_id>", methods=["GET"])
+@blp.route("/<check_id:check_id>", methods=["GET"])
 @blp.doc(operationId="getCheck")
 @blp.response(200, CheckSchema, headers={"Retry-After": {
     "schema": {"type": "integer"}, "description": "while unfinished: seconds before polling"}})
@@ -163,7 +168,7 @@ def get_check(check_id: str):
     return check_view(record)
 
 
-@blp.route("/<string:check_id>", methods=["DELETE"])
+@blp.route("/<check_id:check_id>", methods=["DELETE"])
 @blp.doc(operationId="cancelCheck")
 @blp.response(200, CheckSchema, description="The check after cancellation (a finished check "
                                             "is left as it was)")

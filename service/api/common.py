@@ -3,7 +3,6 @@
 from __future__ import annotations
 
 import hashlib
-import json
 from collections.abc import Callable
 from datetime import UTC, datetime
 from typing import Any
@@ -12,8 +11,9 @@ from flask import current_app, g, request
 from flask_smorest import Blueprint
 from marshmallow import ValidationError
 
-from service.api.body_limit import BODY_BYTES_KEY
+from service.api.body_gate import BODY_BYTES_KEY
 from service.api.jsonbody import parse_body, reject_constant
+from service.api.jsontext import stdlib_loads
 from service.api.tenancy import access_store, retry_after, tenant
 from service.problems import PROBLEM_CONTENT_TYPE, ProblemSchema, abort_problem, field_errors
 from service.schemas.errors import flatten_errors
@@ -29,10 +29,11 @@ _ERROR_HEADERS: dict[int, dict[str, Any]] = {
     429: _RETRY_AFTER,
 }
 _ERROR_MEANING = {
-    400: "Malformed JSON, header or cursor",
+    400: "Malformed JSON, header, cursor or query value",
     401: "No valid bearer token",
     404: "No such check or batch for this tenant",
-    409: "A request with this Idempotency-Key is still being accepted",
+    409: "A request with this Idempotency-Key is still being accepted, or (plots) the check "
+         "has no verdict yet",
     411: "Chunked body on a server that does not de-chunk",
     413: "Request body above the configured limit",
     415: "Body is not application/json (or multipart/form-data for batches)",
@@ -66,8 +67,8 @@ def iso(ts: float | None) -> str | None:
 
 def parse_json(data: bytes | str, what: str = "the request body") -> Any:
     try:
-        return json.loads(data, parse_constant=reject_constant)
-    except (ValueError, RecursionError) as exc:  # JSONDecodeError and UnicodeDecodeError too
+        return stdlib_loads(data, parse_constant=reject_constant)
+    except ValueError as exc:  # JSONDecodeError, UnicodeDecodeError, nesting too deep
         abort_problem(400, f"{what} is not valid JSON: {exc}", kind="malformed-json")
 
 

@@ -2,10 +2,11 @@
 
 orjson reads a body (RFC 8259). A body orjson refuses goes to ``json.loads``, which either refuses
 it too (NaN and Infinity included), with its message naming the line, column and what is wrong,
-or reads what orjson does not (a UTF-8 byte order mark, lone surrogate escapes, ``1e400`` read as
-infinity for the schema to refuse). The garbage collector is paused while orjson builds the value
-(``service.api.jsontext``). One difference remains: an integer outside [-2**63, 2**64) is read as
-the nearest float, as the check request schema reads every number anyway.
+or reads what orjson does not (a UTF-8 byte order mark, lone surrogate escapes, ``1e400`` and
+integers beyond the largest float read as infinity for the schema to refuse:
+``service.api.jsontext.stdlib_loads``). The garbage collector is paused while orjson builds the
+value (``service.api.jsontext``). One difference remains: an integer outside [-2**63, 2**64) is
+read as the nearest float, as the check request schema reads every number anyway.
 """
 
 from __future__ import annotations
@@ -16,7 +17,8 @@ from typing import Any
 import msgspec
 import orjson
 
-from service.api.jsontext import loads_json, orjson_loads
+from service.api.jsontext import loads_json, orjson_loads, stdlib_loads
+from service.api.request_reader import read_request
 
 
 def reject_constant(name: str) -> Any:
@@ -29,7 +31,7 @@ def parse_body(raw: bytes | str) -> Any:
     try:
         return orjson_loads(raw)
     except orjson.JSONDecodeError:
-        return json.loads(raw, parse_constant=reject_constant)
+        return stdlib_loads(raw, parse_constant=reject_constant)
 
 
 class _BatchOutline(msgspec.Struct, forbid_unknown_fields=True):
@@ -38,13 +40,14 @@ class _BatchOutline(msgspec.Struct, forbid_unknown_fields=True):
     map: msgspec.Raw | msgspec.UnsetType = msgspec.UNSET
 
 
-def _text(raw: msgspec.Raw) -> bytes:
-    return bytes(memoryview(raw))
+def _text(raw: msgspec.Raw) -> memoryview:
+    return memoryview(raw)  # a view of the body: no copy
 
 
 def cut_batch(raw: bytes) -> Any:
     """A batch body as ``service.schemas.batch.BatchRequestSchema`` loads it: each element of
-    its ``variants`` array left as its JSON text (bytes, to be parsed when its turn comes), every
+    its ``variants`` array left as its JSON text (a memoryview of the body, to be parsed when its
+    turn comes), the map read by ``service.api.request_reader`` (its data as arrays), every
     other member parsed. Raises ValueError (``json.loads``'s message) when the body is not JSON.
 
     msgspec checks the whole body's syntax and skips over each variant without building it
@@ -61,10 +64,10 @@ def cut_batch(raw: bytes) -> Any:
     except msgspec.DecodeError:
         return _parsed_whole(raw)
     body: dict[str, Any] = {"variants": [_text(v) for v in outline.variants]}
-    for name in ("label", "map"):
-        member = getattr(outline, name)
-        if not isinstance(member, msgspec.UnsetType):
-            body[name] = loads_json(_text(member))
+    if not isinstance(outline.label, msgspec.UnsetType):
+        body["label"] = loads_json(_text(outline.label))
+    if not isinstance(outline.map, msgspec.UnsetType):
+        body["map"] = read_request(_text(outline.map))
     return body
 
 
@@ -83,7 +86,7 @@ def _cut_loosely(raw: bytes) -> Any:
                 continue
             except msgspec.ValidationError:  # not an array: the schema names it
                 pass
-        body[name] = loads_json(_text(member))
+        body[name] = read_request(_text(member)) if name == "map" else loads_json(_text(member))
     return body
 
 

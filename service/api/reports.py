@@ -7,8 +7,8 @@
                                                   ?nodes=all: every node's admittance)
     GET /v1/batches/{id}/report                   HTML page: sortable table of the batch's checks
 
-A plain Flask blueprint: the bodies are images and HTML, so these routes are kept out of the
-JSON API's OpenAPI document. Errors are problem+json like the rest of the API. Plots are
+The bodies are images and HTML; the OpenAPI document describes them as such (the routes, their
+parameters and media types), and errors are problem+json like the rest of the API. Plots are
 recomputed from the stored request (``service.reports.data``) and drawn on demand; a small
 per-process cache keeps the last few, since a finished check never changes.
 """
@@ -21,19 +21,23 @@ import threading
 from collections import OrderedDict
 from typing import Any
 
-from flask import Blueprint, Response, request, url_for
+from flask import Response, request, url_for
+from flask_smorest import Blueprint
 
-from service.api.common import check_view
+from service.api.common import check_view, document_errors
+from service.api.path_ids import require_path_ids
 from service.api.tenancy import authenticate, check_store, tenant
-from service.problems import abort_problem
+from service.problems import abort_problem, field_errors
 from workers.store import StoredRequest
 
-blp = Blueprint("reports", __name__)
+blp = Blueprint("reports", __name__, description="Report pages and plots of finished checks")
 blp.before_request(authenticate)
+blp.before_request(require_path_ids)  # after the token: 401 first
 
 PLOT_NAMES = ("ndf", "admittance", "factors", "circles")
 DEVICE_PLOT = re.compile(r"device-([1-9][0-9]*)")
 NODE_CHOICES = ("relevant", "all")
+PLOT_CHOICES = ("all", "none")
 IMAGE_TYPES = {"svg": "image/svg+xml", "png": "image/png"}
 NOTES = "device-notes"
 CACHE_SIZE = 64
@@ -68,6 +72,33 @@ class _ImageCache:
 
 _CACHE = _ImageCache(CACHE_SIZE)
 
+NODES_PARAMETER = {
+    "in": "query", "name": "nodes", "required": False,
+    "schema": {"type": "string", "enum": list(NODE_CHOICES), "default": "relevant"},
+    "description": "admittance plot: the nodes that matter (default) or every node",
+}
+PLOTS_PARAMETER = {
+    "in": "query", "name": "plots", "required": False,
+    "schema": {"type": "string", "enum": list(PLOT_CHOICES), "default": "all"},
+    "description": "none: the page without its plots (quicker)",
+}
+PLOT_PARAMETERS = [
+    {"in": "path", "name": "name", "required": True,
+     "schema": {"type": "string",
+                "pattern": "^(" + "|".join(PLOT_NAMES) + "|" + DEVICE_PLOT.pattern + ")$"},
+     "description": "ndf, admittance, factors (K and μ), circles, or device-<k>: the return "
+                    "difference of the k-th device"},
+    {"in": "path", "name": "fmt", "required": True,
+     "schema": {"type": "string", "enum": list(IMAGE_TYPES)}},
+    NODES_PARAMETER,
+]
+IMAGE_RESPONSE = {"200": {"description": "The plot", "content": {
+    "image/svg+xml": {"schema": {"type": "string"}},
+    "image/png": {"schema": {"type": "string", "format": "binary"}}}}}
+PAGE_RESPONSE = {"200": {"description": "The HTML page (self-contained: styles, script and "
+                                        "plots inline)",
+                         "content": {"text/html": {"schema": {"type": "string"}}}}}
+
 
 def _done_check(check_id: str) -> tuple[Any, StoredRequest]:
     """The tenant's finished check and its stored request (``service.runner.load_request``
@@ -85,12 +116,17 @@ def _done_check(check_id: str) -> tuple[Any, StoredRequest]:
     return record, payload
 
 
-def _node_choice() -> str:
-    choice = request.args.get("nodes", "relevant")
-    if choice not in NODE_CHOICES:
-        abort_problem(400, f"nodes must be one of {', '.join(NODE_CHOICES)}, not {choice!r}",
-                      kind="invalid-query")
+def _query_choice(name: str, choices: tuple[str, ...]) -> str:
+    choice = request.args.get(name, choices[0])
+    if choice not in choices:
+        abort_problem(400, f"{name} must be one of {', '.join(choices)}, not {choice!r}",
+                      kind="invalid-query", errors=field_errors([(name, "not one of "
+                                                                  + ", ".join(choices))]))
     return choice
+
+
+def _node_choice() -> str:
+    return _query_choice("nodes", NODE_CHOICES)
 
 
 def _plots(check_id: str, names: tuple[str, ...], fmt: str, nodes: str = "relevant"
@@ -140,7 +176,9 @@ def _device_notes(check_id: str, verdict: dict[str, Any]) -> dict[str, str]:
     return json.loads(notes or b"{}")
 
 
-@blp.route("/v1/checks/<string:check_id>/plots/<string:name>.<string:fmt>", methods=["GET"])
+@blp.route("/v1/checks/<check_id:check_id>/plots/<string:name>.<string:fmt>", methods=["GET"])
+@blp.doc(operationId="getCheckPlot", parameters=PLOT_PARAMETERS, responses=IMAGE_RESPONSE)
+@document_errors(blp, 400, 401, 404, 409, 429)
 def check_plot(check_id: str, name: str, fmt: str) -> Response:
     """One plot of a finished check as SVG or PNG."""
     if name not in PLOT_NAMES and not DEVICE_PLOT.fullmatch(name):
@@ -159,7 +197,10 @@ def check_plot(check_id: str, name: str, fmt: str) -> Response:
                     headers={"Cache-Control": "private, max-age=3600"})
 
 
-@blp.route("/v1/checks/<string:check_id>/report", methods=["GET"])
+@blp.route("/v1/checks/<check_id:check_id>/report", methods=["GET"])
+@blp.doc(operationId="getCheckReport", parameters=[NODES_PARAMETER, PLOTS_PARAMETER],
+         responses=PAGE_RESPONSE)
+@document_errors(blp, 400, 401, 404, 429)
 def check_report(check_id: str) -> Response:
     """The HTML page of one check (plots embedded when it is done)."""
     from service.reports.pages import check_page
@@ -168,11 +209,12 @@ def check_report(check_id: str) -> Response:
     if record is None:
         abort_problem(404, f"no check {check_id!r}", kind="not-found")
     nodes = _node_choice()
+    with_plots = _query_choice("plots", PLOT_CHOICES) == "all"
     images: dict[str, bytes | None] = {}
     notes: dict[str, str] = {}
     all_nodes_href = None
     if record.status == "done" and record.verdict:
-        if request.args.get("plots") != "none":
+        if with_plots:
             devices = tuple(f"device-{d.get('order')}" for d in record.verdict.get("devices")
                             or [] if isinstance(d.get("order"), int))
             images, notes = _plots(check_id, PLOT_NAMES + devices, "svg", nodes)
@@ -188,7 +230,9 @@ def check_report(check_id: str) -> Response:
     return Response(page, mimetype="text/html")
 
 
-@blp.route("/v1/batches/<string:batch_id>/report", methods=["GET"])
+@blp.route("/v1/batches/<batch_id:batch_id>/report", methods=["GET"])
+@blp.doc(operationId="getBatchReport", responses=PAGE_RESPONSE)
+@document_errors(blp, 401, 404, 429)
 def batch_report(batch_id: str) -> Response:
     """The HTML page of a batch: every check, sortable by verdict, frequency and node."""
     from service.api.batches import batch_view, item_view

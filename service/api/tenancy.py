@@ -36,17 +36,24 @@ def retry_after(seconds: float) -> str:
     return str(max(1, math.ceil(seconds)))
 
 
-def authenticate() -> None:
-    """``before_request`` of the /v1 blueprints: 401 without a valid token, 429 over the rate."""
-    header = request.headers.get("Authorization", "")
-    scheme, _, token = header.partition(" ")
+def bearer_tenant(authorization: str, access: AccessStore) -> str:
+    """The tenant of an ``Authorization: Bearer`` header's token (RFC 6750); raises the 401
+    ``Problem``. Used by :func:`authenticate` and, before any body is read, by the body gate
+    (``service.api.body_gate``)."""
+    scheme, _, token = authorization.partition(" ")
     if scheme.lower() != "bearer" or not token.strip():
         abort_problem(401, "send the API token as 'Authorization: Bearer <token>'",
                       kind="unauthenticated", headers={"WWW-Authenticate": BEARER_CHALLENGE})
-    found = tenant_of(access_store(), token.strip())
+    found = tenant_of(access, token.strip())
     if found is None:
         abort_problem(401, "the token is unknown or revoked", kind="unauthenticated",
                       headers={"WWW-Authenticate": BEARER_CHALLENGE + ', error="invalid_token"'})
+    return found
+
+
+def authenticate() -> None:
+    """``before_request`` of the /v1 blueprints: 401 without a valid token, 429 over the rate."""
+    found = bearer_tenant(request.headers.get("Authorization", ""), access_store())
     g.tenant = found
     config = current_app.config
     limit = int(tenant_limit(config, found, "rate_limit"))

@@ -3,12 +3,17 @@
 of variants sortable by verdict, frequency and node, each row linking to its check's page).
 
 Pages are self-contained: CSS and the small sorting script are inline, plots are embedded as
-``data:`` URIs, so a page can be mailed, archived by CI or served as it is.
+``data:`` URIs, so a page can be mailed, archived by CI or served as it is. Each page carries its
+Content-Security-Policy (:data:`PAGE_POLICY`, also sent as a header by the API): nothing is
+fetched, images only from ``data:``, the one style sheet and the one script only by their
+SHA-256 (CSP Level 3, "hash-source"), inline ``style`` attributes allowed (the page's colours
+and bar widths, escaped by Jinja).
 """
 
 from __future__ import annotations
 
 import base64
+import hashlib
 from collections.abc import Callable, Mapping
 from typing import Any
 
@@ -114,12 +119,28 @@ _SORT_JS = """
 })();
 """
 
+
+
+def _hash_source(text: str) -> str:
+    """A CSP hash-source: 'sha256-' and the base64 of the SHA-256 of the UTF-8 text."""
+    return "'sha256-" + base64.b64encode(hashlib.sha256(text.encode()).digest()).decode() + "'"
+
+
+_STYLE = style.css_variables() + _CSS
+#: what a page may load and run (the <meta> form: frame-ancestors only works as a header)
+PAGE_POLICY = "; ".join((
+    "default-src 'none'", "img-src data:", "style-src 'unsafe-inline'",
+    f"style-src-elem {_hash_source(_STYLE)}", "style-src-attr 'unsafe-inline'",
+    f"script-src {_hash_source(_SORT_JS)}", "base-uri 'none'", "form-action 'none'",
+))
+
 _BASE = """<!doctype html>
 <html lang="en"><head><meta charset="utf-8">
+<meta http-equiv="Content-Security-Policy" content="{{ policy }}">
 <meta name="viewport" content="width=device-width,initial-scale=1">
 <meta name="generator" content="ballast">
 <title>{{ title }}</title>
-<style>{{ css_vars|safe }}{{ css|safe }}</style></head>
+<style>{{ style_sheet|safe }}</style></head>
 <body><header class="strip"><span class="mark">ballast</span><span class="what">{{ kind }}</span>
 </header><main>{% block main %}{% endblock %}</main>
 {% block script %}{% endblock %}</body></html>
@@ -198,7 +219,7 @@ _ENV = Environment(autoescape=True,
 
 
 def _common() -> dict[str, Any]:
-    return {"css": _CSS, "css_vars": style.css_variables()}
+    return {"style_sheet": _STYLE, "policy": PAGE_POLICY}
 
 
 def data_uri(content: bytes, fmt: str) -> str:

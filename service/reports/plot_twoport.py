@@ -96,6 +96,9 @@ def factors_figure(curves: TwoPortCurves) -> Figure:
                 f"off-scale-{key}-{j}", look["color"], 7.5, marker_pt=5.0))
     ax.axhline(1.0, color=style.ALERT, linewidth=0.9, gid="unity-line")
     frequency_axis(ax)
+    # the band, also when no factor is finite (S12 = 0: K and μ are infinite; the axis would
+    # otherwise keep matplotlib's default 0..1, which a log axis cannot show)
+    ax.set_xlim(f[positive][0], f[positive][-1])
     ax.set_ylim(low, high)
     ax.set_ylabel("K, μ, μ′ (dimensionless)")
     ax.set_title(f"two-port factors between {curves.ports[0]} and {curves.ports[1]} "

@@ -106,15 +106,24 @@ class VariantList(fields.List):
 
 
 class UploadedFile(fields.Field):
-    """One file part: its name and its bytes."""
+    """One file part: its name and the part, read when its variant's turn comes
+    (:func:`part_bytes`), so that a batch's files are not all in memory at once."""
 
     def _deserialize(self, value: Any, attr: str | None, data: Any, **kwargs: Any
-                     ) -> tuple[str | None, bytes]:
+                     ) -> tuple[str | None, Any]:
         if isinstance(value, str):  # a plain form field in place of a file part
             return None, value.encode()
         if not hasattr(value, "read"):
             raise ValidationError("must be a file part")
-        return getattr(value, "filename", None) or None, value.read()
+        return getattr(value, "filename", None) or None, value
+
+
+def part_bytes(part: Any) -> bytes:
+    """The bytes of a part as :class:`UploadedFile` keeps it (read from its start)."""
+    if isinstance(part, bytes):
+        return part
+    part.seek(0)
+    return part.read()
 
 
 class BatchRequestSchema(_Strict):

@@ -46,9 +46,12 @@ _COMPLEX_DOC = {
 }
 
 
+_NOT_FINITE = "must contain only finite numbers (no NaN or infinity)"
+
+
 def _finite(values: np.ndarray, name: str) -> np.ndarray:
     if not np.isfinite(values).all():
-        raise ValidationError({name: ["must contain only finite numbers (no NaN or infinity)"]})
+        raise ValidationError({name: [_NOT_FINITE]})
     return values
 
 
@@ -85,12 +88,15 @@ def unpack_array(value: dict[str, Any], dtype: str, ndim: int) -> np.ndarray:
             isinstance(n, int) and not isinstance(n, bool) and n >= 0 for n in shape)):
         raise ValidationError({"shape": [f"must be a list of {ndim} non-negative integers"]})
     text = value["base64"]
-    if not isinstance(text, str):
+    if isinstance(text, bytes):  # decoded already while the JSON was read (request_reader)
+        raw = text
+    elif not isinstance(text, str):
         raise ValidationError({"base64": ["must be a string"]})
-    try:
-        raw = b64decode(text, validate=True)
-    except (binascii.Error, ValueError) as exc:
-        raise ValidationError({"base64": [f"is not base64 (RFC 4648): {exc}"]}) from exc
+    else:
+        try:
+            raw = b64decode(text, validate=True)
+        except (binascii.Error, ValueError) as exc:
+            raise ValidationError({"base64": [f"is not base64 (RFC 4648): {exc}"]}) from exc
     item = PACKED_DTYPES[dtype].itemsize
     expected = math.prod(shape) * item  # exact: numpy's int64 product could wrap to a match
     if len(raw) != expected:
@@ -101,7 +107,7 @@ def unpack_array(value: dict[str, Any], dtype: str, ndim: int) -> np.ndarray:
         bad = int(np.flatnonzero(~np.isfinite(values.reshape(-1)))[0])
         raise ValidationError({"base64": [
             f"must hold only finite numbers (value {bad} in row-major order is not)"]})
-    return values.astype(values.dtype.newbyteorder("="))
+    return values.astype(values.dtype.newbyteorder("="), copy=False)  # a view on little-endian
 
 
 def pack_array(values: np.ndarray) -> dict[str, Any]:
@@ -114,6 +120,8 @@ def pack_array(values: np.ndarray) -> dict[str, Any]:
 def _as_float_array(raw: Any, name: str, ndim: int) -> np.ndarray:
     try:
         values = np.asarray(raw, dtype=float)
+    except OverflowError as exc:  # an integer beyond the largest float
+        raise ValidationError({name: [_NOT_FINITE]}) from exc
     except (TypeError, ValueError) as exc:
         raise ValidationError(
             {name: [f"must be a {ndim}-dimensional array of numbers with equal-length rows"]}
@@ -150,7 +158,9 @@ class ComplexArray(fields.Field):
         im = _as_float_array(value["im"], "im", self.ndim)
         if re.shape != im.shape:
             raise ValidationError(f"re has shape {re.shape} but im has shape {im.shape}")
-        return re + 1j * im
+        values = np.empty(re.shape, dtype=complex)  # re + 1j * im without two temporaries
+        values.real, values.imag = re, im
+        return values
 
 
 class FloatArray(fields.Field):
@@ -169,6 +179,8 @@ class FloatArray(fields.Field):
             raise ValidationError("must be an array of numbers")
         try:
             values = np.asarray(value, dtype=float)
+        except OverflowError as exc:  # an integer beyond the largest float
+            raise ValidationError(_NOT_FINITE) from exc
         except (TypeError, ValueError) as exc:
             raise ValidationError("must be an array of numbers") from exc
         if values.ndim != 1:
@@ -189,14 +201,18 @@ class ComplexNumber(fields.Field):
     def _deserialize(self, value: Any, attr: str | None, data: Any, **kwargs: Any) -> complex:
         if isinstance(value, bool):
             raise ValidationError("must be a number or {re, im}")
-        if isinstance(value, int | float):
-            number = complex(value)
-        elif isinstance(value, dict) and set(value) == {"re", "im"} and all(
-                isinstance(value[k], int | float) and not isinstance(value[k], bool)
-                for k in ("re", "im")):
-            number = complex(value["re"], value["im"])
-        else:
-            raise ValidationError('must be a number or an object {"re": number, "im": number}')
+        try:
+            if isinstance(value, int | float):
+                number = complex(value)
+            elif isinstance(value, dict) and set(value) == {"re", "im"} and all(
+                    isinstance(value[k], int | float) and not isinstance(value[k], bool)
+                    for k in ("re", "im")):
+                number = complex(value["re"], value["im"])
+            else:
+                raise ValidationError(
+                    'must be a number or an object {"re": number, "im": number}')
+        except OverflowError as exc:  # an integer beyond the largest float
+            raise ValidationError("must be finite") from exc
         if not np.isfinite(number):
             raise ValidationError("must be finite")
         return number
@@ -342,8 +358,11 @@ def _network(raw: dict[str, Any], prefix: str, n_ports: int, options: CheckOptio
     if values.shape[1:] != (n_ports, n_ports):
         raise InputError(f"{prefix}data", f"has matrices of shape {values.shape[1:]} but ports "
                                           f"lists {n_ports} ports")
-    z0 = np.asarray(raw.get("z0_ohm", 50.0), dtype=float) if _numeric(raw.get("z0_ohm", 50.0)) \
-        else None
+    try:
+        z0 = np.asarray(raw.get("z0_ohm", 50.0), dtype=float) \
+            if _numeric(raw.get("z0_ohm", 50.0)) else None
+    except OverflowError:  # an integer beyond the largest float
+        raise InputError(f"{prefix}z0_ohm", "must be positive and finite") from None
     if z0 is None or z0.ndim > 1 or (z0.ndim == 1 and z0.size != n_ports):
         raise InputError(f"{prefix}z0_ohm", f"must be one positive number or {n_ports} of them")
     if not (np.isfinite(z0).all() and (z0 > 0).all()):

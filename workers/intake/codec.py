@@ -54,11 +54,11 @@ class SharedArrays:
 
     def __init__(self, min_bytes: int = SHARED_MIN_BYTES) -> None:
         self.min_bytes = min_bytes
-        self.blobs: dict[str, bytes] = {}
-        self._by_size: dict[int, list[tuple[bytes, str]]] = {}
+        self.blobs: dict[str, bytes | memoryview] = {}
+        self._by_size: dict[int, list[tuple[bytes | memoryview, str]]] = {}
         self._collecting = True
 
-    def refer(self, raw: bytes) -> str | None:
+    def refer(self, raw: bytes | memoryview) -> str | None:
         """The hash under which ``raw`` is kept, or None when it is kept inline."""
         if len(raw) < self.min_bytes:
             return None
@@ -87,7 +87,8 @@ def encode_request(request: CheckRequest, shared: SharedArrays | None = None) ->
             name = data.dtype.newbyteorder("<").str
             if name not in ARRAY_DTYPES:
                 raise TypeError(f"an array of {data.dtype} has no stored form")
-            raw = data.astype(ARRAY_DTYPES[name], copy=False).tobytes()
+            # the array's own bytes, not a copy (msgpack writes a buffer as bin)
+            raw = memoryview(data.astype(ARRAY_DTYPES[name], copy=False)).cast("B")
             digest = shared.refer(raw) if shared is not None else None
             body = {"ref": digest} if digest is not None else {"bytes": raw}
             return {"dtype": name, "shape": list(data.shape), **body}

@@ -15,6 +15,7 @@ import time
 from collections.abc import Callable, Iterator
 from contextlib import AbstractContextManager, contextmanager
 
+from workers.private_files import private_sqlite_file
 from workers.store.records import DEFAULT_RETENTION_S
 
 SCHEMA = """
@@ -121,6 +122,7 @@ class SqliteDatabase:
         self.busy_timeout_s = busy_timeout_s
         self._local = threading.local()
         os.makedirs(os.path.dirname(os.path.abspath(self.path)), exist_ok=True)
+        private_sqlite_file(self.path)  # every tenant's data: 0600 (workers.private_files)
         conn = self.conn()
         conn.executescript(SCHEMA)
         for table, columns in ADDED_COLUMNS.items():
