@@ -15,7 +15,7 @@ from workers.metrics_dir import use_metrics_dir
 
 use_metrics_dir(os.environ)  # before prometheus_client is first imported (workers.metrics)
 
-from service.api import ProblemApi, batches, callbacks, checks, health, request_id
+from service.api import ProblemApi, batches, callbacks, checks, health, report_data, request_id
 from service.api.body_gate import BodyGateMiddleware
 from service.api.path_ids import CONVERTERS, parameter_schema
 from service.api.security_headers import SecurityHeadersMiddleware
@@ -27,7 +27,7 @@ log = logging.getLogger("ballast.api")
 
 API_TITLE = "ballast"
 API_VERSION = "1"
-BLUEPRINTS = (health.blp, checks.blp, batches.blp, callbacks.blp)
+BLUEPRINTS = (health.blp, checks.blp, batches.blp, callbacks.blp, report_data.blp)
 
 _SPEC_OPTIONS = {
     "info": {

@@ -240,6 +240,10 @@ class BallastClient:
     def cancel_check(self, check_id: str) -> dict:
         return self._json("DELETE", f"/v1/checks/{check_id}")
 
+    def get_curves(self, check_id: str) -> str:
+        """GET /v1/checks/{id}/curves.csv: NDF, each F_k and each node's Y as CSV text."""
+        return self.request("GET", f"/v1/checks/{check_id}/curves.csv").text
+
     # --- batches ---------------------------------------------------------------------------
 
     def submit_batch(self, shared: dict[str, Any] | None,

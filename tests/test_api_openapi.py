@@ -69,6 +69,9 @@ def test_every_endpoint_of_the_issue_is_documented():
         # the report routes (issue 10: documented so that the fuzzer reaches them)
         "/v1/checks/{check_id}/plots/{name}.{fmt}": {"get"},
         "/v1/checks/{check_id}/report": {"get"}, "/v1/batches/{batch_id}/report": {"get"},
+        "/v1/checks/{check_id}/curves.csv": {"get"},            # issue 12
+        "/v1/batches/{batch_id}/margin.csv": {"get"},
+        "/v1/batches/{batch_id}/margin": {"get"},
     }
     assert {p: set(ops) - {"parameters"} for p, ops in paths.items()} == expected
 

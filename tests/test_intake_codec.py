@@ -49,7 +49,8 @@ def _touchstone_payload() -> dict:
         "gain_off": {"touchstone": to_touchstone(f, s_off, z0=50.0)},
         "ports": [{"name": "in", "role": "external", "termination_ohm": {"re": 50, "im": -5}},
                   {"name": "out", "role": "external"}],
-        "options": {"closure_tolerance": 0.3, "refine": False},
+        "options": {"closure_tolerance": 0.3, "refine": False, "target_damping_ratio": 0.1,
+                    "operating_band_hz": [2e9, 4e9]},
     }
 
 

@@ -8,16 +8,19 @@ image/svg+xml (SVG 1.1, W3C), image/png (RFC 2083); errors are problem+json (RFC
 from __future__ import annotations
 
 import re
-import time
 import xml.etree.ElementTree as ET
 from pathlib import Path
 
 import numpy as np
 import pytest
-import requests
 
 from service.auth import create_token
 from tests.client_live_server import live_server
+from tests.support.live_api import (
+    assert_private,
+    authorised_session,
+    submit_batch_and_wait,
+)
 from workers.lumped.families import two_stage_lna
 
 BAND_HZ = np.geomspace(1e6, 1e12, 1001)
@@ -27,16 +30,10 @@ BAND_HZ = np.geomspace(1e6, 1e12, 1001)
 def served(tmp_path_factory):
     folder: Path = tmp_path_factory.mktemp("reports-api")
     with live_server(folder) as live:
-        session = requests.Session()
-        session.headers["Authorization"] = f"Bearer {live.token}"
+        session = authorised_session(live.token)
         request = two_stage_lna(gate_return_damping_ohm=None).check_request(BAND_HZ)
         body = {"label": "lna family", "variants": [{"label": "no damping", **request}]}
-        accepted = session.post(f"{live.url}/v1/batches", json=body, timeout=60).json()
-        for _ in range(600):
-            batch = session.get(f"{live.url}/v1/batches/{accepted['id']}", timeout=30).json()
-            if batch["finished"]:
-                break
-            time.sleep(0.1)
+        accepted = submit_batch_and_wait(session, live.url, body, timeout_s=60)
         yield live, session, accepted["id"], accepted["check_ids"][0]
 
 
@@ -110,13 +107,9 @@ def test_unknown_things_are_problems(served, path, status):
 
 def test_other_tenants_and_strangers_see_nothing(served):
     live, _, batch_id, check_id = served
-    other = create_token(live.stores.access, "rival")
-    for path in (f"/v1/checks/{check_id}/plots/ndf.svg", f"/v1/checks/{check_id}/report",
-                 f"/v1/batches/{batch_id}/report"):
-        response = requests.get(live.url + path, timeout=60,
-                                headers={"Authorization": f"Bearer {other}"})
-        assert response.status_code == 404, path
-        assert requests.get(live.url + path, timeout=60).status_code == 401
+    assert_private(live.url, (f"/v1/checks/{check_id}/plots/ndf.svg",
+                              f"/v1/checks/{check_id}/report", f"/v1/batches/{batch_id}/report"),
+                   create_token(live.stores.access, "rival"))
 
 
 def test_plots_wait_for_the_verdict(served):

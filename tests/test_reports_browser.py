@@ -9,6 +9,7 @@ and the rest, ``service.api.security_headers``), on top of the policy each page 
 ``<meta>``: they must render, sort and show their plots under both, with no policy violation in
 chromium's console log; a page with a script or an image the policy does not name must not run
 or load it (the control that shows the policy is enforced at all).
+The check page and the margin page across variants are screenshot too.
 """
 
 from __future__ import annotations
@@ -29,7 +30,7 @@ from service.api.security_headers import security_headers
 from service.reports import pages
 from service.reports.outcomes import item_from_check
 from service.runner import run_check_json
-from workers.lumped.families import combined_power_stage, parallel_rlc_negative_g
+from workers.lumped.families import combined_power_stage, parallel_rlc_negative_g, two_stage_lna
 
 CHROMIUM = shutil.which("chromium") or shutil.which("chromium-browser")
 pytestmark = [
@@ -190,3 +191,40 @@ def test_the_policy_blocks_what_it_does_not_name(tmp_path: Path, batch_html: str
     assert "<title>ran</title>" not in result.stdout and "<title>ballast" in result.stdout
     assert 'aria-sort="ascending"' in result.stdout  # the page's own script ran
     assert result.stderr.count(VIOLATION) >= 2, result.stderr[-2000:]
+
+
+@pytest.fixture(scope="module")
+def trend_html() -> str:
+    """The margin page of a sweep of the LNA's gate-return damping resistor (workers.lumped
+    .families.two_stage_lna; by scipy.linalg.eig the 145 MHz pair grows without the resistor and
+    with 10 Ω, and is damped with 100 Ω)."""
+    from service.reports.plot_trend import trend_figure
+    from service.reports.plots import render
+    from service.reports.trend import trend_rows
+
+    items, verdicts = [], {}
+    for ohms in (330.0, 100.0, 47.0, 22.0, 10.0, None):
+        request = two_stage_lna(gate_return_damping_ohm=ohms).check_request(
+            np.geomspace(1e6, 1e11, 301))
+        check = {"id": f"chk_{ohms}", "label": f"R={ohms:g}" if ohms else "R=none",
+                 "status": "done", "verdict": run_check_json(request)}
+        items.append(item_from_check(check))
+        verdicts[check["id"]] = check["verdict"]
+    rows = trend_rows(items, verdicts, "label")
+    return pages.trend_page({"id": "bat_sweep", "label": "gate damping sweep"}, rows,
+                            render(trend_figure(rows), "svg"), "label", "margin.html",
+                            "margin.csv", "index.html")
+
+
+def test_margin_page_screenshot_shows_the_variants_in_their_verdict_colours(
+        tmp_path: Path, trend_html: str, site):
+    """Dots in the stable (#2f7d5b) and the unstable (#c2452d) colour of style.VERDICT_COLOURS
+    both show in the picture: the sweep crosses from damped to growing."""
+    url = served(site, "/margin", trend_html)
+    pixels = screenshot(tmp_path, url, 1200, 900)
+    assert float(pixels.std()) > 0.05
+    for colour in ("#2f7d5b", "#c2452d"):
+        rgb = np.array([int(colour[i:i + 2], 16) for i in (1, 3, 5)]) / 255.0
+        assert (np.abs(pixels - rgb).max(axis=-1) < 0.06).sum() > 30, colour
+    dom = chromium(tmp_path, "--dump-dom", url).stdout
+    assert 'id="plot-trend"' in dom and 'href="margin.csv"' in dom

@@ -17,7 +17,7 @@ from service.reports import pages
 from service.reports.check_rows import PINNED_KEY
 from service.reports.data import request_device_notes
 from service.reports.devices import MISSING_IN_VERDICT
-from service.reports.units import format_power_of_ten, format_seconds
+from service.reports.units import format_number, format_ohm, format_power_of_ten, format_seconds
 from service.runner import run_check_json
 from workers.lumped.families import combined_power_stage, two_stage_lna
 
@@ -144,8 +144,40 @@ def test_modes_are_said_with_q_and_doubling_time(checks):
     assert row["Q"] == f"{q:.3g}".replace("-", "−")
     assert row["envelope"].startswith(f"doubles every {format_seconds(math.log(2) / sigma)}")
     assert row["growth σ"].endswith("× 10⁶ s⁻¹")
-    assert re.fullmatch(r"[0-9.]+ kΩ shunt at g1", row["damping to try"])
+    assert re.match(r"[0-9.]+ kΩ from g1 to ground \(ζ → 0\.05[0-9]?\)",
+                    row["damping to try"])
     assert "one oscillating pair (2)" in html
+
+
+def test_stabilisers_and_margin_are_tabled_as_the_verdict_gives_them(checks):
+    """Issue 12: the verdict's hints (placement, resistor in engineering notation, ζ with it)
+    and its margin (least-damped natural frequencies with their symmetry) on the check page."""
+    _, _, check = checks["pa"]
+    verdict = check["verdict"]
+    html = pages.check_page(check)
+    hints = table(html, "hints")
+    assert len(hints) == len(verdict["hints"]) > 0
+    first = verdict["hints"][0]
+    assert hints[0]["where"] == f"between {first['between'][0]} and {first['between'][1]}"
+    assert hints[0]["resistor"] == format_ohm(first["resistance_ohm"])
+    assert hints[0]["meets the target"] == "yes" and hints[0]["growing after"] == "none"
+    margin = table(html, "margin")
+    assert len(margin) == len(verdict["margin"]["least_damped"])
+    assert [r["symmetry"] for r in margin] == [e["symmetry"]
+                                               for e in verdict["margin"]["least_damped"]]
+    assert margin[0]["ζ"] == format_number(verdict["margin"]["least_damped"][0]["damping_ratio"],
+                                           3)
+    # an in-band cost, as a verdict with options.operating_band_hz carries it
+    tweaked = copy.deepcopy(check)
+    tweaked["verdict"]["hints"][0]["in_band_cost"] = {
+        "band_hz": [2.4e9, 2.6e9], "max_gain_change_db": -0.25, "s21_change_db": -0.5,
+        "points": 9}
+    row = table(pages.check_page(tweaked), "hints")[0]
+    assert row["in-band cost"] == "MSG/MAG −0.25 dB, |S21| −0.5 dB in 2.4 GHz – 2.6 GHz"
+    tweaked["verdict"]["hints"][0]["in_band_cost"].update(max_gain_change_db=0.0,
+                                                          s21_change_db=-1e-9)
+    row = table(pages.check_page(tweaked), "hints")[0]
+    assert row["in-band cost"] == "no change in 2.4 GHz – 2.6 GHz"
 
 
 def test_mu_near_one_shows_mu_minus_one(checks):
@@ -193,3 +225,14 @@ def test_report_folder_gives_reasons_without_plots_too(checks, tmp_path):
         rows = {r["device"]: r.get("why no count", "") for r in table(html, "devices")}
         assert rows == {name: notes.get(name, "") for name in rows}
         assert ('id="plot-device-1"' in html) is (choice == "all")
+
+
+def test_ci_details_name_each_modes_best_stabiliser(checks):
+    from service.reports.outcomes import details_text, item_from_check
+
+    _, _, check = checks["pa"]
+    best = check["verdict"]["modes"][0]["hints"][0]
+    text = details_text(item_from_check(check), check)
+    placement = (f"between {best['between'][0]} and {best['between'][1]}"
+                 if best["between"][1] else f"from {best['between'][0]} to ground")
+    assert f"damping to try: {format_ohm(best['resistance_ohm'])} {placement}" in text

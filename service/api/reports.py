@@ -6,6 +6,11 @@
     GET /v1/checks/{id}/report                    HTML page, plots embedded (?plots=none: without;
                                                   ?nodes=all: every node's admittance)
     GET /v1/batches/{id}/report                   HTML page: sortable table of the batch's checks
+    GET /v1/batches/{id}/margin                   HTML page: the margin across the variants
+                                                  (?order=submission | label)
+
+(The CSV forms, ``/v1/checks/{id}/curves.csv`` and ``/v1/batches/{id}/margin.csv``, are in
+the OpenAPI document: ``service.api.report_data``.)
 
 The bodies are images and HTML; the OpenAPI document describes them as such (the routes, their
 parameters and media types), and errors are problem+json like the rest of the API. Plots are
@@ -33,6 +38,20 @@ from workers.store import StoredRequest
 blp = Blueprint("reports", __name__, description="Report pages and plots of finished checks")
 blp.before_request(authenticate)
 blp.before_request(require_path_ids)  # after the token: 401 first
+
+# the query parameters each page or plot documents; any other is refused (400 naming it)
+KNOWN_QUERY = {"reports.check_plot": {"nodes"}, "reports.check_report": {"nodes", "plots"},
+               "reports.batch_report": set(), "reports.batch_margin": {"order"}}
+
+
+@blp.before_request
+def _known_query_only() -> None:
+    allowed = KNOWN_QUERY.get(request.endpoint or "")
+    unknown = sorted(set(request.args) - allowed) if allowed is not None else []
+    if unknown:
+        abort_problem(400, f"unknown query parameter {unknown[0]!r}", kind="invalid-query",
+                      errors=field_errors([(name, "unknown query parameter")
+                                           for name in unknown]))
 
 PLOT_NAMES = ("ndf", "admittance", "factors", "circles")
 DEVICE_PLOT = re.compile(r"device-([1-9][0-9]*)")
@@ -100,7 +119,7 @@ PAGE_RESPONSE = {"200": {"description": "The HTML page (self-contained: styles, 
                          "content": {"text/html": {"schema": {"type": "string"}}}}}
 
 
-def _done_check(check_id: str) -> tuple[Any, StoredRequest]:
+def done_check(check_id: str) -> tuple[Any, StoredRequest]:
     """The tenant's finished check and its stored request (``service.runner.load_request``
     reads it back); 404 unknown, 409 not done."""
     record = check_store().get_check(tenant(), check_id)
@@ -116,8 +135,9 @@ def _done_check(check_id: str) -> tuple[Any, StoredRequest]:
     return record, payload
 
 
-def _query_choice(name: str, choices: tuple[str, ...]) -> str:
-    choice = request.args.get(name, choices[0])
+def query_choice(name: str, choices: tuple[str, ...], default: str) -> str:
+    """A query parameter that must be one of ``choices`` (400 problem naming it otherwise)."""
+    choice = request.args.get(name, default)
     if choice not in choices:
         abort_problem(400, f"{name} must be one of {', '.join(choices)}, not {choice!r}",
                       kind="invalid-query", errors=field_errors([(name, "not one of "
@@ -126,7 +146,7 @@ def _query_choice(name: str, choices: tuple[str, ...]) -> str:
 
 
 def _node_choice() -> str:
-    return _query_choice("nodes", NODE_CHOICES)
+    return query_choice("nodes", NODE_CHOICES, "relevant")
 
 
 def _plots(check_id: str, names: tuple[str, ...], fmt: str, nodes: str = "relevant"
@@ -149,7 +169,7 @@ def _plots(check_id: str, names: tuple[str, ...], fmt: str, nodes: str = "releva
         from service.reports.data import figure_data
         from service.reports.plots import render_plot
 
-        record, payload = _done_check(check_id)
+        record, payload = done_check(check_id)
         data = figure_data(payload, record.verdict, nodes=nodes)  # type: ignore[arg-type]
         for name in missing:
             image = render_plot(name, data, fmt)  # type: ignore[arg-type]
@@ -170,7 +190,7 @@ def _device_notes(check_id: str, verdict: dict[str, Any]) -> dict[str, str]:
     if not hit:
         from service.reports.data import request_device_notes
 
-        record, payload = _done_check(check_id)
+        record, payload = done_check(check_id)
         notes = json.dumps(request_device_notes(payload, record.verdict)).encode()
         _CACHE.put((check_id, NOTES, "json", "-"), notes)
     return json.loads(notes or b"{}")
@@ -187,7 +207,7 @@ def check_plot(check_id: str, name: str, fmt: str) -> Response:
     if fmt not in IMAGE_TYPES:
         abort_problem(404, f"no format {fmt!r}; formats: svg, png", kind="not-found")
     nodes = _node_choice()
-    _done_check(check_id)  # tenant, existence and status checked on every request
+    done_check(check_id)  # tenant, existence and status checked on every request
     image = _plots(check_id, (name,), fmt, nodes)[0][name]
     if image is None:
         abort_problem(404, f"check {check_id!r} has no {name} plot (e.g. no two-port: it needs "
@@ -209,7 +229,7 @@ def check_report(check_id: str) -> Response:
     if record is None:
         abort_problem(404, f"no check {check_id!r}", kind="not-found")
     nodes = _node_choice()
-    with_plots = _query_choice("plots", PLOT_CHOICES) == "all"
+    with_plots = query_choice("plots", PLOT_CHOICES, PLOT_CHOICES[0]) == "all"
     images: dict[str, bytes | None] = {}
     notes: dict[str, str] = {}
     all_nodes_href = None
@@ -230,13 +250,9 @@ def check_report(check_id: str) -> Response:
     return Response(page, mimetype="text/html")
 
 
-@blp.route("/v1/batches/<batch_id:batch_id>/report", methods=["GET"])
-@blp.doc(operationId="getBatchReport", responses=PAGE_RESPONSE)
-@document_errors(blp, 401, 404, 429)
-def batch_report(batch_id: str) -> Response:
-    """The HTML page of a batch: every check, sortable by verdict, frequency and node."""
-    from service.api.batches import batch_view, item_view
-    from service.reports.pages import batch_page
+def batch_items(batch_id: str) -> tuple[Any, list[dict[str, Any]]]:
+    """The tenant's batch and its listing rows in submission order (404 unknown)."""
+    from service.api.batches import item_view
 
     record = check_store().get_batch(tenant(), batch_id)
     if record is None:
@@ -248,6 +264,64 @@ def batch_report(batch_id: str) -> Response:
         items.extend(item_view(r) for r in page)
         if after is None:
             break
+    return record, items
+
+
+def batch_verdicts(items: list[dict[str, Any]]) -> dict[str, dict[str, Any]]:
+    """Check id → verdict of every finished check (the listing rows carry only a summary)."""
+    found = {}
+    for item in items:
+        if item.get("status") == "done":
+            record = check_store().get_check(tenant(), item["id"])
+            if record is not None and record.verdict:
+                found[item["id"]] = record.verdict
+    return found
+
+
+def trend_order() -> str:
+    from service.reports.trend import TREND_ORDERS
+
+    return query_choice("order", TREND_ORDERS, "submission")
+
+
+@blp.route("/v1/batches/<batch_id:batch_id>/report", methods=["GET"])
+@blp.doc(operationId="getBatchReport", responses=PAGE_RESPONSE)
+@document_errors(blp, 401, 404, 429)
+def batch_report(batch_id: str) -> Response:
+    """The HTML page of a batch: every check, sortable by verdict, frequency, node and margin."""
+    from service.api.batches import batch_view
+    from service.reports.pages import batch_page
+
+    record, items = batch_items(batch_id)
     page_html = batch_page(batch_view(record, size=len(record.check_ids)), items,
-                           lambda item: url_for("reports.check_report", check_id=item["id"]))
+                           lambda item: url_for("reports.check_report", check_id=item["id"]),
+                           batch_verdicts(items),
+                           url_for("reports.batch_margin", batch_id=batch_id))
     return Response(page_html, mimetype="text/html")
+
+
+@blp.route("/v1/batches/<batch_id:batch_id>/margin", methods=["GET"])
+@blp.doc(operationId="getBatchMarginPage", parameters=[{
+    "in": "query", "name": "order", "required": False,
+    "schema": {"type": "string", "enum": ["submission", "label"], "default": "submission"},
+    "description": "variants in submission order or by label"}], responses=PAGE_RESPONSE)
+@document_errors(blp, 400, 401, 404, 429)
+def batch_margin(batch_id: str) -> Response:
+    """The margin across the batch's variants: ζ and frequency of each least-damped natural
+    frequency, in submission order or by label (?order=)."""
+    from service.api.batches import batch_view
+    from service.reports.pages import trend_page
+    from service.reports.plot_trend import trend_figure
+    from service.reports.plots import render
+    from service.reports.trend import trend_rows
+
+    order = trend_order()
+    record, items = batch_items(batch_id)
+    rows = trend_rows(items, batch_verdicts(items), order)  # type: ignore[arg-type]
+    other = "label" if order == "submission" else "submission"
+    page = trend_page(batch_view(record, size=len(record.check_ids)), rows,
+                      render(trend_figure(rows), "svg"), order,
+                      url_for("reports.batch_margin", batch_id=batch_id, order=other),
+                      url_for("report_data.batch_margin_csv", batch_id=batch_id, order=order),
+                      url_for("reports.batch_report", batch_id=batch_id))
+    return Response(page, mimetype="text/html")

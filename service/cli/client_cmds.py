@@ -2,7 +2,7 @@
 
     ballast submit designs/ --map lna_map.json --wait --junit out/junit.xml --report-dir out/report
     ballast status bat_...            ballast cancel chk_...
-    ballast results bat_... --format table|json|csv|junit
+    ballast results bat_... --format table|json|csv|junit [--curves DIR]
 
 The server and token come from --url/--token, else BALLAST_URL/BALLAST_TOKEN, else the client
 config file (see ``service.client``). Exit codes of ``submit --wait`` and ``results``: 0 every
@@ -16,6 +16,7 @@ import argparse
 import glob
 import json
 import os
+import re
 import sys
 from collections.abc import Mapping, Sequence
 from pathlib import Path
@@ -91,6 +92,9 @@ def register(subparsers: argparse._SubParsersAction) -> None:
     results.add_argument("--format", choices=FORMATS, default="table")
     results.add_argument("--output", "-o", type=Path, metavar="FILE",
                          help="write there instead of stdout")
+    results.add_argument("--curves", type=Path, metavar="DIR",
+                         help="also write each finished check's curves (NDF, F_k, node Y at "
+                              "the samples and on the refined contour) as DIR/<label>.csv")
     results.set_defaults(func=run_results)
 
 
@@ -229,8 +233,9 @@ def _write_report(client: BallastClient, args: argparse.Namespace, batch: dict[s
 
     by_id = dict(zip(accepted["check_ids"], payloads, strict=True))
     checks = dict(details)
-    for item in items:  # stable checks that get plots need their verdict too
-        if item["id"] not in checks and wants_plots(args.plots, item):
+    for item in items:  # stable checks too: plots and the margin column need their verdicts
+        if item["id"] not in checks and (item.get("status") == "done"
+                                         or wants_plots(args.plots, item)):
             checks[item["id"]] = client.get_check(item["id"])
 
     live = sys.stderr.isatty()
@@ -283,12 +288,43 @@ def run_cancel(args: argparse.Namespace) -> int:
     return EXIT_STABLE
 
 
+def curves_file_names(items: Sequence[Mapping[str, Any]]) -> dict[str, str]:
+    """Check id → a file name from its label (characters outside [A-Za-z0-9._=+-] become _),
+    the id added where labels repeat or are missing."""
+    names: dict[str, str] = {}
+    taken: set[str] = set()
+    for item in items:
+        label = re.sub(r"[^A-Za-z0-9._=+-]", "_", str(item.get("label") or "")).strip("._")
+        name = label or str(item["id"])
+        if name in taken:
+            name = f"{name}-{item['id']}"
+        taken.add(name)
+        names[str(item["id"])] = f"{name}.csv"
+    return names
+
+
+def write_curves(client: BallastClient, items: Sequence[Mapping[str, Any]], folder: Path) -> int:
+    """Each finished check's ``curves.csv`` into ``folder``; returns how many were written."""
+    folder.mkdir(parents=True, exist_ok=True)
+    done = [item for item in items if item.get("status") == "done"]
+    for item_id, name in curves_file_names(done).items():
+        (folder / name).write_text(client.get_curves(item_id), encoding="utf-8", newline="")
+    return len(done)
+
+
 def run_results(args: argparse.Namespace) -> int:
     try:
         client = client_for(args)
         target, items, details = collect(client, args.id)
     except ClientError as exc:
         return _error("results", exc)
+    if args.curves is not None:
+        try:
+            written = write_curves(client, items, args.curves)
+        except (ClientError, OSError) as exc:
+            return _error("results", f"curves: {exc}")
+        print(f"ballast results: curves of {written} check(s) written to {args.curves}",
+              file=sys.stderr)
     to_terminal = args.output is None and sys.stdout.isatty()
     data = render_results(args.format, target, items, details, colour=to_terminal)
     if args.output:

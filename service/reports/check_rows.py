@@ -1,7 +1,7 @@
 """The rows and facts of a check page, in words and engineering notation (no plotting imports).
 
 Everything is read from the verdict JSON with ``.get``: fields added to ``ballast.verdict/1``
-later (``margin``, per-mode ``hints`` and ``symmetry`` from issue 12; ``count_complete``,
+later (``margin``, ``hints``, per-mode ``hints`` and ``symmetry`` from issue 12; ``count_complete``,
 ``assumptions``, ``next_sweep``, ``devices[].fmax_hz`` and the per-mode flag ``PINNED_KEY`` from
 issue 14) show when present and are simply absent from the page otherwise.
 """
@@ -27,6 +27,7 @@ from service.reports.wording import count_in_words, mode_timing
 #: the per-mode boolean (issue 14) saying whether the data pin the mode down
 PINNED_KEY = "pinned"
 PER_SECOND = "s⁻¹"
+NO_CHANGE_DB = 0.005  # in-band changes below this (dB) read "no change"
 
 
 def _number_list(values: Sequence[Any] | None) -> list[Any]:
@@ -55,26 +56,64 @@ def _nodes_with_shares(names: Sequence[str], shares: Sequence[Any], limit: int =
     return ", ".join(shown) or "–"
 
 
-def _hint_text(hint: Mapping[str, Any]) -> str:
-    """One damping suggestion: the first-order ``hint`` or an entry of ``hints``."""
-    resistance = hint.get("resistance_ohm", hint.get("shunt_resistance_ohm"))
+def _placement(hint: Mapping[str, Any]) -> str:
     between = hint.get("between")
     if isinstance(between, list | tuple) and between:
-        where = (f"between {between[0]} and {between[1]}" if len(between) > 1
-                 and between[1] is not None else f"from {between[0]} to ground")
-    else:
-        where = f"shunt at {hint.get('node') or '?'}"
-    text = f"{format_ohm(resistance)} {where}"
+        return (f"between {between[0]} and {between[1]}" if len(between) > 1
+                and between[1] is not None else f"from {between[0]} to ground")
+    return f"shunt at {hint.get('node') or '?'}"
+
+
+def cost_text(cost: Any) -> str:
+    """The in-band cost of a stabiliser: "MSG/MAG −0.31 dB, |S21| −0.18 dB in 4 GHz – 6 GHz"."""
+    if not isinstance(cost, Mapping):
+        return ""
+    changes = {label: cost.get(key) for key, label in (("max_gain_change_db", "MSG/MAG"),
+                                                       ("s21_change_db", "|S21|"))
+               if isinstance(cost.get(key), int | float)}
+    band = cost.get("band_hz")
+    where = (f" in {format_hz(band[0])} – {format_hz(band[1])}"
+             if isinstance(band, list | tuple) and len(band) == 2 else "")
+    if not changes:
+        return ""
+    if all(abs(v) < NO_CHANGE_DB for v in changes.values()):
+        return "no change" + where
+    return ", ".join(f"{label} {format_number(v, 2)} dB" for label, v in changes.items()) + where
+
+
+def hint_text(hint: Mapping[str, Any]) -> str:
+    """One damping suggestion: the first-order ``hint`` or an entry of ``hints``."""
+    resistance = hint.get("resistance_ohm", hint.get("shunt_resistance_ohm"))
+    text = f"{format_ohm(resistance)} {_placement(hint)}"
     achieved = hint.get("achieved_damping_ratio")
     if isinstance(achieved, int | float):
-        text += f" (ζ → {format_number(achieved, 2)})"
-    cost = hint.get("in_band_cost")
-    if isinstance(cost, Mapping):
-        parts = [f"{k.replace('_', ' ')} {format_number(v, 2)}" for k, v in cost.items()
-                 if isinstance(v, int | float)]
-        if parts:
-            text += "; in band: " + ", ".join(parts)
+        text += f" (ζ → {format_number(achieved, 2)}"
+        text += ")" if hint.get("meets_target", True) else ", short of the target)"
+    cost = cost_text(hint.get("in_band_cost"))
+    if cost:
+        text += f"; {cost}"
     return text
+
+
+def hint_rows(verdict: Mapping[str, Any]) -> list[dict[str, str]]:
+    """The verdict's ``hints`` (issue 12): placement, resistor, ζ with it, count, in-band cost."""
+    rows = []
+    for hint in verdict.get("hints") or []:
+        if not isinstance(hint, Mapping):
+            continue
+        achieved = hint.get("achieved_damping_ratio")
+        count = hint.get("unstable_count_after")
+        rows.append({
+            "where": _placement(hint),
+            "resistor": format_ohm(hint.get("resistance_ohm")),
+            "zeta": format_number(achieved, 3) if isinstance(achieved, int | float) else "–",
+            "least": format_hz(hint.get("least_damped_hz")),
+            "meets": "yes" if hint.get("meets_target") else "no",
+            "count": "–" if not isinstance(count, int) or count < 0 else
+            count_in_words(count, []),
+            "cost": cost_text(hint.get("in_band_cost")) or "–",
+        })
+    return rows
 
 
 def mode_rows(verdict: Mapping[str, Any]) -> list[dict[str, str]]:
@@ -82,8 +121,7 @@ def mode_rows(verdict: Mapping[str, Any]) -> list[dict[str, str]]:
     for mode in verdict.get("modes") or []:
         hints = [h for h in mode.get("hints") or [] if isinstance(h, Mapping)]
         hint = mode.get("hint") or {}
-        damping = "; ".join(_hint_text(h) for h in hints[:3]) if hints else (
-            _hint_text(hint) if hint else "–")
+        damping = hint_text(hints[0]) if hints else (hint_text(hint) if hint else "–")
         pinned = mode.get(PINNED_KEY)
         rows.append({
             "frequency": format_hz(mode.get("frequency_hz")),
@@ -175,8 +213,10 @@ def margin_block(verdict: Mapping[str, Any]) -> dict[str, Any] | None:
         if isinstance(entry.get("q"), int | float):
             cells["q"] = format_number(entry["q"], 3)
         rows.append({"frequency": format_hz(entry.get("frequency_hz")), **cells,
-                     "nodes": ", ".join((entry.get("nodes") or [])[:4]) or "–",
-                     "devices": ", ".join(entry.get("devices") or []) or "–"})
+                     "nodes": _nodes_with_shares(entry.get("nodes") or [],
+                                                 entry.get("node_participation") or []),
+                     "devices": ", ".join(entry.get("devices") or []) or "–",
+                     "symmetry": str(entry.get("symmetry") or "")})
     facts = []
     for key, label in (("min_abs_ndf", "closest |NDF|"),
                        ("min_abs_return_difference", "closest |F_k|")):
@@ -185,7 +225,11 @@ def margin_block(verdict: Mapping[str, Any]) -> dict[str, Any] | None:
             where = f" at {format_hz(entry.get('frequency_hz'))}"
             device = f" ({entry['device']})" if entry.get("device") else ""
             facts.append((label, f"{format_number(entry.get('value'), 3)}{where}{device}"))
-    return {"rows": rows, "facts": facts} if rows or facts else None
+    target = margin.get("target_damping_ratio")
+    if isinstance(target, int | float):
+        facts.append(("target damping ratio ζ", format_number(target, 3)))
+    note = str(margin.get("note") or "")
+    return {"rows": rows, "facts": facts, "note": note} if rows or facts or note else None
 
 
 def next_sweep_block(verdict: Mapping[str, Any]) -> dict[str, str] | None:

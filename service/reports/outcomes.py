@@ -11,7 +11,8 @@ from __future__ import annotations
 from collections.abc import Iterable, Mapping
 from typing import Any
 
-from service.reports.units import format_hz, format_ohm
+from service.reports.check_rows import hint_text
+from service.reports.units import format_hz
 from service.reports.wording import count_in_words
 
 EXIT_STABLE, EXIT_UNSTABLE, EXIT_INDETERMINATE, EXIT_ERROR = 0, 1, 2, 3
@@ -150,13 +151,13 @@ def details_text(item: Mapping[str, Any], check: Mapping[str, Any] | None) -> st
     verdict = (check or {}).get("verdict") or {}
     lines = [f"check {item.get('id')} ({item.get('label') or 'no label'}): {state_of(item)}"]
     for mode in verdict.get("modes") or []:
-        hint = mode.get("hint") or {}
+        hints = [h for h in mode.get("hints") or [] if isinstance(h, Mapping)]
+        hint = hints[0] if hints else mode.get("hint") or {}
         lines.append(
             f"  mode at {format_hz(mode.get('frequency_hz'))}: nodes "
             f"{', '.join((mode.get('nodes') or [])[:4])}; devices "
             f"{', '.join(mode.get('devices') or [])}"
-            + (f"; first-order damping {format_ohm(hint.get('shunt_resistance_ohm'))} shunt at "
-               f"{hint.get('node')}" if hint else ""))
+            + (f"; damping to try: {hint_text(hint)}" if hint else ""))
     for diag in verdict.get("diagnostics") or []:
         lines.append(f"  [{diag.get('severity')}] {diag.get('code')}: {diag.get('message')}")
     if check and check.get("reason"):

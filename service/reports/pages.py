@@ -21,7 +21,8 @@ from jinja2 import DictLoader, Environment
 
 from service.reports import check_rows, style
 from service.reports.outcomes import state_of
-from service.reports.units import format_hz
+from service.reports.trend import least_damped
+from service.reports.units import format_hz, format_number
 
 PLOT_CAPTIONS = {
     "ndf": "NDF contour. Each clockwise turn around the origin (red cross) is one natural "
@@ -165,9 +166,14 @@ _CHECK = """{% extends "base" %}{% block main %}
 {% for a in assumptions %}<div class="diag"><code>{{ a.code }}</code><br>{{ a.message }}</div>{% endfor %}{% endif %}
 {% if margin %}<h2>margin</h2>
 {% if margin.facts %}<section class="facts">{% for label, value in margin.facts %}<div class="fact"><b>{{ value }}</b><span>{{ label }}</span></div>{% endfor %}</section>{% endif %}
-{% if margin.rows %}<table id="margin"><thead><tr><th>least damped at</th><th>σ</th><th>ζ</th><th>Q</th><th>envelope</th><th>nodes</th><th>devices</th></tr></thead><tbody>
-{% for m in margin.rows %}<tr><td>{{ m.frequency }}</td><td class="num">{{ m.growth }}</td><td class="num">{{ m.zeta }}</td><td class="num">{{ m.q }}</td><td>{{ m.doubling }}</td><td>{{ m.nodes }}</td><td>{{ m.devices }}</td></tr>{% endfor %}
-</tbody></table>{% endif %}{% endif %}
+{% if margin.rows %}<table id="margin"><thead><tr><th>least damped at</th><th>σ</th><th>ζ</th><th>Q</th><th>envelope</th><th>nodes, strongest first (share)</th><th>devices</th>{% if margin_symmetry %}<th>symmetry</th>{% endif %}</tr></thead><tbody>
+{% for m in margin.rows %}<tr><td>{{ m.frequency }}</td><td class="num">{{ m.growth }}</td><td class="num">{{ m.zeta }}</td><td class="num">{{ m.q }}</td><td>{{ m.doubling }}</td><td>{{ m.nodes }}</td><td>{{ m.devices }}</td>{% if margin_symmetry %}<td>{{ m.symmetry }}</td>{% endif %}</tr>{% endfor %}
+</tbody></table>{% endif %}{% if margin.note %}<p class="note">{{ margin.note }}</p>{% endif %}{% endif %}
+{% if hints %}<h2>stabilisers to try</h2>
+<p class="note">Each resistor is the largest at its place that, computed on this check's own data (the part added to the port data exactly), leaves no natural frequency in the right half-plane and brings the least-damped one in the band up to the target damping ratio. Re-check the circuit with the real part and its parasitics.</p>
+<table id="hints"><thead><tr><th>where</th><th>resistor</th><th>least ζ with it</th><th>at</th><th>meets the target</th><th>growing after</th><th>in-band cost</th></tr></thead><tbody>
+{% for h in hints %}<tr><td>{{ h.where }}</td><td class="num">{{ h.resistor }}</td><td class="num">{{ h.zeta }}</td><td>{{ h.least }}</td><td>{{ h.meets }}</td><td>{{ h.count }}</td><td>{{ h.cost }}</td></tr>{% endfor %}
+</tbody></table>{% endif %}
 {% if diagnostics %}<h2>what limited confidence</h2>
 {% for d in diagnostics %}<div class="diag {{ d.severity }}"><code>{{ d.code }} · {{ d.severity }}</code><br>{{ d.message }}</div>{% endfor %}{% endif %}
 {% if devices %}<h2>devices</h2>
@@ -195,12 +201,13 @@ _BATCH = """{% extends "base" %}{% block main %}
 <div class="tally" role="img" aria-label="verdict tally">{% for t in tally %}<div title="{{ t.name }}: {{ t.count }}" style="width:{{ t.percent }}%;background:{{ t.colour }}"></div>{% endfor %}</div>
 <div class="legend">{% for t in tally %}<span><span class="dot" style="background:{{ t.colour }}"></span>{{ t.name }} {{ t.count }}</span>{% endfor %}</div>
 <h2>variants</h2>
-<p class="note">Click a column heading to sort; click again to reverse. Worst verdicts come first. A link ending in #sort=frequency (or verdict, node, variant, unstable, status; add -desc to reverse) opens the table sorted.</p>
+<p class="note">Click a column heading to sort; click again to reverse. Worst verdicts come first. A link ending in #sort=frequency (or verdict, node, margin, variant, unstable, status; add -desc to reverse) opens the table sorted. Least ζ is the damping ratio of each variant's least-damped natural frequency in its band (below 0 it grows).{% if trend_href %} <a href="{{ trend_href }}">The margin across the variants</a>.{% endif %}</p>
 <table id="variants"><thead><tr>
 <th class="sortable" data-kind="text" data-name="variant">variant</th>
 <th class="sortable" data-kind="num" data-name="verdict">verdict</th>
 <th class="sortable num" data-kind="num" data-name="unstable">unstable</th>
 <th class="sortable num" data-kind="num" data-name="frequency">first frequency</th>
+<th class="sortable num" data-kind="num" data-name="margin" title="damping ratio of the least-damped natural frequency in the band; below 0 it grows">least ζ</th>
 <th class="sortable" data-kind="text" data-name="node">node</th>
 <th class="sortable" data-kind="text" data-name="status">status</th></tr></thead><tbody>
 {% for r in rows %}<tr class="v-{{ r.state }}" data-order="{{ loop.index0 }}">
@@ -208,14 +215,25 @@ _BATCH = """{% extends "base" %}{% block main %}
 <td data-key="{{ r.severity }}"><span class="dot" style="background:{{ r.colour }}"></span>{{ r.state }}</td>
 <td class="num" data-key="{{ r.count_key }}">{{ r.count }}</td>
 <td class="num" data-key="{{ r.frequency_key }}">{{ r.frequency }}</td>
+<td class="num" data-key="{{ r.margin_key }}"{% if r.margin_at %} title="at {{ r.margin_at }}"{% endif %}>{{ r.margin }}</td>
 <td data-key="{{ r.node }}">{{ r.node }}</td>
 <td data-key="{{ r.status }}">{{ r.status }}</td></tr>
 {% endfor %}</tbody></table>
 {% endblock %}{% block script %}<script>{{ script|safe }}</script>{% endblock %}
 """
 
+_TREND = """{% extends "base" %}{% block main %}
+{% if batch_href %}<p class="sub"><a href="{{ batch_href }}">&larr; batch</a></p>{% endif %}
+<h1>{{ name }}</h1>
+<div class="sub">batch {{ batch.id }} · {{ count }} variants · {{ located }} with a located natural frequency · {{ order_words }}</div>
+<p class="note">{% if other_href %}<a href="{{ other_href }}">{{ other_words }}</a> · {% endif %}{% if csv_href %}<a href="{{ csv_href }}">the same as CSV</a>{% endif %}</p>
+<figure id="plot-trend"><img alt="margin across the variants" src="{{ src }}"><figcaption>Top: the damping ratio ζ = −σ/|s| of each variant's least-damped natural frequency in its band, coloured by verdict; below the red line it grows, the dashed line is the target. Bottom: the frequency of that natural frequency. A variant whose natural frequencies could not be located leaves its column empty.</figcaption></figure>
+{% endblock %}
+"""
+
 _ENV = Environment(autoescape=True,
-                   loader=DictLoader({"base": _BASE, "check": _CHECK, "batch": _BATCH}))
+                   loader=DictLoader({"base": _BASE, "check": _CHECK, "batch": _BATCH,
+                                      "trend": _TREND}))
 
 
 def _common() -> dict[str, Any]:
@@ -265,6 +283,7 @@ def check_page(check: Mapping[str, Any], plots: Mapping[str, bytes | None] | Non
             figures.append(_figure(name, image, plot_format, PLOT_CAPTIONS.get(name, "")))
     modes = check_rows.mode_rows(verdict)
     devices = check_rows.device_rows(verdict, device_notes)
+    margin = check_rows.margin_block(verdict)
     return _ENV.get_template("check").render(
         **_common(), title=f"ballast · {check.get('label') or check.get('id')}",
         kind="check report", check=check, name=check.get("label") or check.get("id"),
@@ -273,7 +292,9 @@ def check_page(check: Mapping[str, Any], plots: Mapping[str, bytes | None] | Non
         mode_pinned=check_rows.has_column(modes, "pinned"),
         next_sweep=check_rows.next_sweep_block(verdict),
         assumptions=check_rows.assumption_rows(verdict),
-        margin=check_rows.margin_block(verdict),
+        margin=margin, margin_symmetry=bool(margin) and check_rows.has_column(
+            margin["rows"], "symmetry"),
+        hints=check_rows.hint_rows(verdict),
         diagnostics=verdict.get("diagnostics") or [],
         devices=devices, device_fmax=check_rows.has_column(devices, "fmax"),
         device_why=check_rows.has_column(devices, "why"),
@@ -285,10 +306,16 @@ def check_page(check: Mapping[str, Any], plots: Mapping[str, bytes | None] | Non
 
 
 def batch_rows(items: list[Mapping[str, Any]],
-               href: Callable[[Mapping[str, Any]], str | None]) -> list[dict[str, Any]]:
+               href: Callable[[Mapping[str, Any]], str | None],
+               verdicts: Mapping[str, Mapping[str, Any]] | None = None
+               ) -> list[dict[str, Any]]:
     rows = []
     for item in items:
         state = state_of(item)
+        entry = least_damped((verdicts or {}).get(str(item.get("id"))) or (
+            item.get("verdict") if isinstance(item.get("verdict"), Mapping) else None)) or {}
+        zeta = entry.get("damping_ratio")
+        zeta = zeta if isinstance(zeta, int | float) else None
         freq = item.get("first_unstable_frequency_hz")
         count = item.get("unstable_count")
         rows.append({
@@ -298,16 +325,23 @@ def batch_rows(items: list[Mapping[str, Any]],
             "count": "–" if count is None else count, "count_key": "" if count is None else count,
             "frequency": format_hz(freq), "frequency_key": "" if freq is None else repr(freq),
             "node": item.get("first_unstable_node") or "–", "status": item.get("status") or "–",
+            "margin": "–" if zeta is None else format_number(zeta, 3),
+            "margin_key": "" if zeta is None else repr(float(zeta)),
+            "margin_at": format_hz(entry.get("frequency_hz")) if zeta is not None else "",
         })
     rows.sort(key=lambda r: r["severity"])
     return rows
 
 
 def batch_page(batch: Mapping[str, Any], items: list[Mapping[str, Any]],
-               href: Callable[[Mapping[str, Any]], str | None]) -> str:
+               href: Callable[[Mapping[str, Any]], str | None],
+               verdicts: Mapping[str, Mapping[str, Any]] | None = None,
+               trend_href: str | None = None) -> str:
     """The HTML page of a batch: ``batch`` is GET /v1/batches/{id}, ``items`` every check of
-    GET /v1/batches/{id}/checks, ``href(item)`` the link to that check's page (or None)."""
-    rows = batch_rows(items, href)
+    GET /v1/batches/{id}/checks, ``href(item)`` the link to that check's page (or None),
+    ``verdicts`` check id → verdict JSON (for the margin column), ``trend_href`` the link to
+    the margin across the variants (``trend_page``)."""
+    rows = batch_rows(items, href, verdicts)
     counts: dict[str, int] = {}
     for row in rows:
         counts[row["state"]] = counts.get(row["state"], 0) + 1
@@ -318,5 +352,22 @@ def batch_page(batch: Mapping[str, Any], items: list[Mapping[str, Any]],
     return _ENV.get_template("batch").render(
         **_common(), title=f"ballast · {batch.get('label') or batch.get('id')}",
         kind="batch report", batch=batch, name=batch.get("label") or batch.get("id"),
-        rows=rows, tally=tally, script=_SORT_JS,
+        rows=rows, tally=tally, script=_SORT_JS, trend_href=trend_href,
     )
+
+
+def trend_page(batch: Mapping[str, Any], rows: list[Any], image: bytes, order: str,
+               other_href: str | None = None, csv_href: str | None = None,
+               batch_href: str | None = None, plot_format: str = "svg") -> str:
+    """The margin across a batch's variants (``trend.trend_rows`` in ``order``, drawn by
+    ``plot_trend.trend_figure``), with links to the other order, the CSV and the batch."""
+    by_label = order == "label"
+    return _ENV.get_template("trend").render(
+        **_common(), title=f"ballast · margin · {batch.get('label') or batch.get('id')}",
+        kind="margin across variants", batch=batch,
+        name=f"margin of {batch.get('label') or batch.get('id')}", count=len(rows),
+        located=sum(1 for r in rows if getattr(r, "damping_ratio", None) is not None),
+        order_words="by label" if by_label else "in submission order",
+        other_words="in submission order" if by_label else "by label",
+        other_href=other_href, csv_href=csv_href, batch_href=batch_href,
+        src=data_uri(image, plot_format))

@@ -1,4 +1,5 @@
-"""Write a batch's report into a folder: ``index.html`` (the batch page) and ``checks/<id>.html``.
+"""Write a batch's report into a folder: ``index.html`` (the batch page), ``checks/<id>.html``,
+and the margin across the variants (``margin.html``, ``margin-by-label.html``, ``margin.csv``).
 
 Plots need each check's request (the curves are recomputed from it, ``data.figure_data``); the
 command line has them because it submitted them. Drawing costs about a second per plot, so by
@@ -131,6 +132,35 @@ def write_batch_report(folder: Path, batch: Mapping[str, Any], items: Sequence[M
         (folder / check_href(item)).write_text(page, encoding="utf-8")
         if on_check:
             on_check(n, len(items))
+    verdicts = {key: c["verdict"] for key, c in checks.items() if c and c.get("verdict")}
+    trend_href = write_trend(folder, batch, items, verdicts, draw=plots != "none")
     index = folder / "index.html"
-    index.write_text(batch_page(batch, list(items), check_href), encoding="utf-8")
+    index.write_text(batch_page(batch, list(items), check_href, verdicts, trend_href),
+                     encoding="utf-8")
     return index
+
+
+TREND_FILES = {"submission": "margin.html", "label": "margin-by-label.html"}
+TREND_CSV = "margin.csv"
+
+
+def write_trend(folder: Path, batch: Mapping[str, Any], items: Sequence[Mapping[str, Any]],
+                verdicts: Mapping[str, Mapping[str, Any]], draw: bool = True) -> str | None:
+    """``margin.csv`` (submission order) and, when ``draw``, the margin pages in both orders;
+    returns the link to the first page (None without pages)."""
+    from service.reports.trend import trend_csv, trend_rows
+
+    (folder / TREND_CSV).write_text(trend_csv(trend_rows(items, verdicts)), encoding="utf-8")
+    if not draw:
+        return None
+    from service.reports.pages import trend_page
+    from service.reports.plot_trend import trend_figure
+    from service.reports.plots import render
+
+    for order, name in TREND_FILES.items():
+        rows = trend_rows(items, verdicts, order)  # type: ignore[arg-type]
+        other = TREND_FILES["label" if order == "submission" else "submission"]
+        page = trend_page(batch, rows, render(trend_figure(rows), "svg"), order, other,
+                          TREND_CSV, "index.html")
+        (folder / name).write_text(page, encoding="utf-8")
+    return TREND_FILES["submission"]

@@ -20,6 +20,7 @@ from marshmallow import (
     fields,
     post_load,
     validate,
+    validates,
     validates_schema,
 )
 
@@ -311,8 +312,27 @@ class OptionsSchema(Schema):
                        "lines name ('! Port Impedance ...'); reported in the verdict's "
                        "diagnostics (touchstone_comment_references)"})
 
+    target_damping_ratio = fields.Float(
+        validate=validate.Range(min=0.0, max=1.0, min_inclusive=False), allow_nan=False,
+        metadata={"description": "damping ratio ζ = −σ/|s| that stabiliser suggestions must give "
+                                 "the least-damped natural frequency in the band; a stable check "
+                                 "whose least-damped pair is below it gets suggestions too"})
+    operating_band_hz = fields.List(
+        fields.Float(allow_nan=False, validate=validate.Range(min=0.0, max=1e15)),
+        allow_none=True, validate=validate.Length(equal=2),
+        metadata={"description": "[low, high] where the amplifier is used: suggestions then "
+                                 "carry their cost there (change of the external two-port's "
+                                 "MSG/MAG and |S21|, dB) and are ranked by it"})
+
+    @validates("operating_band_hz")
+    def _band(self, value: list[float] | None, **kwargs: Any) -> None:
+        if value is not None and len(value) == 2 and not value[0] < value[1]:
+            raise ValidationError("the band's low end must be below its high end")
+
     @post_load
     def _options(self, data: dict[str, Any], **kwargs: Any) -> CheckOptions:
+        if data.get("operating_band_hz") is not None:
+            data["operating_band_hz"] = tuple(data["operating_band_hz"])
         return CheckOptions(**data)
 
 

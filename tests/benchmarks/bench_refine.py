@@ -10,7 +10,9 @@ with 3–7 more probe ports), with 201-point inputs:
   engine on a 2,001-point input; also reported against eig of the MNA pencil;
 * cost: (refined run − unrefined run) / unrefined run per variant, best of ``--repeat`` runs each,
   in CPU time of this process (``time.process_time``: the benchmark machine is shared, and wall
-  time there measures the neighbours). Target (issue 3): every variant matches, cost <= 5.
+  time there measures the neighbours). The refined run includes the designer's advice (margin
+  and stabilisers, ``workers.engine.advice``), also timed on its own and taken out in a second
+  summary line. Target (issue 3): every variant matches, cost <= 5.
   The unrefined and refined runs alternate, so that both minima come from the same stretch of
   machine time: timed in two separate blocks, a burst of load during one block moved the largest
   ratio between 4.5 and 6.8 within minutes on the same code.
@@ -39,7 +41,8 @@ import numpy as np
 
 from tests.support.grids import COARSE_HZ, DENSE_HZ
 from tests.support.refine_cases import Case, benchmark_set
-from workers.engine import run_check
+from workers.engine import analyse, decide, refine_analysis, run_check
+from workers.engine.advice import advise
 
 
 def _best_times(case: Case, repeat: int) -> tuple[float, float, object]:
@@ -57,6 +60,21 @@ def _best_times(case: Case, repeat: int) -> tuple[float, float, object]:
         verdict = run_check(refined_request)
         refined = min(refined, time.process_time() - start)
     return plain, refined, verdict
+
+
+def _advice_time(case: Case, repeat: int) -> float:
+    """Best CPU time of the designer's advice alone (``workers.engine.advice``: margin and
+    stabilisers) on the refined run, which the refined time above includes."""
+    request = case.request(COARSE_HZ, refine=True)
+    analysis = analyse(request)
+    refined = refine_analysis(analysis)
+    verdict = decide(analysis, None, refined)
+    best = np.inf
+    for _ in range(repeat):
+        start = time.process_time()
+        advise(verdict, analysis, refined)
+        best = min(best, time.process_time() - start)
+    return best
 
 
 def _same(a, b, frequencies: np.ndarray | None = None) -> bool:
@@ -77,11 +95,13 @@ def main(argv: list[str] | None = None) -> int:
     args = parser.parse_args(argv)
     cases = benchmark_set(seed=args.seed, size=args.size)
     run_check(cases[0].request(COARSE_HZ))  # warm-up (imports, caches)
-    ratios, matches, oracle_matches = [], 0, 0
+    ratios, without_advice, matches, oracle_matches = [], [], 0, 0
     print(f"{'variant':42s} {'verdict':13s} {'dense':13s} {'eig':>4s} "
-          f"{'plain ms':>9s} {'refined ms':>10s} {'cost ratio':>10s}")
+          f"{'plain ms':>9s} {'refined ms':>10s} {'advice ms':>9s} {'cost ratio':>10s}")
     for case in cases:
         plain, refined, coarse = _best_times(case, args.repeat)
+        advice = _advice_time(case, args.repeat)
+        without_advice.append((refined - advice - plain) / plain)
         dense = run_check(case.request(DENSE_HZ))
         truth = case.unstable()
         match = _same(coarse, dense)
@@ -93,12 +113,15 @@ def main(argv: list[str] | None = None) -> int:
         ratios.append(ratio)
         print(f"{case.name:42s} {coarse.verdict:13s} {dense.verdict:13s} "
               f"{'ok' if oracle else 'NO':>4s} {1e3 * plain:9.2f} {1e3 * refined:10.2f} "
-              f"{ratio:10.2f}{'' if match else '   <- differs from dense'}")
+              f"{1e3 * advice:9.2f} {ratio:10.2f}{'' if match else '   <- differs from dense'}")
     r = np.array(ratios)
     print(f"\nmatch with 2,001-point grid: {matches}/{len(cases)} "
           f"({matches / len(cases):.0%}); with eig: {oracle_matches}/{len(cases)}")
     print(f"refinement cost / unrefined run: median {np.median(r):.2f}, max {r.max():.2f} "
           f"(target <= 5): {'met' if r.max() <= 5 else 'NOT met'}")
+    w = np.array(without_advice)
+    print(f"  of which the refinement without the advice (margin, stabilisers): median "
+          f"{np.median(w):.2f}, max {w.max():.2f}")
     return 0
 
 

@@ -7,6 +7,7 @@ returns.
 
 from __future__ import annotations
 
+from workers.engine.advice import advise
 from workers.engine.check import Analysis, analyse
 from workers.engine.decide import decide
 from workers.engine.errors import InputError, TouchstoneError
@@ -17,15 +18,16 @@ from workers.engine.verdict import VERDICT_FORMAT, CheckVerdict, Diagnostic
 
 
 def run_check(request: CheckRequest) -> CheckVerdict:
-    """Every indicator of one check, the model refinement (``options.refine``), and the verdict."""
+    """Every indicator of one check, the model refinement (``options.refine``), the verdict, and
+    what a designer acts on (margin, stabilisers: ``advice``)."""
     analysis = analyse(request)
     diagnostics: list[Diagnostic] = []
     two_port, factors = two_port_report(request, analysis.state.y_data, diagnostics,
                                          analysis.z_on)
     if not request.options.refine:
-        return decide(analysis, two_port, extra=diagnostics)
+        return advise(decide(analysis, two_port, extra=diagnostics), analysis, None)
     refined = refine_analysis(analysis, None if factors is None else (factors[0], factors[2]))
-    return decide(analysis, two_port, refined, extra=diagnostics)
+    return advise(decide(analysis, two_port, refined, extra=diagnostics), analysis, refined)
 
 
 __all__ = [

@@ -135,6 +135,7 @@ class ModeShape:
     leverage: np.ndarray         # (N,) |R_kk|
     participation: np.ndarray    # (D,) |gm_k ∂s/∂gm_k|
     fit_error: float             # relative error of the column/row fit
+    phasor: np.ndarray | None = None  # (N,) complex v_k, largest 1 (its phases: ``symmetry``)
 
 
 DEVICE_SHARE = 0.1  # devices with at least this share of the largest participation are named
@@ -153,27 +154,45 @@ def mode_shape(frequency_hz: np.ndarray, z_on: np.ndarray, node_fit: NodeFit, ze
     ``z_on`` (F, N, N): Z of the terminated circuit on; ``u``, ``v`` (N, D): the devices' output
     and control vectors; ``gains`` (F, D): their transconductances on the samples.
     """
-    j = int(np.argmin(np.abs(node_fit.poles_rad_s - zero))) if node_fit.poles_rad_s.size else -1
+    return mode_shapes(frequency_hz, z_on, node_fit, [zero], u, v, gains)[0]
+
+
+def mode_shapes(frequency_hz: np.ndarray, z_on: np.ndarray, node_fit: NodeFit,
+                zeros: list[complex], u: np.ndarray, v: np.ndarray, gains: np.ndarray
+                ) -> list[ModeShape]:
+    """``mode_shape`` of several modes, the columns and rows of Z at their anchor nodes (largest
+    leverage) fitted in one least-squares solve."""
     n = z_on.shape[1]
-    if j < 0:
-        zeros = np.zeros(n)
-        return ModeShape(zeros, zeros, np.zeros(u.shape[1]), np.inf)
-    leverage = _normalised(node_fit.residues[j])
-    anchor = int(np.argmax(leverage))
-    entries = np.concatenate([z_on[:, :, anchor], z_on[:, anchor, :]], axis=1)  # (F, 2N)
+    if not node_fit.poles_rad_s.size:
+        empty = np.zeros(n)
+        return [ModeShape(empty, empty, np.zeros(u.shape[1]), np.inf) for _ in zeros]
+    poles = [int(np.argmin(np.abs(node_fit.poles_rad_s - zero))) for zero in zeros]
+    leverages = [_normalised(node_fit.residues[j]) for j in poles]
+    anchors = list(dict.fromkeys(int(np.argmax(lev)) for lev in leverages))
+    entries = np.concatenate([block for a in anchors for block in (z_on[:, :, a], z_on[:, a, :])],
+                             axis=1)                                   # (F, 2N per anchor)
     fit = fit_nodes(frequency_hz, entries, node_fit.poles_rad_s, node_fit.scale_rad_s)
-    k = int(np.argmin(np.abs(fit.poles_rad_s - zero)))
-    column, row = fit.residues[k, :n], fit.residues[k, n:]
-    pivot = column[anchor] if column[anchor] != 0 else 1.0
     f = np.asarray(frequency_hz, dtype=float)
-    at = int(np.argmin(np.abs(f - abs(zero.imag) / (2 * np.pi))))
-    with np.errstate(invalid="ignore", over="ignore"):
-        sensitivity = (v.T @ column) * (row @ u) / pivot        # v_kᵀ R u_k per device
-        participation = np.abs(gains[at]) * np.abs(sensitivity) if gains.size else \
-            np.zeros(0)
-    finite_error = fit.error[np.isfinite(fit.error)]
-    return ModeShape(_normalised(column), leverage, _normalised(participation),
-                     float(finite_error.max()) if finite_error.size else np.inf)
+    shapes = []
+    for zero, leverage in zip(zeros, leverages, strict=True):
+        anchor = int(np.argmax(leverage))
+        base = 2 * n * anchors.index(anchor)
+        k = int(np.argmin(np.abs(fit.poles_rad_s - zero)))
+        column, row = fit.residues[k, base:base + n], fit.residues[k, base + n:base + 2 * n]
+        pivot = column[anchor] if column[anchor] != 0 else 1.0
+        at = int(np.argmin(np.abs(f - abs(zero.imag) / (2 * np.pi))))
+        with np.errstate(invalid="ignore", over="ignore"):
+            sensitivity = (v.T @ column) * (row @ u) / pivot        # v_kᵀ R u_k per device
+            participation = np.abs(gains[at]) * np.abs(sensitivity) if gains.size else \
+                np.zeros(0)
+        error = fit.error[base:base + 2 * n]
+        finite_error = error[np.isfinite(error)]
+        finite = np.where(np.isfinite(column), column, 0.0)
+        top = finite[int(np.argmax(np.abs(finite)))] if finite.size else 0.0
+        shapes.append(ModeShape(_normalised(column), leverage, _normalised(participation),
+                                float(finite_error.max()) if finite_error.size else np.inf,
+                                finite / top if top != 0 else finite))
+    return shapes
 
 
 def stabilisation_hint(node_name: str, frequency_hz: float, admittance: complex

@@ -74,6 +74,11 @@ class CheckOptions:
     refine: run the rational-model refinement and natural-frequency identification.
     reference_from_comments: take per-port references that only Touchstone comments name (read
     at the boundary, ``workers.engine.touchstone.comments``).
+    target_damping_ratio: the damping ratio ζ = −σ/|s| a stabiliser suggestion must give the
+    least-damped natural frequency in the band; a stable check whose least-damped pair is below
+    it gets suggestions too (``workers.engine.stabilisers``).
+    operating_band_hz: (low, high) where the amplifier is used; suggestions then carry their
+    cost there (change of MSG/MAG and |S21| of the external two-port) and are ranked by it.
     """
 
     closure_tolerance: float = 0.2
@@ -81,6 +86,8 @@ class CheckOptions:
     consistency_tolerance: float = 1e-6
     refine: bool = True
     reference_from_comments: bool = False
+    target_damping_ratio: float = 0.05
+    operating_band_hz: tuple[float, float] | None = None
 
 
 @dataclass(frozen=True)

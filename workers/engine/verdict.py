@@ -13,6 +13,7 @@ from typing import Any, Literal
 VERDICT_FORMAT = "ballast.verdict/1"
 
 VerdictName = Literal["stable", "unstable", "indeterminate"]
+Symmetry = Literal["odd", "even", "single"]  # how a mode drives a balanced pair of devices
 Severity = Literal["info", "warning", "blocking"]
 DiagnosticCode = Literal[
     "band_low_open",            # NDF has not settled to its DC value at the lowest frequency
@@ -65,7 +66,9 @@ class Diagnostic:
 
 @dataclass(frozen=True)
 class StabilisationHint:
-    """First-order shunt conductance that cancels Re Y at the node: a starting point, not a fix."""
+    """A resistor for a mode: the best stabiliser computed on the data (``between`` its two
+    nodes, the second None for ground; ``advice``), or, without one, the first-order shunt
+    conductance that cancels Re Y at the node. A starting point to re-check, not a fix."""
 
     node: str
     frequency_hz: float
@@ -73,6 +76,7 @@ class StabilisationHint:
     shunt_resistance_ohm: float
     note: str = ("first-order estimate from the driving-point admittance at the mode frequency; "
                  "re-check the circuit with the part added")
+    between: list[str | None] | None = None  # [node, node or None]: the part's placement
 
 
 @dataclass(frozen=True)
@@ -84,7 +88,9 @@ class Mode:
     that node moves the mode; ``devices`` are the devices whose transconductance the mode depends
     on (``device_participation``, |gm_k ∂s/∂gm_k| relative to the largest), most first.
     ``pinned``: the samples themselves place it in the right half-plane (``pinning``), so it is
-    counted; an unpinned one is reported only.
+    counted; an unpinned one is reported only. ``symmetry``: odd, even or single from the
+    phases of its voltage shape (``symmetry``); ``hints``: the best stabilisers for it
+    (``stabilisers``), whose first fills ``hint``.
     """
 
     frequency_hz: float
@@ -97,6 +103,8 @@ class Mode:
     pinned: bool = True
     node_leverage: list[float] | None = None
     device_participation: list[float] | None = None
+    symmetry: Symmetry | None = None  # from the phases of the voltage shape (``symmetry``)
+    hints: list[Any] | None = None    # Stabiliser records (``advice_report``), best first
 
 
 @dataclass(frozen=True)
@@ -207,6 +215,8 @@ class CheckVerdict:
     count_complete: bool = False
     assumptions: list[Assumption] = field(default_factory=list)
     next_sweep: NextSweep | None = None
+    margin: Any = None  # Margin (``workers.engine.advice_report``), set by ``advice``
+    hints: list[Any] = field(default_factory=list)  # Stabiliser records, best first
 
     def to_dict(self) -> dict[str, Any]:
         refinement = self.refinement
