@@ -15,6 +15,7 @@ from typing import Any
 
 from flask import Response
 from flask_smorest import Blueprint
+from marshmallow import RAISE
 
 from service.api.common import document_errors
 from service.api.reports import batch_items, batch_verdicts, done_check
@@ -62,7 +63,7 @@ def check_curves(check_id: str) -> Response:
 
 
 @blp.route("/v1/batches/<batch_id:batch_id>/margin.csv", methods=["GET"])
-@blp.arguments(TrendQuerySchema, location="query", as_kwargs=True)
+@blp.arguments(TrendQuerySchema, location="query", as_kwargs=True, unknown=RAISE)
 @blp.doc(operationId="getBatchMargin", responses={"200": {
     "description": MARGIN_DESCRIPTION,
     "content": {CSV_TYPE: {"schema": {"type": "string"}}}}})
