@@ -73,3 +73,33 @@ def test_a_single_stage_mode_names_its_device():
     circuit = next(c for c in (generated("single", s) for s in range(60)) if c.rhp_count)
     (device,) = (name for name, _ in circuit.case.devices)
     assert _modes(circuit)[0].devices == [device]
+
+
+def test_a_fit_that_reuses_another_fits_solver_is_numpys_least_squares_fit():
+    # fit_nodes(..., like=) reuses the SVD of the basis; the reference is np.linalg.lstsq on the
+    # same column-normalised partial-fraction basis at ±jω (the module docstring's solve)
+    from workers.engine.identify import fit_nodes
+
+    rng = np.random.default_rng(5)
+    f = np.geomspace(1e8, 1e10, 150)
+    poles = np.array([-3e8 + 2e10j, -3e8 - 2e10j, -5e9 + 0j, -1e8 + 4e10j, -1e8 - 4e10j])
+    scale = 2 * np.pi * 1e10
+    s = 2j * np.pi * f
+    residues = rng.normal(size=(5, 4)) + 1j * rng.normal(size=(5, 4))
+    residues[1], residues[4] = np.conj(residues[0]), np.conj(residues[3])  # a real circuit's
+    residues[2] = residues[2].real
+    z = (1.0 / (s[:, None] - poles[None, :])) @ residues * scale + rng.normal(size=4)
+    first = fit_nodes(f, z[:, :2], poles, scale)
+    second = fit_nodes(f, z[:, 2:], first.poles_rad_s, scale, like=first)
+    assert second.solver is first.solver
+    x = np.concatenate([s, -s]) / scale
+    p = poles / scale
+    basis = np.concatenate([1 / (x[:, None] - p[None, :]), np.ones((x.size, 1)), x[:, None]], 1)
+    norms = np.linalg.norm(basis, axis=0)
+    target = np.concatenate([z[:, 2:], np.conj(z[:, 2:])])
+    reference = np.linalg.lstsq(basis / norms, target, rcond=None)[0] / norms[:, None]
+    np.testing.assert_allclose(second.residues, reference[:5] * scale, rtol=1e-9, atol=1e-9 *
+                               np.abs(reference[:5] * scale).max())
+    np.testing.assert_allclose(second.constant, reference[5], rtol=1e-9,
+                               atol=1e-9 * np.abs(reference[5]).max())
+    assert np.all(second.error < 1e-8)

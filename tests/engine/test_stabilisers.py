@@ -148,6 +148,29 @@ def test_roots_with_a_part_are_the_eig_natural_frequencies():
             assert trial.growing == bool(poles.real.max() > 0)
 
 
+def test_all_placements_searched_together_give_what_each_search_gives():
+    # the stacked search (one eigenvalue call for every placement's grid) against each
+    # placement searched on its own, then its best part against eig of the MNA pencil with it
+    case = combined_power_stage(odd_mode_ohm=None)
+    request = request_at(_sweep(case), WIDE_HZ)
+    names = [name for name, _, _ in case.ports]
+    placements = [Placement(names.index(a), None if b is None else names.index(b))
+                  for a, b in (("g_a", None), ("d_a", None), ("g_a", "g_b"), ("d_a", "d_b"))]
+    search = _search(request, placements)
+    together = search.search_all(list(range(len(placements))))
+    node = {name: n for name, n, _ in case.ports}
+    for m, p in enumerate(placements):
+        alone = search.search(m, confirm=False)
+        assert together[m] == alone, names[p.first]
+        if alone.modelled and alone.trial.damping_ratio is not None:
+            other = GROUND if p.second is None else node[names[p.second]]
+            poles = natural_frequencies(case.circuit.with_elements(Resistor(
+                "Rpart", node[names[p.first]], other, 1 / alone.trial.conductance_s)),
+                case.terminations)
+            assert alone.trial.damping_ratio == pytest.approx(_least_damped_in_band(poles),
+                                                              rel=1e-4)
+
+
 def _lumped_gains(circuit, f):
     y = port_admittance(circuit, ["in", "out"], f)
     network = skrf.Network(frequency=skrf.Frequency.from_f(f, unit="hz"), s=y2s(y, 50.0),

@@ -92,9 +92,10 @@ class _Candidates:
                  zeta_before: float | None) -> None:
         self.analysis, self.search, self.costs = analysis, search, costs
         self.count_before, self.zeta_before = count_before, zeta_before
-        self.found = {p: search.search(m, confirm=False)
-                      for m, p in enumerate(search.placements)
-                      if search.fit is None or search.fitted(m)}
+        kept = [m for m in range(len(search.placements))
+                if search.fit is None or search.fitted(m)]
+        self.found = {search.placements[m]: found
+                      for m, found in zip(kept, search.search_all(kept), strict=True)}
         self._records: dict[Placement, Stabiliser] = {}
 
     def _cost(self, found: Found) -> InBandCost | None:

@@ -24,7 +24,7 @@ them.
 
 from __future__ import annotations
 
-from dataclasses import dataclass
+from dataclasses import dataclass, field
 
 import numpy as np
 
@@ -79,6 +79,7 @@ class NodeFit:
     slope: np.ndarray         # (N,) per scaled s
     scale_rad_s: float
     error: np.ndarray         # (N,) relative to max |Z_kk|
+    solver: FitSolver | None = field(default=None, compare=False, repr=False)
 
     def impedance(self, s_rad_s: np.ndarray) -> np.ndarray:
         """Z_kk at complex frequencies s, (len(s), N)."""
@@ -97,34 +98,68 @@ class NodeFit:
         return complex(terms.sum() + self.constant[node] + x * self.slope[node])
 
 
+@dataclass(frozen=True)
+class FitSolver:
+    """The least-squares solver of one pole set on one set of samples: the SVD of the column-
+    normalised partial-fraction basis, kept so that several fits with the same poles (the
+    nodes' Z_kk, a mode's row and column of Z, the stabilisers' placements) factor it once.
+    Solutions as ``numpy.linalg.lstsq`` (minimum norm, singular values below
+    eps·max(rows, columns)·s_max dropped)."""
+
+    frequency_hz: np.ndarray   # (R,) the samples used
+    rows: np.ndarray           # their indices in the caller's frequency grid
+    poles: np.ndarray          # (P,) scaled poles kept (not NaN, not on a sample)
+    basis: np.ndarray          # (2R, P + 2) unnormalised basis at ±jω
+    norms: np.ndarray          # (P + 2,)
+    left: np.ndarray           # (2R, K) Uᴴ's kept columns
+    right: np.ndarray          # (P + 2, K) V / s over the kept singular values
+
+    @classmethod
+    def build(cls, frequency_hz: np.ndarray, rows: np.ndarray, poles_rad_s: np.ndarray,
+              scale_rad_s: float) -> FitSolver:
+        f = np.asarray(frequency_hz, dtype=float)[rows]
+        x = 2j * np.pi * f / scale_rad_s
+        x_all = np.concatenate([x, -x])
+        p = np.asarray(poles_rad_s, dtype=complex) / scale_rad_s
+        # poles that are not NaN and not exactly on a sample (min |x − p| > 0)
+        p = p[~np.isnan(p) & ~(x_all[:, None] == p[None, :]).any(axis=0)]
+        basis = np.concatenate([1.0 / (x_all[:, None] - p[None, :]), np.ones((x_all.size, 1)),
+                                x_all[:, None]], axis=1)
+        norms = np.sqrt(np.add.reduce((basis.conj() * basis).real, axis=0))  # np.linalg.norm's
+        norms[norms == 0] = 1.0
+        u, sigma, vh = np.linalg.svd(basis / norms, full_matrices=False)
+        keep = sigma > np.finfo(float).eps * max(basis.shape) * (sigma[0] if sigma.size else 0)
+        return cls(f, rows, p, basis, norms, u[:, keep],
+                   vh[keep].conj().T / sigma[keep][None, :])
+
+    def solve(self, z_all: np.ndarray) -> np.ndarray:
+        """Coefficients (P + 2, M) of the unnormalised basis for the columns of ``z_all``."""
+        return (self.right @ (self.left.conj().T @ z_all)) / self.norms[:, None]
+
+
 def fit_nodes(frequency_hz: np.ndarray, impedance: np.ndarray, poles_rad_s: np.ndarray,
-              scale_rad_s: float) -> NodeFit:
+              scale_rad_s: float, like: NodeFit | None = None) -> NodeFit:
     """Partial-fraction fits of every column of ``impedance`` (F, M) — the nodes' Z_kk, or any
     entries of Z — in one least-squares solve (module docstring), on at most MAX_FIT_SAMPLES
-    evenly spread samples."""
+    evenly spread samples. ``like``: a fit with the same poles on the same grid, whose solver
+    is reused when the usable samples are the same."""
     rows = np.nonzero(np.all(np.isfinite(impedance), axis=1))[0]
     if rows.size > MAX_FIT_SAMPLES:
         rows = rows[evenly_spread(rows.size, MAX_FIT_SAMPLES)]
-    f = np.asarray(frequency_hz, dtype=float)[rows]
+    solver = like.solver if like is not None else None
+    if solver is None or like is None or like.scale_rad_s != scale_rad_s \
+            or not np.array_equal(solver.rows, rows) \
+            or not np.array_equal(like.poles_rad_s, poles_rad_s):
+        solver = FitSolver.build(frequency_hz, rows, poles_rad_s, scale_rad_s)
     z = impedance[rows]
-    x = 2j * np.pi * f / scale_rad_s
-    x_all = np.concatenate([x, -x])
     z_all = np.concatenate([z, np.conj(z)])
-    p = np.asarray(poles_rad_s, dtype=complex) / scale_rad_s
-    # poles that are not NaN and not exactly on a sample (min |x − p| > 0)
-    p = p[~np.isnan(p) & ~(x_all[:, None] == p[None, :]).any(axis=0)]
-    basis = np.concatenate([1.0 / (x_all[:, None] - p[None, :]), np.ones((x_all.size, 1)),
-                            x_all[:, None]], axis=1)
-    norms = np.sqrt(np.add.reduce((basis.conj() * basis).real, axis=0))  # np.linalg.norm's
-    norms[norms == 0] = 1.0
-    coefficients, *_ = np.linalg.lstsq(basis / norms, z_all, rcond=None)
-    coefficients = coefficients / norms[:, None]
-    fitted = basis @ coefficients
+    coefficients = solver.solve(z_all)
+    fitted = solver.basis @ coefficients
     with np.errstate(divide="ignore", invalid="ignore"):
         error = np.max(np.abs(fitted - z_all), axis=0) / np.max(np.abs(z_all), axis=0)
-    n = p.size
-    return NodeFit(p * scale_rad_s, coefficients[:n] * scale_rad_s,
-                   coefficients[n], coefficients[n + 1], scale_rad_s, error)
+    n = solver.poles.size
+    return NodeFit(solver.poles * scale_rad_s, coefficients[:n] * scale_rad_s,
+                   coefficients[n], coefficients[n + 1], scale_rad_s, error, solver)
 
 
 @dataclass(frozen=True)
@@ -171,7 +206,8 @@ def mode_shapes(frequency_hz: np.ndarray, z_on: np.ndarray, node_fit: NodeFit,
     anchors = list(dict.fromkeys(int(np.argmax(lev)) for lev in leverages))
     entries = np.concatenate([block for a in anchors for block in (z_on[:, :, a], z_on[:, a, :])],
                              axis=1)                                   # (F, 2N per anchor)
-    fit = fit_nodes(frequency_hz, entries, node_fit.poles_rad_s, node_fit.scale_rad_s)
+    fit = fit_nodes(frequency_hz, entries, node_fit.poles_rad_s, node_fit.scale_rad_s,
+                    like=node_fit)
     f = np.asarray(frequency_hz, dtype=float)
     shapes = []
     for zero, leverage in zip(zeros, leverages, strict=True):

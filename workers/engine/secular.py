@@ -83,25 +83,33 @@ class SecularRoots:
     def roots(self, column: int, conductances: np.ndarray, top_rad_s: float) -> np.ndarray:
         """(G, P + 1) roots (rad/s) of 1 + G φ_column(s), NaN-padded (module docstring)."""
         g = np.asarray(conductances, dtype=float)
-        c, d = self.constant[column], self.slope[column]
-        row = self.c[column]
+        return self.roots_many(np.full(g.size, column), g, top_rad_s)
+
+    def roots_many(self, columns: np.ndarray, conductances: np.ndarray, top_rad_s: float
+                   ) -> np.ndarray:
+        """(K, P + 1) roots (rad/s) of 1 + G_k φ_(columns_k)(s), one row per pair, NaN-padded:
+        every placement's trials in one stacked eigenvalue call."""
+        g = np.asarray(conductances, dtype=float)
+        columns = np.asarray(columns, dtype=int)
+        c, d = self.constant[columns], self.slope[columns]
+        rows = self.c[columns]                                         # (K, P)
         loop = 1.0 + g * c
         slope = np.abs(g * d) * (top_rad_s / self.scale) >= SLOPE_NEGLIGIBLE * np.abs(loop)
         size = self.a.shape[0]
         found = np.full((g.size, size + 1), np.nan + 0j)
-        coupling = np.outer(self.b, row)
         with np.errstate(all="ignore"):
             if size and (~slope).any():
                 beta = (g / loop)[~slope]
+                coupling = self.b[None, :, None] * rows[~slope][:, None, :]
                 found[~slope, :size] = np.linalg.eigvals(
-                    self.a[None] - beta[:, None, None] * coupling[None])
+                    self.a[None] - beta[:, None, None] * coupling)
             if slope.any():
                 gs = g[slope]
                 stack = np.zeros((gs.size, size + 1, size + 1), dtype=self.a.dtype)
                 stack[:, :size, :size] = self.a
                 stack[:, :size, size] = self.b
-                stack[:, size, :size] = -row / d
-                stack[:, size, size] = -(1.0 + gs * c) / (gs * d)
+                stack[:, size, :size] = -rows[slope] / d[slope][:, None]
+                stack[:, size, size] = -(1.0 + gs * c[slope]) / (gs * d[slope])
                 found[slope] = np.linalg.eigvals(stack)
         found[~np.isfinite(found)] = np.nan
         return found * self.scale

@@ -117,7 +117,7 @@ class StabiliserSearch:
         error = node_fit.error[self.first].copy()
         if pair.any():
             fitted = fit_nodes(self.analysis.request.frequency_hz, phi[:, pair],
-                               node_fit.poles_rad_s, node_fit.scale_rad_s)
+                               node_fit.poles_rad_s, node_fit.scale_rad_s, like=node_fit)
             residues[:, pair], constant[pair] = fitted.residues, fitted.constant
             slope[pair], error[pair] = fitted.slope, fitted.error
         return NodeFit(node_fit.poles_rad_s, residues, constant, slope, node_fit.scale_rad_s,
@@ -182,25 +182,39 @@ class StabiliserSearch:
         """The circuit with each of ``conductances`` at placement ``m``: least ζ of the roots in
         the band (Im ≥ 0, |s| inside it) and whether one grows; the count if asked."""
         g = np.asarray(conductances, dtype=float)
-        zeta = where = np.full(g.size, np.nan)
-        growing = np.zeros(g.size, dtype=bool)
-        if self.fitted(m):
-            roots = self.roots(m, g)
-            size = np.abs(roots)
-            with np.errstate(invalid="ignore"):
-                chosen = (roots.imag >= -REAL_ZERO * size) & (size >= self.limits[0]) \
-                    & (size <= self.limits[1])
-                ratios = np.where(chosen, -roots.real / size, np.inf)
-            k = np.argmin(ratios, axis=1)
-            rows = np.arange(g.size)
-            found = np.isfinite(ratios[rows, k])
-            zeta = np.where(found, ratios[rows, k], np.nan)
-            where = np.where(found, np.abs(roots[rows, k].imag) / (2 * np.pi), np.nan)
-            growing = (chosen & (roots.real > 0)).any(axis=1)
-        return [Trial(float(g[i]), self.count(m, float(g[i])) if with_count else None,
-                      None if np.isnan(zeta[i]) else float(zeta[i]),
-                      None if np.isnan(where[i]) else float(where[i]), bool(growing[i]))
-                for i in range(g.size)]
+        if not self.fitted(m):
+            return [Trial(float(x), self.count(m, float(x)) if with_count else None, None, None,
+                          False) for x in g]
+        trials = self._modelled_trials([(m, g)])[0]
+        return [self._counted(m, t) for t in trials] if with_count else trials
+
+    def _modelled_trials(self, asked: list[tuple[int, np.ndarray]]) -> list[list[Trial]]:
+        """Trials (no count) at fitted placements, every (placement, conductances) pair of
+        ``asked`` in one stacked root computation."""
+        if not asked:
+            return []
+        columns = np.concatenate([np.full(len(g), m) for m, g in asked])
+        g = np.concatenate([np.asarray(x, dtype=float) for _, x in asked])
+        assert self.secular is not None
+        roots = self.secular.roots_many(columns, g, self.limits[1])
+        size = np.abs(roots)
+        with np.errstate(invalid="ignore"):
+            chosen = (roots.imag >= -REAL_ZERO * size) & (size >= self.limits[0]) \
+                & (size <= self.limits[1])
+            ratios = np.where(chosen, -roots.real / size, np.inf)
+        k = np.argmin(ratios, axis=1)
+        rows = np.arange(g.size)
+        found = np.isfinite(ratios[rows, k])
+        zeta = np.where(found, ratios[rows, k], np.nan).tolist()
+        where = np.where(found, np.abs(roots[rows, k].imag) / (2 * np.pi), np.nan).tolist()
+        growing = (chosen & (roots.real > 0)).any(axis=1).tolist()
+        trials = [Trial(x, None, None if z != z else z, None if w != w else w, grow)
+                  for x, z, w, grow in zip(g.tolist(), zeta, where, growing, strict=True)]
+        out, start = [], 0
+        for _, x in asked:
+            out.append(trials[start:start + len(x)])
+            start += len(x)
+        return out
 
     def trial(self, m: int, g: float, with_count: bool = True) -> Trial:
         return self.trials(m, np.array([g]), with_count)[0]
@@ -236,6 +250,36 @@ class StabiliserSearch:
                 best, high = fine[k], float(points[k + 1])
             low = float(points[k if k is not None else FINE_POINTS - 1])
         return best
+
+    def search_all(self, ms: list[int]) -> list[Found]:
+        """``search(m, confirm=False)`` for each of ``ms``, the fitted placements' grids and
+        narrowing rounds each in one stacked root computation."""
+        found: dict[int, Found] = {m: self.search(m, confirm=False) for m in ms
+                                   if not self.fitted(m)}
+        modelled = [m for m in ms if self.fitted(m)]
+        brackets: dict[int, tuple[float, float, Trial]] = {}
+        grids = self._modelled_trials([(m, GRID) for m in modelled])
+        for m, trials in zip(modelled, grids, strict=True):
+            first = self._first(m, trials, False)
+            if first is None:
+                found[m] = Found(self.placements[m], self._best(m, trials), False, True)
+            elif first == 0:
+                found[m] = Found(self.placements[m], trials[0], True, True)
+            else:
+                brackets[m] = (float(GRID[first - 1]), float(GRID[first]), trials[first])
+        for _ in range(FINE_ROUNDS):
+            points = {m: np.geomspace(low, high, FINE_POINTS + 1)
+                      for m, (low, high, _) in brackets.items()}
+            fine = self._modelled_trials([(m, x[1:-1]) for m, x in points.items()])
+            for (m, x), trials in zip(points.items(), fine, strict=True):
+                _, high, best = brackets[m]
+                k = self._first(m, trials, False)
+                if k is not None:
+                    best, high = trials[k], float(x[k + 1])
+                brackets[m] = (float(x[k if k is not None else FINE_POINTS - 1]), high, best)
+        for m, (_, _, best) in brackets.items():
+            found[m] = Found(self.placements[m], best, True, True)
+        return [found[m] for m in ms]
 
     def search(self, m: int, confirm: bool = True) -> Found:
         """The smallest conductance at placement ``m`` that meets the target, or the best one
