@@ -18,6 +18,7 @@ from __future__ import annotations
 import json
 import pickle
 import re
+import subprocess
 import sys
 from pathlib import Path
 from types import SimpleNamespace
@@ -28,7 +29,7 @@ import skrf
 from skrf.io.general import to_json_string
 
 from service.cli import EXIT_ERROR, EXIT_UNSTABLE, main
-from service.client import BallastClient, ClientConfig, request_from_network
+from service.client import BallastClient, ClientConfig, ClientError, request_from_network
 from service.client_network import PACK_ABOVE_VALUES
 from service.intake import load_request
 from service.schemas.request import is_packed
@@ -238,8 +239,9 @@ def test_submit_takes_scikit_rf_network_files_beside_touchstone(server, tmp_path
     stable = rlc_tank_request(-3e-3, RLC_SHORT_BAND_HZ)
     touchstone = tmp_path / "designs" / "tank_3mS.s1p"
     touchstone.write_text(to_touchstone(RLC_SHORT_BAND_HZ, s_of(stable)), encoding="utf-8")
+    report = tmp_path / "report"
     code = main(["submit", str(tmp_path / "designs" / "*.json"), str(touchstone),
-                 "--map", str(map_file), "--wait"])
+                 "--map", str(map_file), "--wait", "--report-dir", str(report)])
     out, err = capsys.readouterr()
     assert code == EXIT_UNSTABLE, err  # closed form: the −8 mS tank oscillates
     assert "3 variant(s)" in err and all(name in out for name in (
@@ -249,6 +251,11 @@ def test_submit_takes_scikit_rf_network_files_beside_touchstone(server, tmp_path
     verdicts = {item["label"]: item["verdict"] for item in client.iter_batch_checks(batch_id)}
     assert verdicts == {"tank_3mS.json": "stable", "tank_8mS.json": "unstable",
                         "tank_3mS.s1p": "stable"}
+    # the report draws the unstable variant's plots from its request (S data and z0 as sent)
+    pages = [(report / link).read_text(encoding="utf-8") for link in re.findall(
+        r'href="(checks/[^"]+\.html)"', (report / "index.html").read_text(encoding="utf-8"))]
+    unstable = [page for page in pages if "tank_8mS.json" in page]
+    assert len(pages) == 3 and unstable and 'id="plot-ndf"' in unstable[0]
 
 
 def test_submit_without_scikit_rf_names_the_file_and_the_extra(server, tmp_path, capsys,
@@ -308,3 +315,28 @@ def test_submit_names_the_network_file_whose_port_count_the_map_contradicts(serv
     err = capsys.readouterr().err
     assert code == EXIT_ERROR
     assert "tank_8mS.json: the network has 1 port(s) but the map lists 2" in err
+
+
+def test_check_network_gives_up_after_its_timeout(server):
+    """A check held in the queue never finishes: check_network says so after timeout_s."""
+    server.queue.hold()
+    ntwk = network(RLC_SHORT_BAND_HZ, s_of(rlc_tank_request(-3e-3, RLC_SHORT_BAND_HZ)))
+    request = rlc_tank_request(-3e-3, RLC_SHORT_BAND_HZ)
+    with pytest.raises(ClientError, match=r"not finished after 0.2 s \(status queued\)"):
+        client_for(server).check_network(ntwk, request["ports"], request["devices"],
+                                         poll_s=0.05, timeout_s=0.2)
+    server.queue.release()
+
+
+def test_client_works_without_scikit_rf():
+    """service.client imports and converts a duck-typed network with ``import skrf`` failing."""
+    code = ("import sys; sys.modules['skrf'] = None\n"
+            "import numpy as np\nfrom types import SimpleNamespace\n"
+            "from service.client import BallastClient, request_from_network\n"
+            "net = SimpleNamespace(f=[1e9, 2e9, 3e9], s=np.zeros((3, 1, 1)), z0=50.0)\n"
+            "r = request_from_network(net, [{'name': 'a', 'role': 'probe'}])\n"
+            "assert r['z0_ohm'] == [50.0]\n"
+            "print('ok')\n")
+    done = subprocess.run([sys.executable, "-W", "error", "-c", code], capture_output=True,
+                          text=True, timeout=120, cwd=Path(__file__).resolve().parents[1])
+    assert done.returncode == 0 and done.stdout.strip() == "ok", done.stderr
