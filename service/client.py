@@ -4,6 +4,7 @@
     client = BallastClient.from_environment()          # BALLAST_URL, BALLAST_TOKEN, config file
     batch = client.submit_touchstone_batch(paths, mapping)
     client.wait_batch(batch["id"])
+    check = client.check_network(skrf_network, ports=[...], devices=[...])  # submit and wait
 
 Where the settings come from, first match wins: explicit arguments; the environment
 (``BALLAST_URL``, ``BALLAST_TOKEN``); the TOML file named by ``BALLAST_CONFIG`` or else
@@ -34,6 +35,12 @@ import requests
 from requests.adapters import HTTPAdapter
 from urllib3.exceptions import InvalidHeader
 from urllib3.util.retry import Retry
+
+from service.client_network import request_from_network
+
+__all__ = ["ApiError", "BallastClient", "BatchProgress", "ClientConfig", "ClientError",
+           "RetryPolicy", "batch_progress", "config_file_path", "load_config", "next_link",
+           "request_from_network"]
 
 DEFAULT_URL = "http://127.0.0.1:8000"
 CONFIG_ENV = "BALLAST_CONFIG"
@@ -227,6 +234,37 @@ class BallastClient:
 
     def get_check(self, check_id: str) -> dict:
         return self._json("GET", f"/v1/checks/{check_id}")
+
+    def wait_check(self, check_id: str, poll_s: float = 0.25, max_poll_s: float = 3.0,
+                   timeout_s: float | None = None) -> dict:
+        """Poll until the check is done, failed or cancelled; return the check (its
+        ``verdict`` when done)."""
+        start = time.monotonic()
+        interval = poll_s
+        while True:
+            check = self.get_check(check_id)
+            if check.get("status") in FINAL_STATUSES:
+                return check
+            if timeout_s is not None and time.monotonic() - start > timeout_s:
+                raise ClientError(f"check {check_id}: not finished after {timeout_s:g} s "
+                                  f"(status {check.get('status')})")
+            self._sleep(interval)
+            interval = min(max_poll_s, interval * 1.5)
+
+    def check_network(self, network: Any, ports: Sequence[dict[str, Any]],
+                      devices: Sequence[dict[str, Any]] | None = None, gain_off: Any = None,
+                      options: dict[str, Any] | None = None, *, priority: str | None = None,
+                      poll_s: float = 0.25, max_poll_s: float = 3.0,
+                      timeout_s: float | None = None) -> dict:
+        """Check a scikit-rf ``Network`` (or any object with ``.f``, ``.s``, ``.z0``): the request
+        of :func:`request_from_network`, submitted (POST /v1/checks) and waited for
+        (:meth:`wait_check`); returns the finished check with its verdict."""
+        request = request_from_network(network, ports, devices, gain_off, options)
+        if priority is not None:
+            request["priority"] = priority
+        accepted = self.submit_check(request)
+        return self.wait_check(accepted["id"], poll_s=poll_s, max_poll_s=max_poll_s,
+                               timeout_s=timeout_s)
 
     def add_samples(self, check_id: str, samples: dict[str, Any],
                     idempotency_key: str | None = None) -> dict:

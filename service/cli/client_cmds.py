@@ -4,6 +4,12 @@
     ballast status bat_...            ballast cancel chk_...
     ballast results bat_... --format table|json|csv|junit [--curves DIR]
 
+With --map, a file named ``*.json`` (by name or glob; folders give only Touchstone files) is
+read as scikit-rf's own network file: the JSON form ``skrf.io.general.to_json_string`` writes,
+read by scikit-rf's ``from_json_string`` (needs the ``[rf]`` extra). scikit-rf's other own form,
+the pickled ``.ntwk``/``.p`` file, is never read: unpickling a file runs its code. Touchstone
+files are always read by ballast's own reader.
+
 The server and token come from --url/--token, else BALLAST_URL/BALLAST_TOKEN, else the client
 config file (see ``service.client``). Exit codes of ``submit --wait`` and ``results``: 0 every
 check stable; 1 any unstable; 3 any failed, cancelled or unfinished (or the command itself
@@ -25,6 +31,7 @@ from typing import Any
 from service.cli import EXIT_ERROR, EXIT_STABLE
 from service.cli.check_cmd import read_touchstone_file
 from service.client import BallastClient, ClientError, load_config
+from service.client_network import network_part, read_network_file
 from service.reports.junit import junit_xml
 from service.reports.outcomes import exit_code, item_from_check, state_of
 from service.reports.tabular import results_csv, results_table
@@ -53,12 +60,16 @@ def register(subparsers: argparse._SubParsersAction) -> None:
     submit = subparsers.add_parser(
         "submit", parents=[common], help="submit a folder or glob of variants as one batch",
         description="Submit Touchstone files plus a port/device map (--map), or JSON check "
-                    "requests (without --map), as one batch. Prints the batch id; with --wait, "
-                    "shows progress and exits by the verdicts.")
+                    "requests (without --map), as one batch. With --map, .json files named "
+                    "(or globbed) are read as scikit-rf network files (the JSON that "
+                    "skrf.io.general.to_json_string writes; needs scikit-rf: pip install "
+                    "'ballast[rf]'); pickled .ntwk/.p files are never read. Prints the batch "
+                    "id; with --wait, shows progress and exits by the verdicts.")
     submit.add_argument("paths", nargs="+", metavar="PATH",
                         help="files, folders or glob patterns")
     submit.add_argument("--map", dest="map_file", type=Path,
-                        help="JSON with the ports, devices (and options) shared by every file")
+                        help="JSON with the ports, devices (and options) shared by every "
+                             "Touchstone or scikit-rf network file")
     submit.add_argument("--label", help="a label for the batch")
     submit.add_argument("--wait", action="store_true",
                         help="wait for every verdict, with a progress bar on stderr")
@@ -136,6 +147,24 @@ def expand_paths(patterns: Sequence[str], want_touchstone: bool,
     return list(unique.values())
 
 
+def _is_network_file(path: Path) -> bool:
+    """With --map: a .json file is scikit-rf's JSON form of a network (module docstring)."""
+    return path.suffix.lower() == ".json"
+
+
+def _mapped_members(path: Path, mapping: Mapping[str, Any]) -> dict[str, Any]:
+    """The network members of one file given with --map: Touchstone text, or the S data and
+    per-port z0 of a scikit-rf network file."""
+    if not _is_network_file(path):
+        return {"touchstone": read_touchstone_file(path)}
+    part = network_part(read_network_file(path), f"{path}: network")
+    ports = mapping.get("ports")
+    if isinstance(ports, list) and len(ports) != part.n_ports:
+        raise ValueError(f"{path}: the network has {part.n_ports} port(s) but the map lists "
+                         f"{len(ports)}")
+    return part.members
+
+
 def _read_json_object(path: Path, what: str) -> dict[str, Any]:
     value = json.loads(path.read_text(encoding="utf-8"))
     if not isinstance(value, dict):
@@ -180,8 +209,14 @@ def _submit_batch(client: BallastClient, args: argparse.Namespace
         files = expand_paths(args.paths, want_touchstone=True, exclude=args.map_file)
         if not files:
             raise ValueError("no Touchstone files (.sNp, .ts) found in " + " ".join(args.paths))
-        payloads = [{**mapping, "touchstone": read_touchstone_file(f)} for f in files]
-        accepted = client.submit_touchstone_batch(files, mapping, label=args.label)
+        if any(_is_network_file(f) for f in files):  # JSON batch: the map shared, files merged
+            members = [_mapped_members(f, mapping) for f in files]
+            payloads = [{**mapping, **m} for m in members]
+            variants = [{"label": f.name, **m} for f, m in zip(files, members, strict=True)]
+            accepted = client.submit_batch(mapping, variants, label=args.label)
+        else:
+            payloads = [{**mapping, "touchstone": read_touchstone_file(f)} for f in files]
+            accepted = client.submit_touchstone_batch(files, mapping, label=args.label)
     else:
         files = expand_paths(args.paths, want_touchstone=False)
         if not files:
