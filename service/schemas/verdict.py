@@ -27,7 +27,7 @@ VERDICT_REF = f"#/components/schemas/{VERDICT_COMPONENT}"
 _NAMES = {"CheckVerdict": VERDICT_COMPONENT}
 
 #: fields the JSON leaves out (rather than writing null) when they are None:
-#: ``CheckVerdict.to_dict`` (next_sweep) and ``RefinementReport.to_dict`` (every part that may be None)
+#: ``CheckVerdict.to_dict`` (next_sweep), ``RefinementReport.to_dict`` (every part that may be)
 OMITTED: dict[str, set[str] | Literal["every nullable"]] = {
     "CheckVerdict": {"next_sweep"},
     "RefinementReport": "every nullable",
