@@ -11,12 +11,16 @@ from dataclasses import asdict, dataclass, field, replace
 from typing import Any, Literal, TypedDict
 
 from workers.engine.advice_report import Margin, Stabiliser, Symmetry
+from workers.engine.edges import EdgeBasis
 from workers.engine.refine_report import RefinementReport
 
 VERDICT_FORMAT = "ballast.verdict/1"
 
 VerdictName = Literal["stable", "unstable", "indeterminate"]
 Severity = Literal["info", "warning", "blocking"]
+PortRole = Literal["external", "probe"]
+ModeEstimate = Literal[  # how a mode's frequency was found
+    "ndf_phase_drop", "ndf_real_axis", "kurokawa_point", "rational_model"]
 DiagnosticCode = Literal[
     "band_low_open",            # NDF has not settled to its DC value at the lowest frequency
     "band_high_open",           # NDF has not settled to its limit at the highest frequency
@@ -100,7 +104,7 @@ class Mode:
     nodes: list[str]
     devices: list[str]
     node_participation: list[float]
-    estimated_by: str
+    estimated_by: ModeEstimate
     hint: StabilisationHint | None = None
     pinned: bool = True
     node_leverage: list[float] | None = None
@@ -141,7 +145,7 @@ class EdgeReport:
     drift: float
     trend: float | None = None
     settled: bool | None = None
-    basis: str | None = None
+    basis: EdgeBasis | None = None
     share: float | None = None
     slope: float | None = None
     spread: float | None = None
@@ -183,7 +187,7 @@ class KurokawaPoint:
 @dataclass(frozen=True)
 class NodeReport:
     name: str
-    role: str
+    role: PortRole
     min_re_admittance_s: float
     min_re_at_hz: float
     kurokawa: list[KurokawaPoint]
