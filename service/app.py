@@ -21,6 +21,7 @@ from service.api.path_ids import CONVERTERS, parameter_schema
 from service.api.security_headers import SecurityHeadersMiddleware
 from service.config import app_config
 from service.problems import PROBLEM_CONTENT_TYPE
+from service.schemas.verdict import verdict_components
 from workers.store import Stores
 
 log = logging.getLogger("ballast.api")
@@ -33,7 +34,7 @@ _SPEC_OPTIONS = {
     "info": {
         "description": "Stability verdicts for RF/microwave amplifiers from multi-port data. "
                        "Errors are RFC 9457 problem details (" + PROBLEM_CONTENT_TYPE + ").",
-        "license": {"name": "Apache-2.0", "identifier": "Apache-2.0"},
+        "license": {"name": "MIT", "identifier": "MIT"},
     },
     "components": {"securitySchemes": {
         "bearer": {"type": "http", "scheme": "bearer",
@@ -116,6 +117,8 @@ def create_app(config: dict[str, Any] | None = None) -> Flask:
     }
     app.url_map.converters.update(CONVERTERS)
     api = ProblemApi(app)
+    for name, component in verdict_components().items():  # the verdict, typed (engine records)
+        api.spec.components.schema(name, component=component)
     for converter in CONVERTERS.values():
         api.register_converter(converter, parameter_schema)
     for blueprint in BLUEPRINTS:

@@ -286,7 +286,7 @@ def trend_order() -> str:
 
 @blp.route("/v1/batches/<batch_id:batch_id>/report", methods=["GET"])
 @blp.doc(operationId="getBatchReport", responses=PAGE_RESPONSE)
-@document_errors(blp, 401, 404, 429)
+@document_errors(blp, 400, 401, 404, 429)  # 400: a query parameter (it takes none)
 def batch_report(batch_id: str) -> Response:
     """The HTML page of a batch: every check, sortable by verdict, frequency, node and margin."""
     from service.api.batches import batch_view

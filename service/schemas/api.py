@@ -8,6 +8,7 @@ from __future__ import annotations
 
 from marshmallow import RAISE, Schema, fields, validate
 
+from service.schemas.verdict import VERDICT_REF
 from workers.store import CHECK_STATUSES, PRIORITIES, VERDICT_NAMES
 
 
@@ -31,7 +32,8 @@ class CheckSchema(Schema):
     updated_at = fields.String(required=True, metadata={"format": "date-time"})
     started_at = fields.String(allow_none=True, required=True, metadata={"format": "date-time"})
     finished_at = fields.String(allow_none=True, required=True, metadata={"format": "date-time"})
-    verdict = fields.Dict(allow_none=True, required=True, metadata={
+    verdict = fields.Raw(allow_none=True, required=True, metadata={
+        "allOf": [{"$ref": VERDICT_REF}],  # with allow_none: anyOf [Verdict, null]
         "description": "the engine's verdict document when status is done, else null"})
     reason = fields.String(allow_none=True, required=True, metadata={
         "description": "why the check failed, when status is failed, else null"})

@@ -6,6 +6,9 @@
 from __future__ import annotations
 
 from dataclasses import dataclass
+from typing import Literal
+
+Symmetry = Literal["odd", "even", "single"]  # how a mode drives a balanced pair of devices
 
 
 @dataclass(frozen=True)
@@ -23,7 +26,7 @@ class NaturalFrequency:
     nodes: list[str]
     devices: list[str]
     node_participation: list[float]
-    symmetry: str | None = None
+    symmetry: Symmetry | None = None
 
 
 @dataclass(frozen=True)

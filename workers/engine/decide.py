@@ -37,6 +37,7 @@ from workers.engine.verdict import (
     NdfReport,
     NodeReport,
     StabilisationHint,
+    TwoPortReport,
 )
 
 # Kurokawa's first-order estimate is only sharp for a high-Q crossing (common practice): a point
@@ -277,7 +278,7 @@ def _count_diagnostics(analysis: Analysis, count: Any) -> list[Diagnostic]:
     return found
 
 
-def decide(analysis: Analysis, two_port: dict[str, Any] | None,
+def decide(analysis: Analysis, two_port: TwoPortReport | None,
            refined: RefinedCheck | None = None,
            extra: list[Diagnostic] | None = None) -> CheckVerdict:
     """The verdict of one check (module docstring). ``refined``: what the rational model adds

@@ -6,14 +6,14 @@ external ports' reference impedances, then Rollett/Edwards–Sinsky factors (``t
 
 from __future__ import annotations
 
-from typing import Any
+from typing import Any, cast
 
 import numpy as np
 
 from workers.engine import twoport
 from workers.engine.conversions import batched_inv, batched_solve, termination_admittances
 from workers.engine.request import CheckRequest
-from workers.engine.verdict import Diagnostic
+from workers.engine.verdict import Diagnostic, TwoPortReport
 
 
 def external_s(request: CheckRequest, y_data: np.ndarray, z_on: np.ndarray | None = None
@@ -45,7 +45,7 @@ def external_s(request: CheckRequest, y_data: np.ndarray, z_on: np.ndarray | Non
 
 def two_port_report(request: CheckRequest, y_data: np.ndarray,
                     diagnostics: list[Diagnostic], z_on: np.ndarray | None = None
-                    ) -> tuple[dict[str, Any] | None, Any]:
+                    ) -> tuple[TwoPortReport | None, Any]:
     """The two-port summary for the verdict (None unless exactly two external ports)."""
     ext = [p.name for p in request.ports if p.role == "external"]
     if len(ext) != 2:
@@ -63,4 +63,4 @@ def two_port_report(request: CheckRequest, y_data: np.ndarray,
     f = request.frequency_hz[keep]
     factors = twoport.two_port_factors(s[keep])
     summary = twoport.summarise_two_port(f, factors)
-    return {"ports": ext, **summary.to_dict()}, (f, s[keep], factors)
+    return cast(TwoPortReport, {"ports": ext, **summary.to_dict()}), (f, s[keep], factors)

@@ -12,9 +12,8 @@ from typing import Literal
 
 import numpy as np
 
-from workers.engine.verdict import Diagnostic
+from workers.engine.verdict import Diagnostic, PortRole
 
-PortRole = Literal["external", "probe"]
 Parameter = Literal["S", "Y", "Z"]
 
 MAX_PORTS = 64

@@ -8,13 +8,19 @@ from __future__ import annotations
 
 import math
 from dataclasses import asdict, dataclass, field, replace
-from typing import Any, Literal
+from typing import Any, Literal, TypedDict
+
+from workers.engine.advice_report import Margin, Stabiliser, Symmetry
+from workers.engine.edges import EdgeBasis
+from workers.engine.refine_report import RefinementReport
 
 VERDICT_FORMAT = "ballast.verdict/1"
 
 VerdictName = Literal["stable", "unstable", "indeterminate"]
-Symmetry = Literal["odd", "even", "single"]  # how a mode drives a balanced pair of devices
 Severity = Literal["info", "warning", "blocking"]
+PortRole = Literal["external", "probe"]
+ModeEstimate = Literal[  # how a mode's frequency was found
+    "ndf_phase_drop", "ndf_real_axis", "kurokawa_point", "rational_model"]
 DiagnosticCode = Literal[
     "band_low_open",            # NDF has not settled to its DC value at the lowest frequency
     "band_high_open",           # NDF has not settled to its limit at the highest frequency
@@ -98,13 +104,13 @@ class Mode:
     nodes: list[str]
     devices: list[str]
     node_participation: list[float]
-    estimated_by: str
+    estimated_by: ModeEstimate
     hint: StabilisationHint | None = None
     pinned: bool = True
     node_leverage: list[float] | None = None
     device_participation: list[float] | None = None
     symmetry: Symmetry | None = None  # from the phases of the voltage shape (``symmetry``)
-    hints: list[Any] | None = None    # Stabiliser records (``advice_report``), best first
+    hints: list[Stabiliser] | None = None  # the best stabilisers for it (``advice``)
 
 
 @dataclass(frozen=True)
@@ -139,7 +145,7 @@ class EdgeReport:
     drift: float
     trend: float | None = None
     settled: bool | None = None
-    basis: str | None = None
+    basis: EdgeBasis | None = None
     share: float | None = None
     slope: float | None = None
     spread: float | None = None
@@ -181,7 +187,7 @@ class KurokawaPoint:
 @dataclass(frozen=True)
 class NodeReport:
     name: str
-    role: str
+    role: PortRole
     min_re_admittance_s: float
     min_re_at_hz: float
     kurokawa: list[KurokawaPoint]
@@ -197,6 +203,22 @@ class MethodReport:
     note: str = ""
 
 
+class TwoPortReport(TypedDict):
+    """The verdict's ``two_port``: the external ports and ``TwoPortSummary.to_dict``
+    (``workers.engine.twoport``; minima null when no sample defines them)."""
+
+    ports: list[str]
+    k_min: float | None
+    k_min_hz: float | None
+    mu_min: float | None
+    mu_min_hz: float | None
+    mu_prime_min: float | None
+    mu_prime_min_hz: float | None
+    unstable_bands_hz: list[tuple[float, float]]
+    unconditionally_stable: bool
+    proviso: str
+
+
 @dataclass(frozen=True)
 class CheckVerdict:
     verdict: VerdictName
@@ -205,18 +227,18 @@ class CheckVerdict:
     ndf: NdfReport | None
     devices: list[DeviceReport]
     nodes: list[NodeReport]
-    two_port: dict[str, Any] | None
+    two_port: TwoPortReport | None
     methods: list[MethodReport]
     diagnostics: list[Diagnostic]
     band_hz: tuple[float, float]
     n_points: int
     n_ports: int
-    refinement: Any = None  # RefinementReport (workers.engine.refine_report) or None
+    refinement: RefinementReport | None = None
     count_complete: bool = False
     assumptions: list[Assumption] = field(default_factory=list)
     next_sweep: NextSweep | None = None
-    margin: Any = None  # Margin (``workers.engine.advice_report``), set by ``advice``
-    hints: list[Any] = field(default_factory=list)  # Stabiliser records, best first
+    margin: Margin | None = None  # set by ``advice``
+    hints: list[Stabiliser] = field(default_factory=list)  # best first
 
     def to_dict(self) -> dict[str, Any]:
         refinement = self.refinement
