@@ -239,17 +239,10 @@ class BallastClient:
                    timeout_s: float | None = None) -> dict:
         """Poll until the check is done, failed or cancelled; return the check (its
         ``verdict`` when done)."""
-        start = time.monotonic()
-        interval = poll_s
-        while True:
-            check = self.get_check(check_id)
-            if check.get("status") in FINAL_STATUSES:
-                return check
-            if timeout_s is not None and time.monotonic() - start > timeout_s:
-                raise ClientError(f"check {check_id}: not finished after {timeout_s:g} s "
-                                  f"(status {check.get('status')})")
-            self._sleep(interval)
-            interval = min(max_poll_s, interval * 1.5)
+        return self._poll(lambda _: self.get_check(check_id),
+                          lambda check: check.get("status") in FINAL_STATUSES,
+                          f"check {check_id}", lambda check: f"status {check.get('status')}",
+                          poll_s, max_poll_s, timeout_s)
 
     def check_network(self, network: Any, ports: Sequence[dict[str, Any]],
                       devices: Sequence[dict[str, Any]] | None = None, gain_off: Any = None,
@@ -340,18 +333,37 @@ class BallastClient:
                    poll_s: float = 0.5, max_poll_s: float = 3.0,
                    timeout_s: float | None = None) -> dict:
         """Poll until every check of the batch is done, failed or cancelled; return the batch."""
+        def fetch(elapsed_s: float) -> dict:
+            batch = self.get_batch(batch_id)
+            progress = batch_progress(batch, elapsed_s)
+            if on_progress:
+                on_progress(progress)
+            return {"batch": batch, "progress": progress}
+
+        def finished(state: dict) -> bool:
+            progress = state["progress"]
+            return bool(state["batch"].get("finished")) or progress.finished >= progress.total
+
+        def so_far(state: dict) -> str:
+            return f"{state['progress'].finished}/{state['progress'].total}"
+
+        return self._poll(fetch, finished, f"batch {batch_id}", so_far, poll_s,
+                          max_poll_s, timeout_s)["batch"]
+
+    def _poll(self, fetch: Callable[[float], dict], finished: Callable[[dict], bool],
+              name: str, so_far: Callable[[dict], str], poll_s: float,
+              max_poll_s: float, timeout_s: float | None) -> dict:
+        """``fetch(elapsed seconds)`` until ``finished``, the interval growing 1.5× per poll up
+        to ``max_poll_s``; a ClientError naming the resource after ``timeout_s``."""
         start = time.monotonic()
         interval = poll_s
         while True:
-            batch = self.get_batch(batch_id)
-            progress = batch_progress(batch, time.monotonic() - start)
-            if on_progress:
-                on_progress(progress)
-            if batch.get("finished") or progress.finished >= progress.total:
-                return batch
+            state = fetch(time.monotonic() - start)
+            if finished(state):
+                return state
             if timeout_s is not None and time.monotonic() - start > timeout_s:
-                raise ClientError(f"batch {batch_id}: not finished after {timeout_s:g} s "
-                                  f"({progress.finished}/{progress.total})")
+                raise ClientError(f"{name}: not finished after {timeout_s:g} s "
+                                  f"({so_far(state)})")
             self._sleep(interval)
             interval = min(max_poll_s, interval * 1.5)
 

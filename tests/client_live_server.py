@@ -110,3 +110,14 @@ def live_server(folder: Path, **config: Any) -> Iterator[LiveServer]:
         thread.join(timeout=10)
         inline.stop()
         stores.close()
+
+
+@contextmanager
+def cli_live_server(folder: Path, patch: Any) -> Iterator[LiveServer]:
+    """``live_server`` that the command line and ``BallastClient.from_environment`` find through
+    the environment (``patch``: a ``pytest.MonkeyPatch``), with no client config file."""
+    with live_server(folder / "server") as live:
+        for name, value in (("BALLAST_URL", live.url), ("BALLAST_TOKEN", live.token),
+                            ("BALLAST_CONFIG", str(folder / "absent.toml"))):
+            patch.setenv(name, value)
+        yield live

@@ -21,7 +21,7 @@ import numpy as np
 import pytest
 
 from service.cli import main
-from tests.client_live_server import live_server
+from tests.client_live_server import cli_live_server
 from tests.support.json_requests import RLC_C_F, RLC_L_H, RLC_R_OHM, rlc_tank_request
 
 G_VALUES = {"damped": -3e-3, "grows": -8e-3}
@@ -31,10 +31,7 @@ G_VALUES = {"damped": -3e-3, "grows": -8e-3}
 def server(tmp_path_factory: pytest.TempPathFactory):
     """One live server for the module; the command line finds it through the environment."""
     folder = tmp_path_factory.mktemp("cli-curves")
-    with live_server(folder / "server") as live, pytest.MonkeyPatch.context() as patch:
-        for name, value in (("BALLAST_URL", live.url), ("BALLAST_TOKEN", live.token),
-                            ("BALLAST_CONFIG", str(folder / "absent.toml"))):
-            patch.setenv(name, value)
+    with pytest.MonkeyPatch.context() as patch, cli_live_server(folder, patch) as live:
         yield live
 
 

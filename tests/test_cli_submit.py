@@ -20,7 +20,7 @@ import numpy as np
 import pytest
 
 from service.cli import main
-from tests.client_live_server import live_server
+from tests.client_live_server import cli_live_server
 from tests.support.json_requests import (
     RLC_SHORT_BAND_HZ,
     rlc_tank_frequency_hz,
@@ -32,10 +32,7 @@ LOW_BAND_HZ = np.geomspace(1e6, 3e9, 401)  # stops below the 3.557 GHz oscillati
 
 @pytest.fixture
 def server(tmp_path: Path, monkeypatch: pytest.MonkeyPatch):
-    with live_server(tmp_path / "server") as live:
-        monkeypatch.setenv("BALLAST_URL", live.url)
-        monkeypatch.setenv("BALLAST_TOKEN", live.token)
-        monkeypatch.setenv("BALLAST_CONFIG", str(tmp_path / "absent.toml"))
+    with cli_live_server(tmp_path, monkeypatch) as live:
         yield live
 
 

@@ -33,7 +33,7 @@ from service.client import BallastClient, ClientConfig, ClientError, request_fro
 from service.client_network import PACK_ABOVE_VALUES
 from service.intake import load_request
 from service.schemas.request import is_packed
-from tests.client_live_server import live_server
+from tests.client_live_server import cli_live_server
 from tests.support.json_requests import (
     RLC_SHORT_BAND_HZ,
     rlc_tank_frequency_hz,
@@ -50,10 +50,7 @@ TWO_PROBES = [{"name": "a", "role": "probe"}, {"name": "b", "role": "probe"}]
 
 @pytest.fixture
 def server(tmp_path: Path, monkeypatch: pytest.MonkeyPatch):
-    with live_server(tmp_path / "server") as live:
-        monkeypatch.setenv("BALLAST_URL", live.url)
-        monkeypatch.setenv("BALLAST_TOKEN", live.token)
-        monkeypatch.setenv("BALLAST_CONFIG", str(tmp_path / "absent.toml"))
+    with cli_live_server(tmp_path, monkeypatch) as live:
         yield live
 
 
