@@ -396,16 +396,20 @@ def _numeric(value: Any) -> bool:
                                for v in items)
 
 
-def _frequencies(given: np.ndarray | None, from_file: np.ndarray | None, n_data: int
-                 ) -> np.ndarray:
+def checked_frequencies(given: np.ndarray | None, from_file: np.ndarray | None, n_data: int,
+                        min_points: int = 3) -> np.ndarray:
+    """The frequencies of a network part (``frequency_hz``, or the Touchstone file's): at least
+    ``min_points`` (3 for a check, 1 for new samples), finite, >= 0, strictly increasing, as
+    many as the data's points."""
     if given is None and from_file is None:
         raise InputError("frequency_hz", "is required with array data")
     f = np.asarray(given if given is not None else from_file, dtype=float)
     if from_file is not None and given is not None and (
             f.shape != from_file.shape or not np.allclose(f, from_file, rtol=1e-9)):
         raise InputError("frequency_hz", "differs from the Touchstone file's frequencies")
-    if f.size < 3:
-        raise InputError("frequency_hz", f"needs at least 3 points (got {f.size})")
+    if f.size < min_points:
+        raise InputError("frequency_hz", f"needs at least {min_points} point"
+                         f"{'s' if min_points != 1 else ''} (got {f.size})")
     if f.size > MAX_POINTS:
         raise InputError("frequency_hz", f"has {f.size} points; the limit is {MAX_POINTS}")
     if not np.isfinite(f).all() or (f < 0).any():
@@ -443,7 +447,7 @@ def build_request(data: dict[str, Any]) -> CheckRequest:
     n = len(ports)
     notes: list[Diagnostic] = []
     network, file_f = _network(data, "", n, data["options"], notes)
-    f = _frequencies(data.get("frequency_hz"), file_f, network.values.shape[0])
+    f = checked_frequencies(data.get("frequency_hz"), file_f, network.values.shape[0])
     gain_off = None
     if "gain_off" in data:
         gain_off, off_f = _network(data["gain_off"], "gain_off.", n, data["options"], notes)

@@ -14,10 +14,16 @@ from typing import Any
 import numpy as np
 from marshmallow import RAISE, ValidationError, fields, post_load
 
-from service.schemas.request import FloatArray, NetworkSchema, Transconductance, _network
+from service.schemas.request import (
+    FloatArray,
+    NetworkSchema,
+    Transconductance,
+    _network,
+    checked_frequencies,
+)
 from service.schemas.submission import priority_field
 from workers.engine.errors import InputError
-from workers.engine.request import MAX_POINTS, CheckRequest
+from workers.engine.request import CheckRequest
 from workers.engine.samples import AddedSamples, merge_samples
 from workers.engine.verdict import Diagnostic
 
@@ -44,31 +50,12 @@ class SamplesSchema(NetworkSchema):
         return data
 
 
-def _new_frequencies(given: np.ndarray | None, from_file: np.ndarray | None, n_data: int
-                     ) -> np.ndarray:
-    if given is None and from_file is None:
-        raise InputError("frequency_hz", "is required with array data")
-    f = np.asarray(given if given is not None else from_file, dtype=float)
-    if from_file is not None and given is not None and (
-            f.shape != from_file.shape or not np.allclose(f, from_file, rtol=1e-9)):
-        raise InputError("frequency_hz", "differs from the Touchstone file's frequencies")
-    if f.size < 1 or f.size > MAX_POINTS:
-        raise InputError("frequency_hz", f"needs 1 to {MAX_POINTS} points (got {f.size})")
-    if not np.isfinite(f).all() or (f < 0).any():
-        raise InputError("frequency_hz", "must be finite and >= 0")
-    if (np.diff(f) <= 0).any():
-        i = int(np.argmax(np.diff(f) <= 0))
-        raise InputError("frequency_hz", f"must be strictly increasing (point {i + 1} is not)")
-    if n_data != f.size:
-        raise InputError("data", f"has {n_data} frequency points but frequency_hz has {f.size}")
-    return f
-
-
 def added_samples(data: dict[str, Any], old: CheckRequest) -> AddedSamples:
     """The validated body as samples for ``old`` (raises InputError naming the field)."""
     notes: list[Diagnostic] = []
     network, file_f = _network(data, "", old.n_ports, old.options, notes)
-    f = _new_frequencies(data.get("frequency_hz"), file_f, network.values.shape[0])
+    f = checked_frequencies(data.get("frequency_hz"), file_f, network.values.shape[0],
+                            min_points=1)
     gain_off = None
     if "gain_off" in data:
         gain_off, off_f = _network(data["gain_off"], "gain_off.", old.n_ports, old.options,
