@@ -2,12 +2,14 @@
 
 ``service.demo.generate.generate_demo(folder)`` writes Touchstone files and one map per circuit
 family (``<family>_map.json``); each family goes in as one multipart batch, as a design flow
-would send it, and every verdict is printed when the batch has finished.
+would send it, and every verdict is printed when the batch has finished; the last lines say where
+the files are and where each batch's report is served.
 """
 
 from __future__ import annotations
 
 import json
+import time
 from collections import Counter
 from collections.abc import Callable
 from pathlib import Path
@@ -54,26 +56,68 @@ def verdict_line(item: dict[str, Any]) -> str:
     return f"  {item.get('label') or item['id']:<32} {verdict:<14}{count_text}{where}"
 
 
+class DemoInterruptedError(Exception):
+    """The service was asked to stop while the demo was waiting for verdicts."""
+
+
+def stoppable_sleep(should_stop: Callable[[], bool], step_s: float = 0.05
+                    ) -> Callable[[float], None]:
+    """A ``sleep`` for :class:`BallastClient` that wakes every ``step_s`` and raises
+    :class:`DemoInterruptedError` once ``should_stop()`` is true (seen within a step)."""
+
+    def sleep(seconds: float) -> None:
+        end = time.monotonic() + seconds
+        while not should_stop():
+            left = end - time.monotonic()
+            if left <= 0:
+                return
+            time.sleep(min(step_s, left))
+        raise DemoInterruptedError
+
+    return sleep
+
+
 def run_demo(
     base_url: str, token: str, folder: Path, out: Callable[[str], None] = print,
     should_stop: Callable[[], bool] = lambda: False,
 ) -> Counter[str]:
-    """Generate the demo data, submit it, wait, print every verdict; returns the verdict counts."""
+    """Generate the demo data, submit it, wait, print every verdict and where the files and the
+    reports are; returns the verdict counts. Stops early (saying so) when ``should_stop()``."""
     from service.demo.generate import generate_demo
 
     folder.mkdir(parents=True, exist_ok=True)
     paths = [Path(p) for p in generate_demo(folder)]
-    client = BallastClient(ClientConfig(url=base_url, token=token))
+    client = BallastClient(ClientConfig(url=base_url, token=token),
+                           sleep=stoppable_sleep(should_stop))
     totals: Counter[str] = Counter()
-    for family, mapping, files in family_batches(paths, folder):
-        if should_stop():
-            break
-        accepted = client.submit_touchstone_batch(files, mapping, label=f"demo {family}")
-        out(f"demo: submitted {len(files)} {family} variants as batch {accepted['id']}")
-        client.wait_batch(accepted["id"], timeout_s=DEMO_TIMEOUT_S)
-        for item in client.iter_batch_checks(accepted["id"]):
-            out(verdict_line(item))
-            totals[item.get("verdict") or item.get("status") or "unknown"] += 1
-    summary = ", ".join(f"{n} {name}" for name, n in sorted(totals.items()))
-    out(f"demo finished: {sum(totals.values())} checks ({summary})")
+    reports: list[str] = []
+    try:
+        for family, mapping, files in family_batches(paths, folder):
+            if should_stop():
+                raise DemoInterruptedError
+            accepted = client.submit_touchstone_batch(files, mapping, label=f"demo {family}")
+            out(f"demo: submitted {len(files)} {family} variants as batch {accepted['id']}")
+            reports.append(f"{base_url}/v1/batches/{accepted['id']}/report")
+            client.wait_batch(accepted["id"], timeout_s=DEMO_TIMEOUT_S)
+            for item in client.iter_batch_checks(accepted["id"]):
+                out(verdict_line(item))
+                totals[item.get("verdict") or item.get("status") or "unknown"] += 1
+    except DemoInterruptedError:
+        out("demo: stopped before every verdict was in")
+    else:
+        summary = ", ".join(f"{n} {name}" for name, n in sorted(totals.items()))
+        out(f"demo finished: {sum(totals.values())} checks ({summary})")
+    for line in where_lines(folder, reports):
+        out(line)
     return totals
+
+
+def where_lines(folder: Path, reports: list[str]) -> list[str]:
+    """Where the demo's files went, and its batches' HTML reports (they need the token)."""
+    maps = ", ".join(sorted(p.name for p in folder.glob("*_map.json")))
+    lines = [f"demo files: {folder.resolve()} (Touchstone variants, {maps}, truth.json, "
+             "README.txt)"]
+    if reports:
+        lines.append("demo reports (HTML; send the token as 'Authorization: Bearer'): "
+                     + " ".join(reports))
+    return lines

@@ -219,7 +219,50 @@ def test_progress_line_counts_and_rates():
     line = progress_line(progress, width=20)
     assert line.startswith("[" + "#" * 6 + "·" * 14 + "]")  # 12/40 of 20 cells
     assert "12/40" in line and "stable 9 · unstable 2 · indeterminate 0" in line
-    assert "failed/cancelled 1" in line and "3.0 checks/s" in line and "~9 s left" in line
+    assert "failed/cancelled 1" in line and "180 checks/min" in line and "~9 s left" in line
     slow = BatchProgress(total=6, finished=1, by_status={"done": 1},
                          by_verdict={"unstable": 1}, elapsed_s=120.0)
     assert "0.5 checks/min" in progress_line(slow) and "~10 min 00 s left" in progress_line(slow)
+
+
+@pytest.mark.parametrize(("per_s", "text"), [
+    (50.0, "3000 checks/min"), (3.1, "186 checks/min"), (1.0, "60 checks/min"),
+    (0.16, "9.6 checks/min"), (0.075, "4.5 checks/min"), (1 / 720, "0.083 checks/min"),
+    (0.0, "0 checks/min"),
+])
+def test_progress_rate_has_one_unit_whatever_the_speed(per_s: float, text: str):
+    """One unit across the one-check-a-second boundary where it used to switch (issue 13)."""
+    from service.cli.client_progress import format_rate
+
+    assert format_rate(per_s) == text
+
+
+def test_touchstone_without_map_names_the_file_and_what_to_add(tmp_path, capsys, monkeypatch):
+    """Issue 13: this used to fail with "Expecting value: line 1 column 1 (char 0)"."""
+    monkeypatch.setenv("BALLAST_CONFIG", str(tmp_path / "absent.toml"))
+    folder = tmp_path / "designs"
+    folder.mkdir()
+    for name in ("lna_a.s8p", "lna_b.s8p"):
+        (folder / name).write_text("# Hz S RI R 50\n1e9 0 0\n2e9 0 0\n3e9 0 0\n")
+    (folder / "lna_map.json").write_text('{"ports": [], "devices": []}')
+    unreachable = ["--url", "http://127.0.0.1:9", "--token", "x"]
+    code = main(["submit", str(folder / "lna_a.s8p"), "--wait", *unreachable])
+    out, err = capsys.readouterr()
+    assert code == 3 and out == ""
+    assert err.startswith(f"ballast submit: {folder / 'lna_a.s8p'}: a Touchstone file needs a "
+                          "port/device map.")
+    assert "Add --map FILE" in err and "examples/request.json" in err
+    assert "Expecting value" not in err
+    # a glob of several, and a folder holding Touchstone files (and a map), say the same
+    assert main(["submit", str(folder / "lna_*.s8p"), *unreachable]) == 3
+    assert "lna_a.s8p (and 1 more): a Touchstone file needs" in capsys.readouterr().err
+    assert main(["submit", str(folder), *unreachable]) == 3
+    assert "(and 1 more): a Touchstone file needs" in capsys.readouterr().err
+
+
+def test_a_json_request_that_is_not_json_is_named(tmp_path, capsys, monkeypatch):
+    monkeypatch.setenv("BALLAST_CONFIG", str(tmp_path / "absent.toml"))
+    broken = tmp_path / "broken.json"
+    broken.write_text("{")
+    assert main(["submit", str(broken), "--url", "http://127.0.0.1:9", "--token", "x"]) == 3
+    assert f"ballast submit: {broken}: a check request must be JSON (" in capsys.readouterr().err

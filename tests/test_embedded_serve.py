@@ -20,6 +20,7 @@ import time
 from pathlib import Path
 
 import pytest
+import requests as http_client
 
 from service.auth import DEFAULT_TENANT
 from service.client import BallastClient, ClientConfig
@@ -110,12 +111,26 @@ def test_readme_demo_command_prints_the_engines_verdicts(tmp_path: Path):
     try:
         url = served.read_until(r"serving at (http://\S+)", 120).group(1)
         assert url == f"http://127.0.0.1:{port}"
-        served.read_until(r"^token: blst_[A-Za-z0-9_-]{43}$", 5)
+        token = served.read_until(r"^token: (blst_[A-Za-z0-9_-]{43})$", 5).group(1)
         served.read_until(r"^demo finished: (\d+) checks", 1500)
+        # the demo says where its files went and where each batch's report is served
+        where = served.read_until(r"^demo files: (\S+) \(", 5).group(1)
+        reports = served.read_until(r"^demo reports .*: (.+)$", 5).group(1).split()
+        for report in reports:
+            page = http_client.get(report, headers={"Authorization": f"Bearer {token}"}, timeout=60)
+            assert page.status_code == 200 and "text/html" in page.headers["Content-Type"]
         assert served.interrupt() == 0
     finally:
         served.kill()
     folder = tmp_path / "data" / "demo"
+    assert Path(where) == folder.resolve()
+    batch_ids = [m.group(1) for line in served.lines
+                 for m in [re.match(r"^demo: submitted \d+ \w+ variants as batch (\S+)$", line)]
+                 if m]
+    assert len(batch_ids) == 2
+    assert reports == [f"{url}/v1/batches/{batch_id}/report" for batch_id in batch_ids]
+    assert "ballast: SIGINT received; stopping (at most 4.5 s)" in served.lines
+    assert served.lines[-1] == "ballast: stopped"
     files = sorted(folder.glob("*.s*p"))
     assert files, "the demo wrote no Touchstone files"
     printed = {}

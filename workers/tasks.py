@@ -18,7 +18,7 @@ import time
 from typing import Any
 
 from billiard.einfo import ExceptionWithTraceback
-from billiard.exceptions import SoftTimeLimitExceeded, WorkerLostError
+from billiard.exceptions import SoftTimeLimitExceeded, Terminated, WorkerLostError
 from celery.worker.request import Request
 
 from workers.celery_app import app, config
@@ -68,7 +68,10 @@ class CheckRequest(Request):
     - a pool process that died mid-check (``WorkerLostError``) releases the check's lease before
       Celery puts the message back (``reject_on_worker_lost``), so the redelivery claims it at
       once: a check that kills its worker every time ends ``failed`` after its attempts within
-      seconds, not one lease (hard limit + margin) per attempt.
+      seconds, not one lease (hard limit + margin) per attempt;
+    - so does a check that Celery's cold shutdown cancelled (``Terminated``; ``ballast serve``
+      asks for one when running checks outlast its warm shutdown): its unacknowledged message
+      goes back on the queue and the next start claims it at once.
     """
 
     def on_failure(self, exc_info: Any, send_failed_event: bool = True,
@@ -76,7 +79,7 @@ class CheckRequest(Request):
         exc = exc_info.exception
         if isinstance(exc, ExceptionWithTraceback):
             exc = exc.exc
-        if isinstance(exc, WorkerLostError) and self.args:
+        if isinstance(exc, WorkerLostError | Terminated) and self.args:
             check_id = str(self.args[0])
             try:
                 process_stores().checks.release(check_id)

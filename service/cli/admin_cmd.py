@@ -19,6 +19,7 @@ import sys
 from datetime import UTC, datetime
 
 from service.auth import create_token, hash_token, looks_like_token
+from service.cli import PLAIN_EXIT_CODES_HELP
 from service.config import printable_url
 from workers.store import AccessStore
 
@@ -98,15 +99,20 @@ def _refusing(action):
 
 
 def register(subparsers: argparse._SubParsersAction) -> None:
-    parser = subparsers.add_parser("token", help="create, list or revoke API tokens")
+    parser = subparsers.add_parser("token", help="create, list or revoke API tokens",
+                                   epilog=PLAIN_EXIT_CODES_HELP)
     parser.add_argument("--store", help="store URL (default: the store the service's settings "
                                         "name; required when none is set)")
-    actions = parser.add_subparsers(dest="token_action", required=True, metavar="ACTION")
-    create = actions.add_parser("create", help="make a token for a tenant and print it once")
+    actions = parser.add_subparsers(dest="token_action", required=True, metavar="ACTION",
+                                    help="one of:")
+    create = actions.add_parser("create", help="make a token for a tenant and print it once",
+                                epilog=PLAIN_EXIT_CODES_HELP)
     create.add_argument("--tenant", required=True, help="tenant name (letters, digits, . _ -)")
     create.set_defaults(func=_refusing(_create))
-    listing = actions.add_parser("list", help="list tokens (id, tenant, created)")
+    listing = actions.add_parser("list", help="list tokens (id, tenant, created)",
+                                 epilog=PLAIN_EXIT_CODES_HELP)
     listing.set_defaults(func=_refusing(_list))
-    revoke = actions.add_parser("revoke", help="revoke a token (give the token or its id)")
+    revoke = actions.add_parser("revoke", help="revoke a token (give the token or its id)",
+                                epilog=PLAIN_EXIT_CODES_HELP)
     revoke.add_argument("token", help="the token, or the id shown by 'ballast token list'")
     revoke.set_defaults(func=_refusing(_revoke))

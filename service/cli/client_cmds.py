@@ -28,7 +28,7 @@ from collections.abc import Mapping, Sequence
 from pathlib import Path
 from typing import Any
 
-from service.cli import EXIT_ERROR, EXIT_STABLE
+from service.cli import CLIENT_CONFIG_HELP, EXIT_ERROR, EXIT_STABLE, PLAIN_EXIT_CODES_HELP
 from service.cli.check_cmd import read_touchstone_file
 from service.client import BallastClient, ClientError, load_config
 from service.client_network import network_part, read_network_file
@@ -38,6 +38,7 @@ from service.reports.tabular import results_csv, results_table
 
 TOUCHSTONE_SUFFIXES = (".ts",)  # plus .sNp, matched below
 FORMATS = ("json", "table", "csv", "junit")
+ID_HELP = "a batch id (bat_…, as 'ballast submit' prints it) or a check id (chk_…)"
 
 
 def _is_touchstone(path: Path) -> bool:
@@ -49,9 +50,10 @@ def _is_touchstone(path: Path) -> bool:
 def _connection_options() -> argparse.ArgumentParser:
     parent = argparse.ArgumentParser(add_help=False)
     group = parent.add_argument_group("server")
-    group.add_argument("--url", help="API base URL (default: $BALLAST_URL, the config file, or "
-                                     "http://127.0.0.1:8000)")
-    group.add_argument("--token", help="API token (default: $BALLAST_TOKEN or the config file)")
+    group.add_argument("--url", help="API base URL (default: $BALLAST_URL, the client config "
+                                     "file, or http://127.0.0.1:8000)")
+    group.add_argument("--token", help="API token (default: $BALLAST_TOKEN or the client config "
+                                       "file)")
     return parent
 
 
@@ -64,12 +66,15 @@ def register(subparsers: argparse._SubParsersAction) -> None:
                     "(or globbed) are read as scikit-rf network files (the JSON that "
                     "skrf.io.general.to_json_string writes; needs scikit-rf: pip install "
                     "'ballast[rf]'); pickled .ntwk/.p files are never read. Prints the batch "
-                    "id; with --wait, shows progress and exits by the verdicts.")
+                    "id; with --wait, shows progress and exits by the verdicts (without it: 0 "
+                    "once accepted).",
+        epilog=CLIENT_CONFIG_HELP)
     submit.add_argument("paths", nargs="+", metavar="PATH",
                         help="files, folders or glob patterns")
-    submit.add_argument("--map", dest="map_file", type=Path,
+    submit.add_argument("--map", dest="map_file", type=Path, metavar="FILE",
                         help="JSON with the ports, devices (and options) shared by every "
-                             "Touchstone or scikit-rf network file")
+                             "Touchstone or scikit-rf network file; required for Touchstone "
+                             "files")
     submit.add_argument("--label", help="a label for the batch")
     submit.add_argument("--wait", action="store_true",
                         help="wait for every verdict, with a progress bar on stderr")
@@ -86,21 +91,26 @@ def register(subparsers: argparse._SubParsersAction) -> None:
     submit.set_defaults(func=run_submit)
 
     status = subparsers.add_parser("status", parents=[common],
-                                   help="status of a batch (bat_…) or a check (chk_…)")
-    status.add_argument("id")
+                                   help="status of a batch (bat_…) or a check (chk_…)",
+                                   epilog=f"{CLIENT_CONFIG_HELP}\n\n{PLAIN_EXIT_CODES_HELP}")
+    status.add_argument("id", help=ID_HELP)
     status.add_argument("--json", action="store_true", help="print the API's JSON")
     status.set_defaults(func=run_status)
 
     cancel = subparsers.add_parser("cancel", parents=[common],
-                                   help="cancel what has not finished of a batch or a check")
-    cancel.add_argument("id")
+                                   help="cancel what has not finished of a batch or a check",
+                                   epilog=f"{CLIENT_CONFIG_HELP}\n\n{PLAIN_EXIT_CODES_HELP}")
+    cancel.add_argument("id", help=ID_HELP)
     cancel.set_defaults(func=run_cancel)
 
     results = subparsers.add_parser("results", parents=[common],
                                     help="verdicts of a batch or a check as JSON, table, CSV or "
-                                         "JUnit XML")
-    results.add_argument("id")
-    results.add_argument("--format", choices=FORMATS, default="table")
+                                         "JUnit XML", epilog=CLIENT_CONFIG_HELP)
+    results.add_argument("id", help=ID_HELP)
+    results.add_argument("--format", choices=FORMATS, default="table",
+                         help="json: the API's JSON; table: one line per check; csv: one row "
+                              "per check; junit: JUnit XML, one test case per check "
+                              "(default: table)")
     results.add_argument("--output", "-o", type=Path, metavar="FILE",
                          help="write there instead of stdout")
     results.add_argument("--curves", type=Path, metavar="DIR",
@@ -165,8 +175,21 @@ def _mapped_members(path: Path, mapping: Mapping[str, Any]) -> dict[str, Any]:
     return part.members
 
 
+def needs_map_message(touchstone: Sequence[Path]) -> str:
+    """What ``submit`` says when Touchstone files come without ``--map``."""
+    more = f" (and {len(touchstone) - 1} more)" if len(touchstone) > 1 else ""
+    return (f"{touchstone[0]}{more}: a Touchstone file needs a port/device map.\n"
+            "  Add --map FILE: JSON naming the ports in data order and the devices, like\n"
+            "  the lna_map.json of 'python -m service.demo.generate demo' (format: README.md,\n"
+            "  \"Check one circuit locally\"). Without --map, submit takes JSON check\n"
+            "  requests, like examples/request.json.")
+
+
 def _read_json_object(path: Path, what: str) -> dict[str, Any]:
-    value = json.loads(path.read_text(encoding="utf-8"))
+    try:
+        value = json.loads(path.read_text(encoding="utf-8"))
+    except json.JSONDecodeError as exc:
+        raise ValueError(f"{path}: {what} must be JSON ({exc})") from exc
     if not isinstance(value, dict):
         raise ValueError(f"{path}: {what} must be a JSON object")
     return value
@@ -218,10 +241,13 @@ def _submit_batch(client: BallastClient, args: argparse.Namespace
             payloads = [{**mapping, "touchstone": read_touchstone_file(f)} for f in files]
             accepted = client.submit_touchstone_batch(files, mapping, label=args.label)
     else:
+        touchstone = [f for f in expand_paths(args.paths, want_touchstone=True)
+                      if _is_touchstone(f)]  # named, or in a named folder
+        if touchstone:
+            raise ValueError(needs_map_message(touchstone))
         files = expand_paths(args.paths, want_touchstone=False)
         if not files:
-            raise ValueError("no .json check requests found (give --map MAP.json to submit "
-                             "Touchstone files)")
+            raise ValueError("no .json check requests found in " + " ".join(args.paths))
         payloads = [_read_json_object(f, "a check request") for f in files]
         variants = [{"label": f.name, **p} for f, p in zip(files, payloads, strict=True)]
         accepted = client.submit_batch(None, variants, label=args.label)

@@ -17,7 +17,8 @@ _ORDER = ("stable", "unstable", "indeterminate")
 
 
 def progress_line(progress: BatchProgress, width: int = BAR_WIDTH) -> str:
-    """'[########················]  12/40 │ stable 9 · unstable 2 · indeterminate 1 │ 3.1/s'."""
+    """'[########················]  12/40 │ stable 9 · unstable 2 · indeterminate 1 │
+    186 checks/min │ ~9 s left' (on one line)."""
     total = max(progress.total, 1)
     filled = round(width * progress.finished / total)
     bar = "#" * filled + "·" * (width - filled)
@@ -33,8 +34,10 @@ def progress_line(progress: BatchProgress, width: int = BAR_WIDTH) -> str:
 
 
 def format_rate(per_s: float) -> str:
-    """'3.2 checks/s', or per minute below one a second ('4.5 checks/min')."""
-    return f"{per_s:.1f} checks/s" if per_s >= 1.0 else f"{per_s * 60:.1f} checks/min"
+    """Always per minute, so that the number is comparable while it changes: '192 checks/min',
+    '4.5 checks/min', '0.083 checks/min' (two significant digits below 10)."""
+    per_min = per_s * 60.0
+    return f"{per_min:.0f} checks/min" if per_min >= 10 else f"{per_min:.2g} checks/min"
 
 
 def duration(seconds: float) -> str:

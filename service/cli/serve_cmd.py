@@ -6,6 +6,13 @@ import argparse
 import os
 from typing import Any
 
+SERVE_EXIT_CODES_HELP = """exit codes:
+  0  stopped by Ctrl-C (SIGINT) or SIGTERM
+  3  the API did not come up (port in use?), a process kept dying, or bad usage"""
+WORKER_EXIT_CODES_HELP = """exit codes:
+  those of the Celery worker this command becomes (0 after a warm shutdown on
+  SIGTERM); 3 for bad usage."""
+
 
 def _positive(text: str) -> int:
     value = int(text)
@@ -21,7 +28,10 @@ def register(subparsers: Any) -> None:
              "unless BALLAST_REDIS_URL is set)",
         description="Start the HTTP API (gunicorn) and a worker as child processes, print the "
                     "base URL and an API token, and run until Ctrl-C. Data lives in "
-                    "BALLAST_DATA_DIR (default ./var); BALLAST_REDIS_URL switches to Redis.",
+                    "BALLAST_DATA_DIR (default ./var); BALLAST_REDIS_URL switches to Redis. "
+                    "Ctrl-C (SIGINT) or SIGTERM stops it within 5 s; a check still running "
+                    "then runs again at the next start.",
+        epilog=SERVE_EXIT_CODES_HELP,
     )
     serve.add_argument("--host", default="127.0.0.1", help="address to listen on")
     serve.add_argument("--port", type=int, default=int(os.environ.get("BALLAST_PORT") or 8000),
@@ -39,11 +49,13 @@ def register(subparsers: Any) -> None:
         help="run a worker on its own (distributed deployments)",
         description="Run checks from the queue named by BALLAST_REDIS_URL (or the embedded "
                     "broker in BALLAST_DATA_DIR). Also runs the heartbeat and the reconciler.",
+        epilog=WORKER_EXIT_CODES_HELP,
     )
     worker.add_argument("--concurrency", type=_positive, default=os.cpu_count() or 1,
                         help="checks run at once (processes)")
     worker.add_argument("--name", default=None, help="worker name (default: Celery's)")
-    worker.add_argument("--loglevel", default="INFO")
+    worker.add_argument("--loglevel", default="INFO",
+                        help="Celery's log level: DEBUG, INFO, WARNING, ERROR (default: INFO)")
     worker.set_defaults(func=_worker)
 
 
