@@ -26,14 +26,16 @@ def section(title: str) -> str:
     return match.group(1)
 
 
-def python_block(title: str) -> str:
-    blocks = re.findall(r"^```python\n(.*?)^```$", section(title), re.M | re.S)
-    assert len(blocks) == 1, blocks
-    return blocks[0]
+def python_blocks(title: str) -> list[str]:
+    """The fenced python blocks of a section, its ### subsections included."""
+    return re.findall(r"^```python\n(.*?)^```$", section(title), re.M | re.S)
 
 
-def test_first_check_from_python_runs_as_written(tmp_path: Path):
-    code = python_block("First check from Python")
+@pytest.mark.parametrize("index", [0, 1], ids=["from a request file", "from scikit-rf"])
+def test_first_check_from_python_runs_as_written(tmp_path: Path, index: int):
+    blocks = python_blocks("First check from Python")
+    assert len(blocks) == 2, "the section shows a request file and a scikit-rf Network"
+    code = blocks[index]
     promised = re.findall(r"^# prints: (.+)$", code, re.M)
     assert len(promised) == 1, "the block must say what it prints"
     with live_server(tmp_path / "server") as live:

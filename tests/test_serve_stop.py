@@ -19,7 +19,7 @@ import requests
 from service.client import BallastClient, ClientConfig
 from tests.api_fixtures import tiny_request
 from tests.support.queue_harness import engine_verdicts, free_port
-from tests.test_embedded_serve import BALLAST, Served, serve_env
+from tests.support.served import BALLAST, Served, serve_env
 
 pytestmark = pytest.mark.integration
 
