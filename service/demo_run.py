@@ -44,8 +44,9 @@ def _frequency(value: float | None) -> str:
     return f"{value:.4g} Hz"
 
 
-def verdict_line(item: dict[str, Any]) -> str:
-    """One printed line per check: label, status or verdict, count and first offending mode."""
+def verdict_line(item: dict[str, Any], label_width: int = 32) -> str:
+    """One printed line per check: label (padded to ``label_width``), status or verdict, count
+    and first offending mode."""
     verdict = item.get("verdict") or item.get("status")
     count = item.get("unstable_count")
     where = ""
@@ -53,7 +54,7 @@ def verdict_line(item: dict[str, Any]) -> str:
         node = item.get("first_unstable_node") or "?"
         where = f"  first at {_frequency(item['first_unstable_frequency_hz'])} (node {node})"
     count_text = "" if count is None else f"  right-half-plane natural frequencies: {count}"
-    return f"  {item.get('label') or item['id']:<32} {verdict:<14}{count_text}{where}"
+    return f"  {item.get('label') or item['id']:<{label_width}} {verdict:<14}{count_text}{where}"
 
 
 class DemoInterruptedError(Exception):
@@ -99,8 +100,10 @@ def run_demo(
             out(f"demo: submitted {len(files)} {family} variants as batch {accepted['id']}")
             reports.append(f"{base_url}/v1/batches/{accepted['id']}/report")
             client.wait_batch(accepted["id"], timeout_s=DEMO_TIMEOUT_S)
-            for item in client.iter_batch_checks(accepted["id"]):
-                out(verdict_line(item))
+            items = list(client.iter_batch_checks(accepted["id"]))
+            width = max(len(item.get("label") or item["id"]) for item in items) if items else 0
+            for item in items:
+                out(verdict_line(item, width))
                 totals[item.get("verdict") or item.get("status") or "unknown"] += 1
     except DemoInterruptedError:
         out("demo: stopped before every verdict was in")
