@@ -80,13 +80,8 @@ class SecularRoots:
             self.b[n] = 1.0
             self.c[:, n] = r[k].real
 
-    def roots(self, column: int, conductances: np.ndarray, top_rad_s: float) -> np.ndarray:
-        """(G, P + 1) roots (rad/s) of 1 + G φ_column(s), NaN-padded (module docstring)."""
-        g = np.asarray(conductances, dtype=float)
-        return self.roots_many(np.full(g.size, column), g, top_rad_s)
-
-    def roots_many(self, columns: np.ndarray, conductances: np.ndarray, top_rad_s: float
-                   ) -> np.ndarray:
+    def roots(self, columns: np.ndarray, conductances: np.ndarray, top_rad_s: float
+              ) -> np.ndarray:
         """(K, P + 1) roots (rad/s) of 1 + G_k φ_(columns_k)(s), one row per pair, NaN-padded:
         every placement's trials in one stacked eigenvalue call."""
         g = np.asarray(conductances, dtype=float)

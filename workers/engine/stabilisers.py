@@ -163,12 +163,6 @@ class StabiliserSearch:
     def fitted(self, m: int) -> bool:
         return self.fit is not None and bool(self.fit.error[m] <= NODE_FIT_LIMIT)
 
-    def roots(self, m: int, conductances: np.ndarray) -> np.ndarray:
-        """Natural frequencies (rad/s) with each of ``conductances`` at placement ``m``, one row
-        per conductance, NaN-padded (``secular``)."""
-        assert self.secular is not None
-        return self.secular.roots(m, conductances, self.limits[1])
-
     def count(self, m: int, g: float) -> int | None:
         """The clockwise encirclement count of NDF_G on the samples."""
         with np.errstate(all="ignore"):
@@ -181,12 +175,18 @@ class StabiliserSearch:
     def trials(self, m: int, conductances: np.ndarray, with_count: bool = True) -> list[Trial]:
         """The circuit with each of ``conductances`` at placement ``m``: least ζ of the roots in
         the band (Im ≥ 0, |s| inside it) and whether one grows; the count if asked."""
-        g = np.asarray(conductances, dtype=float)
-        if not self.fitted(m):
-            return [Trial(float(x), self.count(m, float(x)) if with_count else None, None, None,
-                          False) for x in g]
-        trials = self._modelled_trials([(m, g)])[0]
+        trials = self._uncounted([(m, np.asarray(conductances, dtype=float))])[0]
         return [self._counted(m, t) for t in trials] if with_count else trials
+
+    def _uncounted(self, asked: list[tuple[int, np.ndarray]]) -> list[list[Trial]]:
+        """Trials without their counts for every (placement, conductances) pair of ``asked``:
+        the fitted placements' roots in one stacked computation, the others' bare."""
+        fitted = [k for k, (m, _) in enumerate(asked) if self.fitted(m)]
+        found = [[Trial(float(x), None, None, None, False) for x in g] for _, g in asked]
+        for k, trials in zip(fitted, self._modelled_trials([asked[k] for k in fitted]),
+                             strict=True):
+            found[k] = trials
+        return found
 
     def _modelled_trials(self, asked: list[tuple[int, np.ndarray]]) -> list[list[Trial]]:
         """Trials (no count) at fitted placements, every (placement, conductances) pair of
@@ -196,7 +196,7 @@ class StabiliserSearch:
         columns = np.concatenate([np.full(len(g), m) for m, g in asked])
         g = np.concatenate([np.asarray(x, dtype=float) for _, x in asked])
         assert self.secular is not None
-        roots = self.secular.roots_many(columns, g, self.limits[1])
+        roots = self.secular.roots(columns, g, self.limits[1])
         size = np.abs(roots)
         with np.errstate(invalid="ignore"):
             chosen = (roots.imag >= -REAL_ZERO * size) & (size >= self.limits[0]) \
@@ -236,49 +236,13 @@ class StabiliserSearch:
                 return k
         return None
 
-    def _narrowed(self, m: int, low: float, high: float, best: Trial, with_count: bool
-                  ) -> Trial:
-        """The smallest conductance in (low, high] that meets the target, to within
-        (high/low)^(1/FINE_POINTS^FINE_ROUNDS): each round splits the bracket into
-        ``FINE_POINTS`` log steps and keeps the step before the first point that meets it
-        (``best``, at ``high``, meets it)."""
-        for _ in range(FINE_ROUNDS):
-            points = np.geomspace(low, high, FINE_POINTS + 1)
-            fine = self.trials(m, points[1:-1], False)
-            k = self._first(m, fine, with_count)
-            if k is not None:
-                best, high = fine[k], float(points[k + 1])
-            low = float(points[k if k is not None else FINE_POINTS - 1])
-        return best
-
     def search_all(self, ms: list[int]) -> list[Found]:
-        """``search(m, confirm=False)`` for each of ``ms``, the fitted placements' grids and
-        narrowing rounds each in one stacked root computation."""
-        found: dict[int, Found] = {m: self.search(m, confirm=False) for m in ms
-                                   if not self.fitted(m)}
+        """``search(m, confirm=False)`` for each of ``ms``, the grids and narrowing rounds of
+        all of them in one stacked root computation each."""
         modelled = [m for m in ms if self.fitted(m)]
-        brackets: dict[int, tuple[float, float, Trial]] = {}
-        grids = self._modelled_trials([(m, GRID) for m in modelled])
-        for m, trials in zip(modelled, grids, strict=True):
-            first = self._first(m, trials, False)
-            if first is None:
-                found[m] = Found(self.placements[m], self._best(m, trials), False, True)
-            elif first == 0:
-                found[m] = Found(self.placements[m], trials[0], True, True)
-            else:
-                brackets[m] = (float(GRID[first - 1]), float(GRID[first]), trials[first])
-        for _ in range(FINE_ROUNDS):
-            points = {m: np.geomspace(low, high, FINE_POINTS + 1)
-                      for m, (low, high, _) in brackets.items()}
-            fine = self._modelled_trials([(m, x[1:-1]) for m, x in points.items()])
-            for (m, x), trials in zip(points.items(), fine, strict=True):
-                _, high, best = brackets[m]
-                k = self._first(m, trials, False)
-                if k is not None:
-                    best, high = trials[k], float(x[k + 1])
-                brackets[m] = (float(x[k if k is not None else FINE_POINTS - 1]), high, best)
-        for m, (_, _, best) in brackets.items():
-            found[m] = Found(self.placements[m], best, True, True)
+        others = [m for m in ms if not self.fitted(m)]
+        found = dict(zip(modelled, self._searched(modelled, False), strict=True))
+        found.update(zip(others, self._searched(others, True), strict=True))
         return [found[m] for m in ms]
 
     def search(self, m: int, confirm: bool = True) -> Found:
@@ -287,8 +251,7 @@ class StabiliserSearch:
         scanned on them, and the count at the end is made by ``confirmed`` (at once unless
         ``confirm`` is false, for a caller that confirms only the placements it keeps);
         without the roots the scan is on the count."""
-        modelled = self.fitted(m)
-        found = self._search(m, (False,) if modelled else (True,))
+        found = self._searched([m], not self.fitted(m))[0]
         return self.confirmed(found) if confirm else found
 
     def confirmed(self, found: Found) -> Found:
@@ -299,22 +262,38 @@ class StabiliserSearch:
         trial = self._counted(self.placements.index(found.placement), found.trial)
         if trial.count == 0 or not found.meets_target:
             return replace(found, trial=trial)
-        return self._search(self.placements.index(found.placement), (True,))
+        return self._searched([self.placements.index(found.placement)], True)[0]
 
-    def _search(self, m: int, passes: tuple[bool, ...]) -> Found:
-        modelled = self.fitted(m)
-        trials = self.trials(m, GRID, with_count=False)
-        for with_count in passes:
+    def _searched(self, ms: list[int], with_count: bool) -> list[Found]:
+        """The search of each of ``ms`` (module docstring): the first grid point that meets the
+        target (with a sample count of 0 too when ``with_count``), its step narrowed
+        ``FINE_ROUNDS`` times into ``FINE_POINTS`` log steps, keeping the step before the first
+        point that meets it, to within (2.15)^(1/FINE_POINTS^FINE_ROUNDS); the grids, and each
+        round, of all placements in one stacked root computation."""
+        found: dict[int, Found] = {}
+        brackets: dict[int, tuple[float, float, Trial]] = {}  # low, high, best (at high)
+        for m, trials in zip(ms, self._uncounted([(m, GRID) for m in ms]), strict=True):
             first = self._first(m, trials, with_count)
             if first is None:
-                break
-            best = trials[first]
-            if first > 0:
-                best = self._narrowed(m, float(GRID[first - 1]), float(GRID[first]), best,
-                                      with_count)
-            if not with_count or best.count == 0:
-                return Found(self.placements[m], best, True, modelled)
-        return Found(self.placements[m], self._best(m, trials), False, modelled)
+                found[m] = Found(self.placements[m], self._best(m, trials), False,
+                                 self.fitted(m))
+            elif first == 0:
+                found[m] = Found(self.placements[m], trials[0], True, self.fitted(m))
+            else:
+                brackets[m] = (float(GRID[first - 1]), float(GRID[first]), trials[first])
+        for _ in range(FINE_ROUNDS):
+            points = {m: np.geomspace(low, high, FINE_POINTS + 1)
+                      for m, (low, high, _) in brackets.items()}
+            fine = self._uncounted([(m, x[1:-1]) for m, x in points.items()])
+            for (m, x), trials in zip(points.items(), fine, strict=True):
+                _, high, best = brackets[m]
+                k = self._first(m, trials, with_count)
+                if k is not None:
+                    best, high = trials[k], float(x[k + 1])
+                brackets[m] = (float(x[k if k is not None else FINE_POINTS - 1]), high, best)
+        for m, (_, _, best) in brackets.items():
+            found[m] = Found(self.placements[m], best, True, self.fitted(m))
+        return [found[m] for m in ms]
 
     def _best(self, m: int, trials: list[Trial]) -> Trial:
         """Without a grid point that meets the target. With the model's roots: among the points
