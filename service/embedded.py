@@ -165,9 +165,10 @@ def worker_name(config: RuntimeConfig) -> str:
 def running_checks(config: RuntimeConfig) -> int:
     """How many checks the store has running under this run's worker (after a stop: the ones
     its cold shutdown cancelled, queued again when a worker runs); 0 if the store is gone."""
+    from workers.heartbeat import instance_prefix
     from workers.store_access import open_configured_stores
 
-    prefix = worker_name(config).replace("/", "_") + "#"  # workers.heartbeat.instance
+    prefix = instance_prefix(worker_name(config))
     try:
         stores = open_configured_stores(config)
         try:

@@ -27,7 +27,12 @@ def _redis_client(url: str) -> redis.Redis:
 
 def instance(worker_name: str, main_pid: int) -> str:
     """How a claim names the worker instance that holds a check: ``<name>#<main pid>``."""
-    return f"{worker_name.replace('/', '_')}#{main_pid}"
+    return f"{instance_prefix(worker_name)}{main_pid}"
+
+
+def instance_prefix(worker_name: str) -> str:
+    """What every instance of ``worker_name`` begins with (``instance`` without the pid)."""
+    return f"{worker_name.replace('/', '_')}#"
 
 
 def beat(config: RuntimeConfig, worker_name: str) -> None:
